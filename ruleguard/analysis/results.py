@@ -1,0 +1,74 @@
+"""Frozen results of the analysis (FORMATS.md section 5 defines every field).
+
+Frequencies are in Hz here (the report's unit); the analysis works in rad/s
+internally and converts once when it builds these records.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+
+@dataclass(frozen=True)
+class Stability:
+    """Nyquist verdict: Z = N + P, with N the clockwise encirclements of -1.
+
+    ``closed_loop_unstable_poles`` = ``open_loop_unstable_poles`` -
+    ``ccw_encirclements``; both ``None`` when the curve passes through -1
+    (within tolerance), in which case ``stable`` is False.
+    """
+
+    stable: bool
+    open_loop_unstable_poles: int
+    ccw_encirclements: int | None
+    closed_loop_unstable_poles: int | None
+    through_critical_point: bool = False
+
+
+@dataclass(frozen=True)
+class Crossover:
+    """A gain crossover |L| = 1 and its phase margin (180 + angle L, in (-180, 180])."""
+
+    hz: float
+    phase_margin_deg: float
+
+
+@dataclass(frozen=True)
+class DiskMargin:
+    """Balanced disk margin (Seiler, Packard & Gahinet, IEEE CSM 40(5), 2020)."""
+
+    alpha: float
+    gain_range_db: tuple[float | None, float | None]
+    phase_deg: float
+    hz: float | None
+
+
+@dataclass(frozen=True)
+class Margins:
+    """Every margin of FORMATS.md section 5 (``None`` as defined there)."""
+
+    gain_margin_db: float | None
+    gain_margin_hz: float | None
+    lower_gain_margin_db: float | None
+    lower_gain_margin_hz: float | None
+    stable_gain_ranges_db: tuple[tuple[float | None, float | None], ...]
+    phase_margin_deg: float | None
+    crossover_hz: float | None
+    crossovers: tuple[Crossover, ...]
+    delay_margin_s: float | None
+    delay_margin_samples: float | None
+    sensitivity_peak_db: float | None
+    sensitivity_peak_hz: float | None
+    complementary_peak_db: float | None
+    complementary_peak_hz: float | None
+    disk_margin: DiskMargin | None
+    bandwidth_hz: float | None
+
+
+@dataclass(frozen=True)
+class LoopAnalysis:
+    """Stability and margins of one open loop (one variant of one loop)."""
+
+    stability: Stability
+    margins: Margins
+    notes: tuple[str, ...] = field(default=())

@@ -1,0 +1,70 @@
+"""The three kinds of problem, kept apart (ARCHITECTURE.md).
+
+* :class:`InputError`: the inputs cannot be read or are invalid (exit 2). It is
+  complete when created: file, line, column, key and message.
+* :class:`NumericalWarning`: a numerical caveat (reported as a note).
+* Rule findings are data (:mod:`ruleguard.rules.base`), not exceptions.
+
+:class:`InternalError` marks a bug (exit 3).
+"""
+
+from __future__ import annotations
+
+from ruleguard.location import Location
+
+
+class InputError(Exception):
+    """An input file is unreadable or invalid.
+
+    Parameters
+    ----------
+    file:
+        Path relative to the manifest's folder (``/`` separators).
+    line, column:
+        1-based position, ``None`` when it does not apply (empty file).
+    key:
+        Dotted key path of the offending element ("" for the whole file).
+    message:
+        What is wrong and, where possible, what was expected.
+    """
+
+    def __init__(
+        self,
+        file: str,
+        line: int | None,
+        column: int | None,
+        key: str,
+        message: str,
+    ) -> None:
+        super().__init__(message)
+        self.location = Location(file, line, column, key)
+        self.message = message
+
+    @classmethod
+    def at(cls, location: Location, message: str) -> InputError:
+        """Build an error at an existing :class:`Location`."""
+        return cls(location.file, location.line, location.column, location.key, message)
+
+    @property
+    def file(self) -> str:
+        return self.location.file
+
+    @property
+    def line(self) -> int | None:
+        return self.location.line
+
+    @property
+    def column(self) -> int | None:
+        return self.location.column
+
+    @property
+    def key(self) -> str:
+        return self.location.key
+
+
+class InternalError(Exception):
+    """A bug in ruleguard (exit 3)."""
+
+
+class NumericalWarning(UserWarning):
+    """A numerical caveat worth a note in the report (never an exit status)."""

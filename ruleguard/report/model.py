@@ -1,0 +1,78 @@
+"""The one Report object every output format reads.
+
+Built once by :mod:`ruleguard.pipeline` from the analysed loops and the
+findings; each reporter (:mod:`ruleguard.report.json_report`, ``text``,
+``sarif``, ``junit``, ``markdown``) renders it and nothing else.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+from ruleguard.analysis.results import LoopAnalysis
+from ruleguard.rules.base import Finding, Severity
+
+
+@dataclass(frozen=True)
+class VariantResult:
+    id: str
+    parameters: dict
+    analysis: LoopAnalysis
+
+
+@dataclass(frozen=True)
+class LoopResult:
+    """FORMATS.md section 5, ``loops[]``."""
+
+    name: str
+    domain: str  # "continuous" | "discrete"
+    sample_rate_hz: float | None
+    analysed: bool
+    discretization: dict | None
+    total_delay_s: float | None
+    notes: tuple[str, ...]
+    variants: tuple[VariantResult, ...]
+    not_analysed_reason: str | None = None
+    tags: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class RuleInfo:
+    """What reporters show about a rule (SARIF ``tool.driver.rules``, text legends)."""
+
+    id: str
+    summary: str
+    explanation: str
+    default_severity: str
+
+
+@dataclass(frozen=True)
+class Report:
+    tool_version: str
+    project_name: str
+    manifest_file: str
+    root: str
+    loops: tuple[LoopResult, ...]
+    findings: tuple[Finding, ...]
+    rules: tuple[RuleInfo, ...] = ()
+    ruleset_name: str = ""
+    texts: dict = field(default_factory=dict)  # file -> text, for source excerpts
+    fail_at: Severity = Severity.ERROR
+
+    @property
+    def evaluations(self) -> int:
+        return sum(len(lp.variants) for lp in self.loops)
+
+    def count(self, severity: Severity) -> int:
+        return sum(1 for f in self.findings if not f.waived and f.severity == severity)
+
+    @property
+    def waived(self) -> int:
+        return sum(1 for f in self.findings if f.waived)
+
+    @property
+    def failed(self) -> bool:
+        """True when an unwaived finding is at or above ``fail_at``."""
+        return any(
+            not f.waived and f.severity.rank >= self.fail_at.rank for f in self.findings
+        )

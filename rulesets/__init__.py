@@ -1,0 +1,1 @@
+"""Built-in rulesets (TOML), shipped as package data."""
