@@ -68,3 +68,18 @@ class InternalError(Exception):
 
 class NumericalWarning(UserWarning):
     """A numerical caveat worth a note in the report (never an exit status)."""
+
+
+class LoopNotAnalysable(Exception):
+    """A loop that cannot be analysed (improper controller, unusable model, ...).
+
+    Not an input error: the loop is reported with ``"analysed": false`` and a
+    finding of ``rule`` (for example ``controller.derivative-filter``) at
+    ``location`` says why.
+    """
+
+    def __init__(self, reason: str, rule: str, location: Location) -> None:
+        super().__init__(reason)
+        self.reason = reason
+        self.rule = rule
+        self.location = location
