@@ -43,6 +43,9 @@ class Violation:
     location: Location
     related: tuple[Location, ...] = ()
     key_path: str = ""
+    #: ``None``: the rule's configured severity. ``Severity.NOTE`` for
+    #: "not computable here" observations, which must never pass silently.
+    severity: Severity | None = None
 
 
 @dataclass(frozen=True)
