@@ -1,0 +1,7 @@
+"""``python -m ruleguard``."""
+
+import sys
+
+from ruleguard.cli import main
+
+sys.exit(main())

@@ -1,0 +1,288 @@
+"""One check run: load -> models -> analysis -> rules -> Report.
+
+The only function with a side effect here is the optional cache (a folder
+under the manifest's folder, never an input file). Everything else is a
+composition of the pure stages.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from ruleguard import __version__
+from ruleguard.errors import LoopNotAnalysable
+from ruleguard.location import Location
+from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
+
+#: Progress callback: (loops done, loops in all, name of the loop now).
+Progress = Callable[[int, int, str], None]
+
+
+@dataclass(frozen=True)
+class CheckOptions:
+    """What `ruleguard check` was asked to do."""
+
+    only: tuple[str, ...] = ()
+    skip: tuple[str, ...] = ()
+    fail_at: Severity = Severity.ERROR
+    today: _dt.date | None = None
+    changed_files: tuple[str, ...] = ()
+    cwd: str | None = None
+    use_cache: bool = False
+
+
+@dataclass(frozen=True, eq=False)
+class AnalysedLoop:
+    """A loop after models and analysis, before rules."""
+
+    context: LoopContext
+    result: object  # ruleguard.report.model.LoopResult
+
+
+@dataclass
+class RunStatistics:
+    """Counters of one run (for tests and benchmarks, not for reports)."""
+
+    analysed_loops: int = 0
+    cached_loops: int = 0
+    evaluations: int = 0
+    extra: dict = field(default_factory=dict)
+
+
+def check_project(
+    manifest: str | Path,
+    options: CheckOptions | None = None,
+    *,
+    progress: Progress | None = None,
+    statistics: RunStatistics | None = None,
+):
+    """Check every (selected) loop of the project at ``manifest``; return the Report."""
+    from ruleguard.load.project import load_project
+    from ruleguard.load.rulesets import load_ruleset
+
+    options = options or CheckOptions()
+    project = load_project(Path(manifest))
+    ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+    return check_loaded(project, ruleset, options, progress=progress, statistics=statistics)
+
+
+def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, statistics=None):
+    """The rest of :func:`check_project`, from a loaded project and ruleset."""
+    from ruleguard.report.model import Report, RuleInfo
+    from ruleguard.rules.catalog import RULES
+    from ruleguard.rules.engine import evaluate
+
+    stats = statistics if statistics is not None else RunStatistics()
+    selected = _selected_loops(project, options)
+    specs = [spec for spec in project.loops if spec.name in selected]
+
+    cache = None
+    if options.use_cache:
+        from ruleguard.cache import LoopCache
+
+        cache = LoopCache(project.root, enabled=True)
+
+    today = options.today or _dt.datetime.now(_dt.timezone.utc).date()
+    cache_options = {
+        "only": list(options.only),
+        "skip": list(options.skip),
+        "today": today.isoformat(),
+    }
+    ruleset_print = _ruleset_fingerprint(ruleset)
+
+    loop_results: dict[str, object] = {}
+    cached_findings: dict[str, tuple[Finding, ...]] = {}
+    contexts: list[LoopContext] = []
+    keys: dict[str, str] = {}
+    for i, spec in enumerate(specs):
+        if progress is not None:
+            progress(i, len(specs), spec.name)
+        if cache is not None:
+            key = cache.key_for(project, spec.name, ruleset_print, cache_options)
+            keys[spec.name] = key
+            hit = cache.get(key)
+            if hit is not None:
+                loop_results[spec.name], cached_findings[spec.name] = hit
+                stats.cached_loops += 1
+                continue
+        analysed = analyse_loop(project, spec)
+        stats.analysed_loops += 1
+        stats.evaluations += len(analysed.context.evaluations)
+        loop_results[spec.name] = analysed.result
+        contexts.append(analysed.context)
+    if progress is not None:
+        progress(len(specs), len(specs), "")
+
+    fresh = evaluate(
+        contexts,
+        ruleset,
+        only=options.only,
+        skip=options.skip,
+        today=today,
+        cached=cached_findings,
+    )
+    if cache is not None:
+        by_loop: dict[str, list[Finding]] = {c.spec.name: [] for c in contexts}
+        for f in fresh:
+            if f.loop in by_loop:
+                by_loop[f.loop].append(f)
+        for name, found in by_loop.items():
+            cache.put(keys[name], loop_results[name], tuple(found))
+        stats.extra["cache_hits"] = cache.hits
+        stats.extra["cache_misses"] = cache.misses
+
+    findings = _ordered_findings(specs, fresh, cached_findings)
+    rules = tuple(
+        RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
+        for r in RULES.values()
+    )
+    return Report(
+        tool_version=__version__,
+        project_name=project.name,
+        manifest_file=project.manifest_file,
+        root=project.root,
+        loops=tuple(loop_results[s.name] for s in specs),
+        findings=findings,
+        rules=rules,
+        ruleset_name=getattr(ruleset, "name", ""),
+        texts=dict(project.texts),
+        fail_at=options.fail_at,
+    )
+
+
+def _ordered_findings(specs, fresh: Sequence[Finding], cached: dict[str, tuple[Finding, ...]]):
+    """Findings in loop order (cached loops in their place), project-wide ones last."""
+    order = {s.name: i for i, s in enumerate(specs)}
+    all_findings = list(fresh)
+    for found in cached.values():
+        all_findings.extend(found)
+    keyed = [
+        (order.get(f.loop, len(order)) if f.loop is not None else len(order), i, f)
+        for i, f in enumerate(all_findings)
+    ]
+    keyed.sort(key=lambda t: (t[0], t[1]))
+    return tuple(f for _, _, f in keyed)
+
+
+def _selected_loops(project, options: CheckOptions) -> set[str]:
+    names = {spec.name for spec in project.loops}
+    if not options.changed_files:
+        return names
+    from ruleguard.selection import loops_for_files
+
+    return set(loops_for_files(project, list(options.changed_files), options.cwd)) & names
+
+
+def _ruleset_fingerprint(ruleset) -> str:
+    fp = getattr(ruleset, "fingerprint", None)
+    if callable(fp):
+        return fp()
+    if isinstance(fp, str):
+        return fp
+    return repr(ruleset)
+
+
+def analyse_loop(project, spec) -> AnalysedLoop:
+    """Build and analyse every variant of one loop (pure: no I/O)."""
+    from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.models.assemble import build_loop
+    from ruleguard.models.families import loop_variants
+    from ruleguard.report.model import LoopResult, VariantResult
+
+    domain = "discrete" if spec.sample_rate_hz else "continuous"
+    variants = loop_variants(project, spec)
+    evaluations: list[Evaluation] = []
+    inner_evaluations: list[Evaluation] = []
+    reason: str | None = None
+    reason_rule: str | None = None
+    reason_location: Location | None = None
+    try:
+        for variant in variants:
+            model = build_loop(project, spec, variant)
+            inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse_open_loop)
+            if inner_analysis is not None:
+                inner_evaluations.append(Evaluation(variant, model.inner, inner_analysis))
+            if inner_reason is not None:
+                reason, reason_rule = inner_reason, "stability.closed-loop"
+                reason_location = spec.field_locations.get("inner", spec.location)
+                evaluations = []
+                break
+            evaluations.append(Evaluation(variant, model, analyse_open_loop(model.open_loop)))
+    except LoopNotAnalysable as exc:
+        evaluations = []
+        reason, reason_rule, reason_location = exc.reason, exc.rule, exc.location
+
+    inner_context = None
+    if evaluations:
+        first = evaluations[0].model
+        notes: list[str] = list(first.notes)
+        for ev in evaluations:
+            for note in ev.analysis.notes:
+                text = note if ev.variant.id == "nominal" else f"{ev.variant.id}: {note}"
+                if text not in notes:
+                    notes.append(text)
+        result = LoopResult(
+            name=spec.name,
+            domain=domain,
+            sample_rate_hz=spec.sample_rate_hz,
+            analysed=True,
+            discretization=first.discretization if domain == "discrete" else None,
+            total_delay_s=first.total_delay_s,
+            notes=tuple(notes),
+            variants=tuple(
+                VariantResult(ev.variant.id, dict(ev.variant.parameters), ev.analysis)
+                for ev in evaluations
+            ),
+            tags=tuple(spec.tags),
+        )
+        if inner_evaluations:
+            inner_spec = next(s for s in project.loops if s.name == spec.inner)
+            inner_context = LoopContext(inner_spec, project, tuple(inner_evaluations))
+    else:
+        result = LoopResult(
+            name=spec.name,
+            domain=domain,
+            sample_rate_hz=spec.sample_rate_hz,
+            analysed=False,
+            discretization=None,
+            total_delay_s=None,
+            notes=(reason,) if reason else (),
+            variants=(),
+            not_analysed_reason=reason,
+            tags=tuple(spec.tags),
+        )
+    extras = {}
+    if reason is not None:
+        extras = {"not_analysed_rule": reason_rule, "not_analysed_location": reason_location}
+    context = LoopContext(
+        spec=spec,
+        project=project,
+        evaluations=tuple(evaluations),
+        not_analysed_reason=reason,
+        inner=inner_context,
+        extras=extras,
+    )
+    return AnalysedLoop(context, result)
+
+
+def _inner_loop_problem(model, variant, analyse):
+    """Why the inner loops of a cascade make the outer loop unusable (or None),
+    and the analysis of the direct inner loop (None without one)."""
+    inner = model.inner
+    direct = None
+    while inner is not None:
+        analysis = analyse(inner.open_loop)
+        if direct is None:
+            direct = analysis
+        if not analysis.stability.stable:
+            which = "" if variant.id == "nominal" else f" in variant {variant.id}"
+            reason = (
+                f"inner loop {inner.name} is not closed-loop stable{which}; "
+                f"the outer loop {model.name} was not analysed"
+            )
+            return reason, direct
+        inner = inner.inner
+    return None, direct
