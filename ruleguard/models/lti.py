@@ -267,8 +267,8 @@ class StateSpace:
         # Gain from the response at a probe point away from all roots.
         scale = 1.0 + float(np.max(np.abs(np.concatenate([poles, zeros])), initial=1.0))
         probe = complex(0.37 * scale, 1.13 * scale)
-        h = self.evaluate(probe)
-        shape = ZPK(zeros, poles, 1.0).evaluate(probe)
+        h = complex(self.evaluate(probe).reshape(-1)[0]) * np.exp(probe * self.delay_s)
+        shape = complex(ZPK(zeros, poles, 1.0).evaluate(probe).reshape(-1)[0])
         if h == 0 or shape == 0:
             return ZPK([], poles, 0.0, self.delay_s)
         gain = (h / shape).real
