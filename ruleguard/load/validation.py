@@ -1,0 +1,297 @@
+"""Schema validation of input documents, with one clear, located message.
+
+:func:`validate` checks a :class:`~ruleguard.load.sources.Document` (or a
+part of it) against a shipped JSON Schema (:mod:`ruleguard.load.schemas`)
+and raises a single :class:`~ruleguard.errors.InputError`: the most relevant
+error (``jsonschema.exceptions.best_match``, which prefers errors that are
+not inside an alternative and descends into the alternative that fits
+best), at the file, line and column of the offending key, naming what was
+expected and, for a misspelled key or value, the closest allowed one
+(``difflib``).
+
+Before the schema, every number is checked to be finite: TOML allows ``nan``
+and ``inf`` literals, and no input of ruleguard has a use for them.
+
+Schemas may carry ``"x-expected"``: a short description of the allowed
+value, used in messages instead of the raw keyword.
+
+``jsonschema`` costs about 0.3 s to import (ARCHITECTURE.md); it is imported
+on the first validation only, and each compiled validator is cached.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+from collections.abc import Callable, Iterable
+from typing import Any
+
+from ruleguard.errors import InputError
+from ruleguard.load.schemas import load_schema
+from ruleguard.load.sources import Document, KeyPath, format_key
+from ruleguard.location import Location
+
+_VALIDATORS: dict[str, Any] = {}
+
+
+def did_you_mean(word: str, choices: Iterable[str]) -> str | None:
+    """The closest of ``choices`` to ``word`` (difflib ratio >= 0.6), or None."""
+    options = [c for c in choices if isinstance(c, str)]
+    hits = difflib.get_close_matches(str(word), options, n=1, cutoff=0.6)
+    if not hits:
+        lowered = {c.lower(): c for c in options}
+        if str(word).lower() in lowered:
+            return lowered[str(word).lower()]
+        return None
+    return hits[0]
+
+
+def suggestion(word: str, choices: Iterable[str]) -> str:
+    """``"; did you mean 'x'?"`` or ``""``."""
+    hit = did_you_mean(word, choices)
+    return f"; did you mean '{hit}'?" if hit else ""
+
+
+def type_name(value: Any) -> str:
+    """The JSON-Schema-ish name of a Python value from tomllib/json."""
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "boolean"
+    if isinstance(value, int):
+        return "integer"
+    if isinstance(value, float):
+        return "number"
+    if isinstance(value, str):
+        return "string"
+    if isinstance(value, list):
+        return "array"
+    if isinstance(value, dict):
+        return "table"
+    return type(value).__name__  # dates and times from TOML
+
+
+def show_value(value: Any, limit: int = 40) -> str:
+    """A short rendering of a value for messages."""
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, list):
+        return f"an array of {len(value)} item{'s' if len(value) != 1 else ''}"
+    text = repr(value) if isinstance(value, str) else str(value)
+    if isinstance(value, bool):
+        text = "true" if value else "false"
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def check_finite(document: Document, data: Any = None, base: KeyPath = ()) -> None:
+    """Raise at the first NaN or infinite number in ``data`` (default: the document)."""
+    stack: list[tuple[KeyPath, Any]] = [(base, document.data if data is None else data)]
+    while stack:
+        path, node = stack.pop()
+        if isinstance(node, float) and not math.isfinite(node):
+            raise document.error(path, f"{node} is not a finite number; finite numbers only")
+        if isinstance(node, dict):
+            stack.extend((path + (k,), v) for k, v in reversed(list(node.items())))
+        elif isinstance(node, list):
+            stack.extend((path + (i,), v) for i, v in reversed(list(enumerate(node))))
+
+
+def _validator(schema_name: str) -> Any:
+    validator = _VALIDATORS.get(schema_name)
+    if validator is None:
+        from jsonschema import Draft202012Validator
+
+        validator = Draft202012Validator(load_schema(schema_name))
+        _VALIDATORS[schema_name] = validator
+    return validator
+
+
+def validate(
+    document: Document,
+    schema_name: str,
+    *,
+    path: KeyPath = (),
+    instance: Any = None,
+    locate: Callable[[KeyPath], Location] | None = None,
+) -> None:
+    """Check ``document`` (or the value at ``path``) against schema ``schema_name``.
+
+    Parameters
+    ----------
+    document:
+        The parsed file.
+    schema_name:
+        ``manifest``, ``plants``, ``controller``, ``ruleset``, ...
+    path:
+        Key path of the validated value inside the document (default: all).
+    instance:
+        Validate this value instead of the one at ``path`` (for example a
+        controller table after ``map`` renamed its keys); error paths are
+        then relative to it and mapped to the file by ``locate``.
+    locate:
+        Maps an error's key path (``path`` + path inside the instance) to a
+        :class:`Location`; default: ``document.locate``.
+
+    Raises
+    ------
+    InputError
+        One located message for the most relevant problem.
+    """
+    value = document.get(path) if instance is None else instance
+    if instance is None:
+        check_finite(document, value, tuple(path))
+    errors = list(_validator(schema_name).iter_errors(value))
+    if not errors:
+        return
+    from jsonschema.exceptions import best_match
+
+    best = best_match(errors)
+    locator = locate or document.locate
+    raise _translate(best, tuple(path), locator)
+
+
+# --------------------------------------------------------------------------- messages
+
+
+def _where(path: KeyPath) -> str:
+    return f"'{format_key(path)}'" if path else "the top level"
+
+
+def _expected(schema: Any) -> str | None:
+    if isinstance(schema, dict):
+        text = schema.get("x-expected") or schema.get("description")
+        if isinstance(text, str):
+            return text
+    return None
+
+
+def _schema_type_text(types: Any) -> str:
+    names = types if isinstance(types, list) else [types]
+    words = {"object": "table", "array": "array", "string": "string", "number": "number",
+             "integer": "integer", "boolean": "boolean (true/false)", "null": "null"}
+    return " or ".join(words.get(n, n) for n in names)
+
+
+def _allowed_keys(schema: dict) -> list[str]:
+    return sorted(schema.get("properties", {}))
+
+
+def _translate(
+    error: Any,
+    base: KeyPath,
+    locator: Callable[[KeyPath], Location],
+) -> InputError:
+    rel = tuple(error.absolute_path)
+    path = base + rel
+    kind = error.validator
+    instance = error.instance
+    schema = error.schema if isinstance(error.schema, dict) else {}
+    expected = _expected(schema)
+
+    if kind == "additionalProperties" and isinstance(instance, dict):
+        allowed = set(schema.get("properties", {}))
+        patterns = schema.get("patternProperties", {})
+        extras = [
+            k for k in instance
+            if k not in allowed and not any(re.search(p, k) for p in patterns)
+        ]
+        # the first unknown key in the file
+        extras.sort(key=lambda k: _order(locator(path + (k,))))
+        key = extras[0] if extras else "?"
+        hint = suggestion(key, allowed)
+        if not hint and allowed:
+            hint = f"; allowed keys here: {', '.join(sorted(allowed))}"
+        return InputError.at(
+            locator(path + (key,)), f"unknown key '{key}' in {_where(path)}{hint}"
+        )
+    if kind == "required" and isinstance(instance, dict):
+        missing = [k for k in error.validator_value if k not in instance]
+        key = missing[0] if missing else "?"
+        hint = ""
+        near = did_you_mean(key, [k for k in instance if isinstance(k, str)])
+        if near:
+            hint = f" (found '{near}': a misspelling?)"
+        what = f"; expected {expected}" if expected else ""
+        return InputError.at(
+            locator(path), f"missing required key '{key}' in {_where(path)}{hint}{what}"
+        )
+    if kind == "type":
+        want = expected or _schema_type_text(error.validator_value)
+        return InputError.at(
+            locator(path),
+            f"expected {want} at {_where(path)}, found {type_name(instance)} "
+            f"{show_value(instance)}",
+        )
+    if kind == "enum":
+        options = [o for o in error.validator_value]
+        listed = ", ".join(repr(o) if isinstance(o, str) else str(o) for o in options)
+        hint = suggestion(instance, [o for o in options if isinstance(o, str)]) if isinstance(
+            instance, str) else ""
+        return InputError.at(
+            locator(path),
+            f"{show_value(instance)} is not allowed at {_where(path)}; expected one of "
+            f"{listed}{hint}",
+        )
+    if kind == "const":
+        return InputError.at(
+            locator(path),
+            f"expected {show_value(error.validator_value)} at {_where(path)}, found "
+            f"{show_value(instance)}",
+        )
+    bounds = {
+        "minimum": ">=", "exclusiveMinimum": ">", "maximum": "<=", "exclusiveMaximum": "<",
+    }
+    if kind in bounds:
+        what = f" ({expected})" if expected else ""
+        return InputError.at(
+            locator(path),
+            f"{_where(path)} must be {bounds[kind]} {error.validator_value}{what}, found "
+            f"{show_value(instance)}",
+        )
+    if kind in ("minItems", "maxItems"):
+        word = "at least" if kind == "minItems" else "at most"
+        n = error.validator_value
+        return InputError.at(
+            locator(path),
+            f"{_where(path)} needs {word} {n} item{'s' if n != 1 else ''}, found "
+            f"{len(instance) if isinstance(instance, list) else '?'}",
+        )
+    if kind in ("minProperties", "maxProperties"):
+        word = "at least" if kind == "minProperties" else "at most"
+        return InputError.at(
+            locator(path), f"{_where(path)} needs {word} {error.validator_value} key(s)"
+        )
+    if kind in ("minLength", "maxLength"):
+        word = "at least" if kind == "minLength" else "at most"
+        return InputError.at(
+            locator(path),
+            f"{_where(path)} must be {word} {error.validator_value} characters long",
+        )
+    if kind == "pattern":
+        want = expected or f"text matching {error.validator_value}"
+        return InputError.at(
+            locator(path), f"{show_value(instance)} at {_where(path)} is not {want}"
+        )
+    if kind == "propertyNames":
+        return InputError.at(locator(path), f"bad key name in {_where(path)}: {error.message}")
+    if kind in ("oneOf", "anyOf", "not", "if", "then"):
+        want = expected or "a value of another form"
+        hint = ""
+        if isinstance(instance, str) and isinstance(error.validator_value, list):
+            words: list[str] = []
+            for option in error.validator_value:
+                if isinstance(option, dict):
+                    if isinstance(option.get("const"), str):
+                        words.append(option["const"])
+                    words.extend(w for w in option.get("enum", []) if isinstance(w, str))
+            hint = suggestion(instance, words)
+        return InputError.at(
+            locator(path),
+            f"{show_value(instance)} at {_where(path)} does not fit; expected {want}{hint}",
+        )
+    return InputError.at(locator(path), f"{_where(path)}: {error.message}")
+
+
+def _order(location: Location) -> tuple[int, int]:
+    return (location.line or 0, location.column or 0)
