@@ -1,22 +1,41 @@
-"""The description of one rule: a row of the rules table (:mod:`ruleguard.rules.catalog`)."""
+"""The description of one rule (a row of the rules table) and of a ruleset.
+
+:class:`RuleSpec` and :class:`Parameter` describe the catalog
+(:mod:`ruleguard.rules.catalog`). :class:`Ruleset` and its parts are what
+:func:`ruleguard.load.rulesets.load_ruleset` produces from a ruleset file and
+what :func:`ruleguard.rules.engine.evaluate` applies: every setting keeps the
+:class:`~ruleguard.location.Location` it was written at, so a finding can name
+the ruleset line of the threshold it was judged against.
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+import datetime
+from collections.abc import Iterator, Mapping
+from dataclasses import dataclass, field
 from typing import Any
 
+from ruleguard.location import Location
 from ruleguard.rules.base import RuleFunction, Severity
 
 
 @dataclass(frozen=True)
 class Parameter:
-    """A rule parameter. ``unit`` is also the suffix of its name (``min_deg``)."""
+    """A rule parameter. ``unit`` is also the suffix of its name (``min_deg``).
+
+    ``default`` ``None`` means "not configured": the rule does not check that
+    limit unless a ruleset sets it. ``minimum``/``maximum`` bound numeric
+    values (inclusive); ``choices`` lists the allowed strings.
+    """
 
     name: str
-    type: str  # "number" | "integer" | "boolean" | "string" | "points"
+    type: str  # "number" | "integer" | "boolean" | "string" | "points" | "strings"
     unit: str | None
     default: Any
     description: str
+    minimum: float | None = None
+    maximum: float | None = None
+    choices: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -25,6 +44,9 @@ class RuleSpec:
 
     ``family`` is the id prefix before the first dot. ``always_on`` rules
     (``stability.closed-loop``) cannot be set to ``off``, only waived.
+    ``scope`` is ``"loop"`` for rules evaluated on each loop, ``"ruleset"``
+    for the findings the engine itself raises about the ruleset (expired or
+    unused waivers); their ``function`` is never called with a loop.
     """
 
     id: str
@@ -35,6 +57,7 @@ class RuleSpec:
     parameters: tuple[Parameter, ...]
     function: RuleFunction
     always_on: bool = False
+    scope: str = "loop"
 
     @property
     def family(self) -> str:
@@ -42,3 +65,122 @@ class RuleSpec:
 
     def defaults(self) -> dict[str, Any]:
         return {p.name: p.default for p in self.parameters}
+
+    def parameter(self, name: str) -> Parameter | None:
+        for p in self.parameters:
+            if p.name == name:
+                return p
+        return None
+
+
+class ParameterValues(Mapping[str, Any]):
+    """The parameters a rule runs with: defaults merged with ruleset settings.
+
+    A read-only mapping ``name -> value`` that also knows where each value
+    was set (:meth:`location_of`), so a rule can name the ruleset line of the
+    threshold it applied. Values left at the catalog default have no location.
+    """
+
+    __slots__ = ("_values", "_locations")
+
+    def __init__(
+        self, values: Mapping[str, Any], locations: Mapping[str, Location] | None = None
+    ) -> None:
+        self._values = dict(values)
+        self._locations = dict(locations or {})
+
+    def __getitem__(self, name: str) -> Any:
+        return self._values[name]
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._values)
+
+    def __len__(self) -> int:
+        return len(self._values)
+
+    def __repr__(self) -> str:
+        return f"ParameterValues({self._values!r})"
+
+    def location_of(self, name: str) -> Location | None:
+        """Where ``name`` was set (``None``: the catalog default)."""
+        return self._locations.get(name)
+
+    @property
+    def locations(self) -> Mapping[str, Location]:
+        return dict(self._locations)
+
+
+def threshold_location(params: Mapping[str, Any], name: str) -> Location | None:
+    """The ruleset location of parameter ``name`` when ``params`` carries it."""
+    getter = getattr(params, "location_of", None)
+    return getter(name) if getter is not None else None
+
+
+@dataclass(frozen=True)
+class RuleSetting:
+    """What one ruleset table says about one rule (``[rules."margin.phase"]``).
+
+    ``parameters`` holds only the keys written there; ``locations`` maps each
+    of them (and ``"severity"`` when set) to where it was written.
+    """
+
+    rule: str
+    severity: Severity | None
+    parameters: Mapping[str, Any]
+    locations: Mapping[str, Location]
+    location: Location
+
+
+@dataclass(frozen=True)
+class Override:
+    """One ``[[overrides]]`` item: settings for the loops it matches.
+
+    A loop matches when its name matches one of ``loops`` (fnmatch globs) or
+    one of its tags is in ``tags``; an item with neither matches every loop.
+    ``crossover_hz`` (``[min, max]``, either end ``None``) further requires
+    the nominal variant's gain crossover to lie in ``[min, max)`` (scheduling
+    by mode frequency).
+    """
+
+    loops: tuple[str, ...]
+    tags: tuple[str, ...]
+    rules: Mapping[str, RuleSetting]
+    location: Location
+    crossover_hz: tuple[float | None, float | None] | None = None
+    index: int = 0
+
+
+@dataclass(frozen=True)
+class Waiver:
+    """One ``[[waivers]]`` item: findings of ``rule`` on matching loops are waived.
+
+    It applies through ``expires`` (that day included, UTC); after that it
+    stops applying and the engine reports it (rule ``waiver.expired``).
+    """
+
+    rule: str
+    loops: tuple[str, ...]
+    reason: str
+    expires: datetime.date
+    location: Location
+    index: int = 0
+
+
+@dataclass(frozen=True)
+class Ruleset:
+    """A loaded ruleset with its ``extends`` chain resolved.
+
+    ``rules`` holds the merged per-rule settings (later files win, key by
+    key, each value keeping the location where it was last set);
+    ``overrides`` and ``waivers`` are those of the whole chain, base first.
+    ``files`` lists the chain's file labels, base first (built-in files as
+    ``"<builtin>/NAME.toml"``).
+    """
+
+    name: str
+    file: str
+    rules: Mapping[str, RuleSetting] = field(default_factory=dict)
+    overrides: tuple[Override, ...] = ()
+    waivers: tuple[Waiver, ...] = ()
+    files: tuple[str, ...] = ()
+    location: Location = Location("")
