@@ -1,0 +1,677 @@
+"""Sampled-data models: controller discretization, exact ZOH plants, hold factors.
+
+Controller and filter blocks designed in the s-plane are mapped to the
+z-plane by the substitution the firmware's difference equations implement
+(:func:`discretize_block`). A plant with its sensor and transport delay,
+seen through a zero-order hold and a sampler, is replaced by its exact
+zero-order-hold equivalent (:func:`zoh_equivalent`), computed from the matrix
+exponential of a state-space realization, with a fractional delay handled
+exactly by state augmentation (the modified z-transform). Blocks known only
+through their frequency response use :class:`HoldFactor` and
+:class:`DelayFactor`.
+
+Every mapping works on the factored form (zeros, poles, gain): no polynomial
+is ever multiplied out, so high orders and widely spread roots keep their
+accuracy (METHODS.md "Representation").
+
+References
+----------
+.. [FPW] G. F. Franklin, J. D. Powell, M. L. Workman, *Digital Control of
+   Dynamic Systems*, 3rd ed., Addison-Wesley, 1998 (ch. 4 pole-zero mapping
+   of the substitution rules, ch. 6 ZOH equivalents and delays).
+.. [AW] K. J. Astrom, B. Wittenmark, *Computer-Controlled Systems: Theory and
+   Design*, 3rd ed., Prentice Hall, 1997 (section 2.3 sampling of systems
+   with time delay, ch. 8 approximating continuous-time controllers).
+.. [VL] C. F. Van Loan, "Computing integrals involving the matrix
+   exponential", IEEE Trans. Automatic Control 23(3), 1978.
+.. [EV] A. Emami-Naeini, P. Van Dooren, "Computation of zeros of linear
+   multivariable systems", Automatica 18(4), 1982.
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ruleguard.errors import NumericalWarning
+from ruleguard.models.lti import ZPK, StateSpace, zpk_to_state_space
+
+#: Methods accepted by :func:`discretize_block`.
+DISCRETIZATION_METHODS = ("tustin", "tustin_prewarp", "backward_euler", "forward_euler")
+
+#: A delay whose fractional part (in samples) lies within this distance of an
+#: integer is taken as that integer: it only absorbs the floating-point noise
+#: of ``delay_s / sample_time_s`` (e.g. ``0.003 / 0.001 = 2.9999999999999996``).
+#: At the Nyquist frequency it is a phase of at most ``pi * 1e-9`` rad.
+DELAY_SNAP_SAMPLES = 1e-9
+
+#: Generalized eigenvalues of the discrete system pencil with a modulus above
+#: ``ZERO_INFINITY_RATIO * (1 + max |pole|)`` are taken as zeros at infinity.
+#: Dropping a finite zero that large changes the response on the unit circle
+#: by at most about ``2 / ZERO_INFINITY_RATIO`` relative (the gain is refitted).
+ZERO_INFINITY_RATIO = 1e10
+
+
+# --------------------------------------------------------------------------
+# Substitution rules (Tustin, prewarped Tustin, backward and forward Euler)
+# --------------------------------------------------------------------------
+def tustin_constant(sample_time_s: float, prewarp_rad_s: float | None = None) -> float:
+    """The constant ``c`` of the bilinear substitution ``s = c (z - 1)/(z + 1)``.
+
+    ``c = 2/h`` for plain Tustin; with prewarping at ``w0``,
+    ``c = w0 / tan(w0 h / 2)``, so that the discrete block at ``e^{j w0 h}``
+    equals the continuous block at ``j w0`` exactly.
+
+    Parameters
+    ----------
+    sample_time_s:
+        Sample period h (s).
+    prewarp_rad_s:
+        Prewarping frequency ``w0`` (rad/s), strictly between 0 and the
+        Nyquist frequency ``pi/h``; ``None`` for plain Tustin.
+
+    References
+    ----------
+    Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed.,
+    1998, section 6.3.2 (bilinear rule with prewarping).
+    """
+    h = _check_sample_time(sample_time_s)
+    if prewarp_rad_s is None:
+        return 2.0 / h
+    w0 = float(prewarp_rad_s)
+    if not (np.isfinite(w0) and 0.0 < w0 < math.pi / h):
+        raise ValueError(
+            f"prewarp frequency {w0} rad/s must lie strictly between 0 and the "
+            f"Nyquist frequency {math.pi / h} rad/s"
+        )
+    return w0 / math.tan(0.5 * w0 * h)
+
+
+def discretize_block(
+    block: ZPK,
+    method: str,
+    sample_time_s: float,
+    prewarp_rad_s: float | None = None,
+) -> ZPK:
+    """Map a continuous controller or filter block to the z-plane.
+
+    Each factor ``(s - q)`` of the block is substituted individually, so the
+    result is again in factored form. With a substitution
+    ``s = (alpha z + beta) / (gamma z + delta)`` a factor becomes
+
+    ``s - q = a_q (z - r_q) / (gamma z + delta)``
+
+    with a root ``r_q`` and a coefficient ``a_q``; the denominators
+    ``(gamma z + delta)`` of all factors cancel except for
+    ``(number of poles - number of zeros)`` of them, which become extra zeros
+    (a strictly proper block) or extra poles (an improper block). The gain is
+    matched exactly: ``K_d = K prod(a_zeros) / prod(a_poles)``.
+
+    * ``"tustin"``: ``s = c (z - 1)/(z + 1)``, ``c = 2/h``. Then
+      ``s - q = ((c - q) z - (c + q)) / (z + 1)``, so ``a_q = c - q``,
+      ``r_q = (c + q)/(c - q)``; excess poles give zeros at ``z = -1`` and an
+      improper block (an unfiltered derivative) gets poles at ``z = -1``. A
+      root at ``q = c`` maps to ``z = infinity``: its factor is the constant
+      ``-2c`` and it has no finite root.
+    * ``"tustin_prewarp"``: the same with ``c = w0 / tan(w0 h / 2)``
+      (:func:`tustin_constant`); ``prewarp_rad_s`` is required.
+    * ``"backward_euler"``: ``s = (z - 1)/(z h)``. Then
+      ``s - q = ((1 - q h)/h) (z - 1/(1 - q h)) / z``: ``a_q = (1 - q h)/h``,
+      ``r_q = 1/(1 - q h)``; excess poles give zeros at ``z = 0``, an improper
+      block gets poles at ``z = 0`` (so ``kd s`` becomes
+      ``kd (z - 1)/(h z)``, a causal difference). A root at ``q = 1/h`` has
+      the constant factor ``-1/h``.
+    * ``"forward_euler"``: ``s = (z - 1)/h``. Then
+      ``s - q = (z - (1 + q h))/h``: ``a_q = 1/h``, ``r_q = 1 + q h``; the
+      numbers of zeros and poles are kept, so an improper block stays
+      improper (non-causal) and the caller must say so.
+
+    Parameters
+    ----------
+    block:
+        Continuous block (``sample_time_s is None``) without transport delay.
+    method:
+        One of :data:`DISCRETIZATION_METHODS`.
+    sample_time_s:
+        Sample period h (s).
+    prewarp_rad_s:
+        Prewarping frequency (rad/s) for ``"tustin_prewarp"`` (required
+        there, rejected for the other methods). FORMATS.md section 3 says a
+        block without a prewarping frequency gets plain ``"tustin"``: the
+        caller chooses, so that the method reported is the method used.
+
+    Returns
+    -------
+    ZPK
+        The z-plane block, ``sample_time_s = h``.
+
+    Raises
+    ------
+    ValueError
+        Unknown method, a z-plane block, a block with transport delay, a
+        missing or misplaced prewarping frequency, or a prewarping frequency
+        at or above the Nyquist frequency.
+
+    References
+    ----------
+    Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed.,
+    1998, section 6.3 (numerical-integration equivalents: forward and
+    backward rectangular rules, bilinear rule, prewarping).
+    Astrom & Wittenmark, Computer-Controlled Systems, 3rd ed., 1997,
+    section 8.2 (approximations of continuous-time controllers).
+    """
+    if not isinstance(block, ZPK):
+        raise TypeError(f"block must be a ZPK, got {type(block).__name__}")
+    if block.is_discrete:
+        raise ValueError("discretize_block needs a continuous (s-plane) block")
+    if block.delay_s:
+        raise ValueError(
+            "a controller block with a transport delay cannot be discretized by substitution; "
+            "use zoh_equivalent for delayed plants"
+        )
+    h = _check_sample_time(sample_time_s)
+    if method not in DISCRETIZATION_METHODS:
+        raise ValueError(
+            f"unknown discretization method {method!r}; expected one of "
+            + ", ".join(DISCRETIZATION_METHODS)
+        )
+    if method == "tustin_prewarp":
+        if prewarp_rad_s is None:
+            raise ValueError(
+                "method 'tustin_prewarp' needs prewarp_rad_s (a block without a prewarping "
+                "frequency is discretized by plain 'tustin')"
+            )
+    elif prewarp_rad_s is not None:
+        raise ValueError(f"prewarp_rad_s is only used by 'tustin_prewarp', not by {method!r}")
+
+    if method in ("tustin", "tustin_prewarp"):
+        c = tustin_constant(h, prewarp_rad_s)
+
+        def factor(q: np.ndarray):
+            return c - q, c + q, -1.0  # a z + b = (c - q) z - (c + q); common root z = -1
+
+        def degenerate(q: np.ndarray) -> np.ndarray:
+            return -(c + q)
+
+        scale = c
+    elif method == "backward_euler":
+
+        def factor(q: np.ndarray):
+            return (1.0 - q * h) / h, -np.ones_like(q) / h, 0.0
+
+        def degenerate(q: np.ndarray) -> np.ndarray:
+            return -np.ones_like(q) / h
+
+        scale = 1.0 / h
+    else:  # forward_euler
+
+        def factor(q: np.ndarray):
+            return np.full_like(q, 1.0 / h), -(1.0 + q * h) / h, None
+
+        def degenerate(q: np.ndarray) -> np.ndarray:  # never used: a_q = 1/h != 0
+            return -(1.0 + q * h) / h
+
+        scale = 1.0 / h
+
+    zr, za, zconst, common = _map_roots(block.zeros, factor, degenerate, scale)
+    pr, pa, pconst, _ = _map_roots(block.poles, factor, degenerate, scale)
+    excess = block.poles.size - block.zeros.size
+    extra = np.zeros(0, complex)
+    if common is not None and excess:
+        extra = np.full(abs(excess), common, dtype=complex)
+    zeros = np.concatenate([zr, extra]) if excess > 0 else zr
+    poles = np.concatenate([pr, extra]) if excess < 0 else pr
+    gain = block.gain * _ratio_of_products(
+        np.concatenate([za, zconst]), np.concatenate([pa, pconst])
+    )
+    return ZPK(zeros, poles, gain, 0.0, h)
+
+
+def _map_roots(roots: np.ndarray, factor, degenerate, scale: float):
+    """Roots, coefficients and constant factors of ``(s - q)`` under a substitution."""
+    q = np.asarray(roots, dtype=complex)
+    if q.size == 0:
+        empty = np.zeros(0, complex)
+        _, _, common = factor(np.zeros(0, complex))
+        return empty, empty, empty, common
+    a, b, common = factor(q)
+    a = np.asarray(a, dtype=complex)
+    b = np.asarray(b, dtype=complex)
+    # a root at q = c (Tustin) or q = 1/h (backward Euler) goes to z = infinity
+    at_infinity = np.abs(a) <= 1e-14 * (scale + np.abs(q))
+    finite = ~at_infinity
+    mapped = -b[finite] / a[finite]
+    return mapped, a[finite], degenerate(q[at_infinity]), common
+
+
+def _ratio_of_products(num: np.ndarray, den: np.ndarray) -> float:
+    """``prod(num) / prod(den)`` for conjugate-symmetric factors, as a real number.
+
+    Factors are paired one numerator with one denominator so that high orders
+    neither overflow nor underflow.
+    """
+    num = np.asarray(num, dtype=complex)
+    den = np.asarray(den, dtype=complex)
+    out = complex(1.0)
+    for i in range(max(num.size, den.size)):
+        if i < num.size and i < den.size:
+            out *= num[i] / den[i]
+        elif i < num.size:
+            out *= num[i]
+        else:
+            out /= den[i]
+    if abs(out.imag) > 1e-8 * max(abs(out), 1e-300):
+        raise ValueError("roots are not conjugate-symmetric: the discretized gain is not real")
+    return float(out.real)
+
+
+def prewarp_shift(center_hz: float, sample_rate_hz: float) -> float:
+    """Where plain Tustin puts a feature designed at ``center_hz`` (Hz).
+
+    The bilinear substitution with ``c = 2/h`` maps the continuous frequency
+    ``w`` to the discrete frequency ``w_d = (2/h) atan(w h / 2)``: a notch
+    designed at ``f`` appears at ``f_d = (f_s/pi) atan(pi f / f_s)``, always
+    lower, and the shift grows quickly towards the Nyquist frequency.
+
+    Parameters
+    ----------
+    center_hz:
+        Design frequency of the feature (Hz), >= 0.
+    sample_rate_hz:
+        Sample rate f_s = 1/h (Hz), > 0.
+
+    Returns
+    -------
+    float
+        The frequency (Hz) where the discretized block shows the feature.
+
+    References
+    ----------
+    Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed.,
+    1998, section 6.3.2 (frequency warping of the bilinear rule).
+    """
+    f = float(center_hz)
+    fs = float(sample_rate_hz)
+    if not (np.isfinite(fs) and fs > 0.0):
+        raise ValueError(f"sample_rate_hz must be positive, got {fs}")
+    if not (np.isfinite(f) and f >= 0.0):
+        raise ValueError(f"center_hz must be finite and >= 0, got {f}")
+    return fs / math.pi * math.atan(math.pi * f / fs)
+
+
+# --------------------------------------------------------------------------
+# Exact zero-order-hold equivalent with transport delay
+# --------------------------------------------------------------------------
+@dataclass(frozen=True, eq=False)
+class DiscreteStateSpace:
+    """A discrete SISO realization ``x[k+1] = A x[k] + B u[k], y[k] = C x[k] + D u[k]``.
+
+    Produced by :func:`zoh_state_space`. Shapes: ``a`` n x n, ``b`` n x 1,
+    ``c`` 1 x n, ``d`` 1 x 1. The whole-sample delay is kept apart
+    (``delay_samples``: ``H(z) = z^-d (C (zI - A)^-1 B + D)``).
+    """
+
+    a: np.ndarray
+    b: np.ndarray
+    c: np.ndarray
+    d: np.ndarray
+    sample_time_s: float
+    delay_samples: int = 0
+
+    @property
+    def order(self) -> int:
+        return self.a.shape[0]
+
+    def evaluate(self, z) -> np.ndarray:
+        """Transfer function at complex points ``z`` (whole-sample delay included)."""
+        z = np.atleast_1d(np.asarray(z, dtype=complex))
+        n = self.order
+        out = np.empty(z.shape, dtype=complex)
+        eye = np.eye(n)
+        for i, zi in np.ndenumerate(z):
+            val = (self.c @ np.linalg.solve(zi * eye - self.a, self.b))[0, 0] if n else 0.0
+            out[i] = (val + self.d[0, 0]) * zi ** (-self.delay_samples)
+        return out
+
+    def response(self, w) -> np.ndarray:
+        """Frequency response at ``w`` rad/s (``z = exp(j w h)``)."""
+        return self.evaluate(np.exp(1j * np.asarray(w, dtype=float) * self.sample_time_s))
+
+    def pulse_response(self, samples: int) -> np.ndarray:
+        """Output samples ``y[0..samples-1]`` for the unit pulse ``u[0] = 1``."""
+        n = self.order
+        y = np.zeros(samples)
+        x = self.b[:, 0].copy() if n else np.zeros(0)
+        d = self.delay_samples
+        if d < samples:
+            y[d] = self.d[0, 0]
+        for k in range(d + 1, samples):
+            y[k] = float(self.c[0] @ x) if n else 0.0
+            x = self.a @ x
+        return y
+
+
+def split_delay(delay_s: float, sample_time_s: float) -> tuple[int, float]:
+    """Split a delay into whole samples ``d`` and a fraction ``f`` in ``[0, 1)``.
+
+    ``delay_s = (d + f) h``. A fraction within :data:`DELAY_SNAP_SAMPLES` of 0
+    or 1 is floating-point noise and is taken as 0 (with ``d`` adjusted).
+    """
+    h = _check_sample_time(sample_time_s)
+    tau = float(delay_s)
+    if not (np.isfinite(tau) and tau >= 0.0):
+        raise ValueError(f"delay must be finite and >= 0, got {tau}")
+    samples = tau / h
+    d = math.floor(samples)
+    f = samples - d
+    if f >= 1.0 - DELAY_SNAP_SAMPLES:
+        d, f = d + 1, 0.0
+    elif f <= DELAY_SNAP_SAMPLES:
+        f = 0.0
+    return int(d), float(f)
+
+
+def zoh_state_space(
+    block: ZPK | StateSpace, sample_time_s: float, delay_s: float = 0.0
+) -> DiscreteStateSpace:
+    """Exact discrete realization of hold -> block (with delay) -> sampler.
+
+    Let the total delay be ``tau = (d + f) h`` with whole samples ``d`` and a
+    fraction ``0 <= f < 1`` (:func:`split_delay`), ``tau' = f h``. With the
+    input held, ``u(t) = u[k]`` on ``[kh, (k+1)h)``, the state of
+    ``x' = A x + B u(t - tau)`` obeys ([AW] section 2.3)
+
+    ``x[k+1] = Phi x[k] + Gamma1 u[k-1-d] + Gamma0 u[k-d]``
+
+    ``Phi = e^{A h}``, ``Gamma0 = int_0^{h - tau'} e^{A s} ds B``,
+    ``Gamma1 = e^{A (h - tau')} int_0^{tau'} e^{A s} ds B``,
+
+    and ``y[k] = C x[k] + D u(kh - tau) = C x[k] + D u[k-1-d]`` when
+    ``f > 0`` (``D u[k-d]`` when ``f = 0``). The integrals come from one
+    block-matrix exponential each ([VL]):
+    ``expm([[A, B], [0, 0]] t) = [[e^{A t}, int_0^t e^{A s} ds B], [0, 1]]``.
+    For ``f > 0`` the state is augmented with ``u[k-1]``, which adds a pole
+    at ``z = 0``; the ``d`` whole samples are kept as ``delay_samples``.
+    Nothing is rounded and no rational approximation of the delay is used.
+
+    Parameters
+    ----------
+    block:
+        Continuous proper block (ZPK or StateSpace); its own ``delay_s`` is
+        part of the total delay.
+    sample_time_s:
+        Sample period h (s).
+    delay_s:
+        Further delay (s) in series (sensor, computation: FORMATS.md section 1).
+
+    References
+    ----------
+    Astrom & Wittenmark, Computer-Controlled Systems, 3rd ed., 1997,
+    section 2.3 (sampling a system with a time delay).
+    Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed.,
+    1998, section 4.3.4 (ZOH equivalent with fractional delay, modified
+    z-transform).
+    Van Loan, "Computing integrals involving the matrix exponential", IEEE
+    Trans. Automatic Control 23(3), 1978.
+    """
+    import scipy.linalg  # lazy
+
+    h = _check_sample_time(sample_time_s)
+    ss, own_delay = _as_state_space(block)
+    d, f = split_delay(own_delay + float(delay_s), h)
+    a, b, c, dd = ss.a, ss.b, ss.c, ss.d
+    n = a.shape[0]
+    m = np.zeros((n + 1, n + 1))
+    m[:n, :n] = a
+    m[:n, n:] = b
+    if f == 0.0:
+        e = scipy.linalg.expm(m * h)
+        return DiscreteStateSpace(e[:n, :n], e[:n, n:], c, dd, h, d)
+    t_frac = f * h
+    e_rest = scipy.linalg.expm(m * (h - t_frac))
+    e_frac = scipy.linalg.expm(m * t_frac)
+    phi_rest, gamma0 = e_rest[:n, :n], e_rest[:n, n:]
+    phi_frac, int_frac = e_frac[:n, :n], e_frac[:n, n:]
+    phi = phi_rest @ phi_frac
+    gamma1 = phi_rest @ int_frac
+    ad = np.zeros((n + 1, n + 1))
+    ad[:n, :n] = phi
+    ad[:n, n:] = gamma1
+    bd = np.zeros((n + 1, 1))
+    bd[:n] = gamma0
+    bd[n, 0] = 1.0
+    cd = np.hstack([c, dd])
+    return DiscreteStateSpace(ad, bd, cd, np.zeros((1, 1)), h, d)
+
+
+def zoh_equivalent(
+    block: ZPK | StateSpace, sample_time_s: float, delay_s: float = 0.0
+) -> ZPK:
+    """Exact zero-order-hold equivalent of a continuous block with transport delay.
+
+    The discrete realization of :func:`zoh_state_space` is put in factored
+    form:
+
+    * poles: ``exp(p h)`` for every continuous pole ``p`` (these are the
+      eigenvalues of ``Phi = e^{A h}``, taken from the continuous poles so
+      that repeated poles such as a double integrator stay exactly at
+      ``z = 1``), a pole at ``z = 0`` for a fractional delay, and ``d``
+      poles at ``z = 0`` for the whole samples;
+    * zeros: the finite generalized eigenvalues of the discrete system
+      pencil ``([[Phi, Gamma], [C, D]], [[I, 0], [0, 0]])`` ([EV]);
+    * gain: fitted (real, least squares) to the realization's response at
+      points on the unit circle away from every root.
+
+    The realization itself is a cascade of first- and second-order sections
+    (:func:`ruleguard.models.lti.zpk_to_state_space`), which keeps blocks of
+    order 50 accurate.
+
+    Parameters
+    ----------
+    block:
+        Continuous proper block (ZPK or StateSpace), delay included.
+    sample_time_s:
+        Sample period h (s).
+    delay_s:
+        Further delay in series (s): sensor, computation (``delay_samples * h``).
+
+    Returns
+    -------
+    ZPK
+        z-plane block with ``sample_time_s = h``.
+
+    Warns
+    -----
+    NumericalWarning
+        When the factored form does not reproduce the realization's response
+        to within 1e-6 relative at the fitting points.
+
+    References
+    ----------
+    Astrom & Wittenmark, Computer-Controlled Systems, 3rd ed., 1997,
+    sections 2.3 and 2.6 (poles and zeros of sampled systems).
+    Franklin, Powell & Workman, Digital Control of Dynamic Systems, 3rd ed.,
+    1998, section 4.3.
+    Emami-Naeini & Van Dooren, "Computation of zeros of linear multivariable
+    systems", Automatica 18(4), 1982.
+    """
+    h = _check_sample_time(sample_time_s)
+    dss = zoh_state_space(block, h, delay_s)
+    if isinstance(block, ZPK):
+        cont_poles = block.poles
+    else:
+        cont_poles = np.linalg.eigvals(block.a) if block.order else np.zeros(0, complex)
+    poles = np.exp(np.asarray(cont_poles, dtype=complex) * h)
+    augmented = dss.order - np.asarray(cont_poles).size
+    poles = np.concatenate([poles, np.zeros(augmented + dss.delay_samples, complex)])
+    zeros = discrete_zeros(dss)
+    gain = _fit_gain(dss, zeros, poles)
+    return ZPK(zeros, poles, gain, 0.0, h)
+
+
+def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
+    """Finite invariant zeros of a discrete realization (whole-sample delay excluded).
+
+    The zeros are the finite generalized eigenvalues of the Rosenbrock pencil
+    ``([[A, B], [C, D]], [[I, 0], [0, 0]])``; eigenvalues with modulus above
+    :data:`ZERO_INFINITY_RATIO` ``* (1 + max |eig A|)`` are at infinity. The
+    result is made exactly conjugate-symmetric.
+
+    References
+    ----------
+    Emami-Naeini & Van Dooren, "Computation of zeros of linear multivariable
+    systems", Automatica 18(4), 1982.
+    """
+    import scipy.linalg  # lazy
+
+    n = dss.order
+    if n == 0:
+        return np.zeros(0, complex)
+    pencil = np.block([[dss.a, dss.b], [dss.c, dss.d]])
+    e = np.zeros((n + 1, n + 1))
+    e[:n, :n] = np.eye(n)
+    alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
+    radius = 1.0 + float(np.max(np.abs(np.linalg.eigvals(dss.a)), initial=0.0))
+    finite = np.abs(alpha) < ZERO_INFINITY_RATIO * radius * np.abs(beta)
+    zeros = alpha[finite] / beta[finite]
+    return _conjugate_symmetric(zeros)
+
+
+def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
+    """Make nearly real roots real and pair the complex ones exactly."""
+    roots = np.asarray(roots, dtype=complex)
+    tol = 1e-9
+    scale = np.maximum(np.abs(roots), 1.0)
+    real = roots[np.abs(roots.imag) <= tol * scale].real.astype(complex)
+    upper = roots[roots.imag > tol * scale]
+    lower = roots[roots.imag < -tol * scale]
+    if upper.size != lower.size:
+        # unpaired rounding: keep them as they are (the gain fit reports it)
+        return roots
+    lower_sorted = lower[np.argsort(lower.real)]
+    upper_sorted = upper[np.argsort(upper.real)]
+    paired = 0.5 * (upper_sorted + np.conj(lower_sorted))
+    return np.concatenate([real, paired, np.conj(paired)])
+
+
+def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> float:
+    """Real gain matching ``dss`` by least squares at unit-circle points away from roots."""
+    roots = np.concatenate([zeros, poles])
+    candidates = np.exp(1j * np.linspace(0.05, math.pi - 0.05, 64))
+    if roots.size:
+        dist = np.min(np.abs(candidates[:, None] - roots[None, :]), axis=1)
+        probes = candidates[np.argsort(dist)[::-1][:12]]
+    else:
+        probes = candidates[:12]
+    target = dss.evaluate(probes)
+    with np.errstate(all="ignore"):
+        shape = ZPK(zeros, poles, 1.0, 0.0, dss.sample_time_s).evaluate(probes)
+    denom = float(np.sum(np.abs(shape) ** 2))
+    if not np.any(target) or denom == 0.0:
+        return 0.0
+    gain = float(np.real(np.sum(np.conj(shape) * target)) / denom)
+    resid = np.max(np.abs(gain * shape - target)) / max(np.max(np.abs(target)), 1e-300)
+    if not resid <= 1e-6:
+        warnings.warn(
+            f"zero-order-hold equivalent: the factored form reproduces the state-space "
+            f"response only to {resid:.1e} relative",
+            NumericalWarning,
+            stacklevel=3,
+        )
+    return gain
+
+
+def _as_state_space(block: ZPK | StateSpace) -> tuple[StateSpace, float]:
+    if isinstance(block, StateSpace):
+        return block, block.delay_s
+    if isinstance(block, ZPK):
+        if block.is_discrete:
+            raise ValueError("zoh_equivalent needs a continuous (s-plane) block")
+        if not block.is_proper:
+            raise ValueError("an improper block has no zero-order-hold equivalent")
+        return zpk_to_state_space(block), block.delay_s
+    raise TypeError(f"block must be a ZPK or StateSpace, got {type(block).__name__}")
+
+
+def _check_sample_time(sample_time_s: float) -> float:
+    h = float(sample_time_s)
+    if not (np.isfinite(h) and h > 0.0):
+        raise ValueError(f"sample_time_s must be positive and finite, got {sample_time_s}")
+    return h
+
+
+# --------------------------------------------------------------------------
+# Frequency-response factors for blocks without a factored form
+# --------------------------------------------------------------------------
+@dataclass(frozen=True, eq=False)
+class HoldFactor:
+    """The zero-order hold seen in the frequency domain, ``(1 - e^{-j w h})/(j w h)``.
+
+    Equal to ``e^{-j w h/2} sin(w h/2)/(w h/2)`` (1 at ``w = 0``): a phase lag
+    of ``w h / 2`` and a gain droop. Used in front of a measured plant in a
+    discrete loop (aliasing ignored, METHODS.md "Sampled-data loops").
+
+    References
+    ----------
+    Astrom & Wittenmark, Computer-Controlled Systems, 3rd ed., 1997,
+    section 7.7 (frequency response of the hold).
+    """
+
+    sample_time_s: float
+    unstable_poles: int = field(default=0, init=False)
+    integrators: int = field(default=0, init=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "sample_time_s", _check_sample_time(self.sample_time_s))
+
+    @property
+    def w_min(self) -> float:
+        return 0.0
+
+    @property
+    def w_max(self) -> float:
+        return math.inf
+
+    def response(self, w) -> np.ndarray:
+        x = np.asarray(w, dtype=float) * self.sample_time_s
+        # numpy's sinc(t) = sin(pi t)/(pi t): sin(x/2)/(x/2) = sinc(x/(2 pi))
+        return np.exp(-0.5j * x) * np.sinc(x / (2.0 * math.pi))
+
+    def grid(self) -> np.ndarray:
+        return np.zeros(0)
+
+
+@dataclass(frozen=True, eq=False)
+class DelayFactor:
+    """An exact transport delay ``e^{-j w tau}`` as a frequency-response factor.
+
+    For delays in series with a block known only by its frequency response
+    (a measured plant in a discrete loop).
+    """
+
+    delay_s: float
+    unstable_poles: int = field(default=0, init=False)
+    integrators: int = field(default=0, init=False)
+
+    def __post_init__(self) -> None:
+        tau = float(self.delay_s)
+        if not (np.isfinite(tau) and tau >= 0.0):
+            raise ValueError(f"delay_s must be finite and >= 0, got {self.delay_s}")
+        object.__setattr__(self, "delay_s", tau)
+
+    @property
+    def w_min(self) -> float:
+        return 0.0
+
+    @property
+    def w_max(self) -> float:
+        return math.inf
+
+    def response(self, w) -> np.ndarray:
+        return np.exp(-1j * np.asarray(w, dtype=float) * self.delay_s)
+
+    def grid(self) -> np.ndarray:
+        return np.zeros(0)
