@@ -8,7 +8,7 @@ H4a: check and replace freely.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Iterable, Mapping
 from typing import Any
 
 import numpy as np
@@ -29,15 +29,20 @@ def plant_location(ctx: LoopContext) -> Location | None:
     return None if entry is None else entry.location
 
 
-def related_locations(ctx: LoopContext, params: Mapping[str, Any]) -> tuple[Location, ...]:
-    """The plant entry, the sensor entry and the ruleset lines of the thresholds."""
+def related_locations(
+    ctx: LoopContext, params: Mapping[str, Any], names: Iterable[str] | None = None
+) -> tuple[Location, ...]:
+    """The plant entry, the sensor entry and the ruleset lines of the thresholds.
+
+    ``names`` limits the thresholds to those parameters (default: all of ``params``).
+    """
     out: list[Location] = []
     plants = getattr(ctx.project, "plants", None) or {}
     for name in (getattr(ctx.spec, "plant", None), getattr(ctx.spec, "sensor", None)):
         entry = plants.get(name) if name else None
         if entry is not None:
             out.append(entry.location)
-    for name in params or ():
+    for name in (params or ()) if names is None else names:
         loc = threshold_location(params, name)
         if loc is not None:
             out.append(loc)
