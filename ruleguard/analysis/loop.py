@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.location import Location
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import ZPK, MeasuredResponse
 
 
 @dataclass(frozen=True, eq=False)
@@ -40,6 +40,9 @@ class BlockModel:
         by name.
     location:
         The table the block comes from.
+    measured:
+        The measured response of a ``measured_response`` plant or sensor
+        (``continuous`` is ``None`` then).
     """
 
     role: str
@@ -50,6 +53,7 @@ class BlockModel:
     method: str | None
     characteristic_hz: dict = field(default_factory=dict)
     location: Location = Location("")
+    measured: MeasuredResponse | None = None
 
 
 @dataclass(frozen=True, eq=False)
