@@ -58,6 +58,10 @@ class Report:
     ruleset_name: str = ""
     texts: dict = field(default_factory=dict)  # file -> text, for source excerpts
     fail_at: Severity = Severity.ERROR
+    #: Ids of the rules evaluated (the ruleset's active rules after
+    #: ``--only``/``--skip``); ``None``: every rule of ``rules``. JUnit makes
+    #: one test case per loop and active rule.
+    active_rules: tuple[str, ...] | None = None
 
     @property
     def evaluations(self) -> int:
