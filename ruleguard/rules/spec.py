@@ -184,3 +184,19 @@ class Ruleset:
     waivers: tuple[Waiver, ...] = ()
     files: tuple[str, ...] = ()
     location: Location = Location("")
+
+    def severity_of(self, rule_id: str) -> Severity:
+        """The severity the ruleset gives ``rule_id`` before any override."""
+        from ruleguard.rules.catalog import RULES
+
+        setting = self.rules.get(rule_id)
+        if setting is not None and setting.severity is not None:
+            return setting.severity
+        rule = RULES.get(rule_id)
+        return rule.default_severity if rule is not None else Severity.ERROR
+
+    def fingerprint(self) -> str:
+        """A hash of everything the ruleset says (cache keys): same content, same hash."""
+        import hashlib
+
+        return hashlib.sha256(repr(self).encode("utf-8")).hexdigest()

@@ -1,0 +1,386 @@
+"""Ruleset x analysed loops -> findings.
+
+For each loop the engine works out the effective configuration of every rule
+(catalog defaults, then the ruleset's ``[rules."..."]`` tables, then every
+matching ``[[overrides]]`` item in order), runs the selected rules, stamps
+each :class:`~ruleguard.rules.base.Violation` with its severity and any
+waiver, and finally reports on the ruleset itself (expired and unused
+waivers). Everything is one lazy iterator (:func:`iter_findings`);
+:func:`evaluate` collects it. Nothing here prints or reads files.
+
+Order of findings: loops in the order given, rules by id within a loop, a
+rule's own order within a rule; the ruleset findings (``waiver.*``) last.
+"""
+
+from __future__ import annotations
+
+import datetime
+import fnmatch
+from collections.abc import Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass
+
+from ruleguard.errors import InputError
+from ruleguard.location import Location
+from ruleguard.rules.base import Finding, LoopContext, Severity, Violation
+from ruleguard.rules.catalog import RULES, UnknownRule, check_patterns, is_selected, matches
+from ruleguard.rules.spec import Override, ParameterValues, Ruleset, RuleSetting, Waiver
+
+CLOSED_LOOP = "stability.closed-loop"
+
+
+@dataclass(frozen=True)
+class EffectiveRule:
+    """How one rule runs on one loop: severity, parameters and where they were set.
+
+    ``location`` is the last ruleset table (rule table or override) that set
+    anything for this rule on this loop, ``None`` when all is default.
+    """
+
+    rule: str
+    severity: Severity
+    parameters: ParameterValues
+    location: Location | None
+
+
+def utc_today() -> datetime.date:
+    """Today's date in UTC (waivers apply through their expiry day, UTC)."""
+    return datetime.datetime.now(datetime.timezone.utc).date()
+
+
+def nominal_crossover_hz(ctx: LoopContext) -> float | None:
+    """Gain crossover of the nominal variant (the first evaluation), if any."""
+    if not ctx.evaluations:
+        return None
+    margins = getattr(ctx.evaluations[0].analysis, "margins", None)
+    return getattr(margins, "crossover_hz", None)
+
+
+def override_applies(
+    override: Override,
+    loop_name: str,
+    tags: Iterable[str] = (),
+    crossover_hz: float | None = None,
+) -> bool:
+    """Does ``override`` match a loop (name globs or tags, then crossover band)?"""
+    if override.loops or override.tags:
+        by_name = any(fnmatch.fnmatchcase(loop_name, glob) for glob in override.loops)
+        by_tag = bool(set(override.tags) & set(tags))
+        if not (by_name or by_tag):
+            return False
+    if override.crossover_hz is not None:
+        low, high = override.crossover_hz
+        if crossover_hz is None:
+            return False
+        if low is not None and crossover_hz < low:
+            return False
+        if high is not None and crossover_hz >= high:
+            return False
+    return True
+
+
+def waiver_applies(waiver: Waiver, rule_id: str, loop_name: str | None) -> bool:
+    """Does ``waiver`` cover a finding of ``rule_id`` on ``loop_name``?"""
+    if loop_name is None or not matches(rule_id, waiver.rule):
+        return False
+    return any(fnmatch.fnmatchcase(loop_name, glob) for glob in waiver.loops)
+
+
+def waiver_active(waiver: Waiver, today: datetime.date) -> bool:
+    """A waiver applies through its expiry day (included)."""
+    return today <= waiver.expires
+
+
+def _apply(
+    setting: RuleSetting,
+    severity: Severity,
+    values: dict,
+    locations: dict,
+) -> Severity:
+    if setting.severity is not None:
+        severity = setting.severity
+    for name, value in setting.parameters.items():
+        values[name] = value
+        loc = setting.locations.get(name)
+        if loc is not None:
+            locations[name] = loc
+        else:
+            locations.pop(name, None)
+    return severity
+
+
+def effective_rules(
+    ruleset: Ruleset,
+    loop_name: str | None = None,
+    tags: Iterable[str] = (),
+    crossover_hz: float | None = None,
+) -> dict[str, EffectiveRule]:
+    """The configuration of every rule for one loop (``loop_name=None``: no override)."""
+    tags = tuple(tags)
+    matching = (
+        [o for o in ruleset.overrides if override_applies(o, loop_name, tags, crossover_hz)]
+        if loop_name is not None
+        else []
+    )
+    result: dict[str, EffectiveRule] = {}
+    for rule_id, rule in RULES.items():
+        severity = rule.default_severity
+        values = rule.defaults()
+        locations: dict[str, Location] = {}
+        where: Location | None = None
+        base = ruleset.rules.get(rule_id)
+        if base is not None:
+            severity = _apply(base, severity, values, locations)
+            where = base.location
+        for override in matching:
+            setting = override.rules.get(rule_id)
+            if setting is not None:
+                severity = _apply(setting, severity, values, locations)
+                where = setting.location
+        if rule.always_on and severity is Severity.OFF:
+            severity = rule.default_severity
+        result[rule_id] = EffectiveRule(
+            rule_id, severity, ParameterValues(values, locations), where
+        )
+    return result
+
+
+def _lower(a: Severity, b: Severity | None) -> Severity:
+    if b is None:
+        return a
+    return a if a.rank <= b.rank else b
+
+
+def _with_ruleset_location(
+    related: tuple[Location, ...], effective: EffectiveRule, ruleset: Ruleset
+) -> tuple[Location, ...]:
+    files = set(ruleset.files) | {ruleset.file}
+    if effective.location is None or any(loc.file in files for loc in related):
+        return related
+    return (*related, effective.location)
+
+
+def _finding(
+    rule_id: str,
+    severity: Severity,
+    loop: str | None,
+    violation: Violation,
+    related: tuple[Location, ...],
+    waiver: Waiver | None,
+) -> Finding:
+    return Finding(
+        rule=rule_id,
+        severity=severity,
+        loop=loop,
+        variant=violation.variant,
+        message=violation.message,
+        measured=violation.measured,
+        limit=violation.limit,
+        unit=violation.unit,
+        frequency_hz=violation.frequency_hz,
+        location=violation.location,
+        related=related,
+        waived=waiver is not None,
+        waiver_reason=waiver.reason if waiver is not None else None,
+        key_path=violation.key_path,
+    )
+
+
+def _not_analysed_violation(ctx: LoopContext) -> Violation:
+    extras = ctx.extras or {}
+    location = extras.get("not_analysed_location") or ctx.spec.controller.location
+    controller = ctx.spec.controller
+    return Violation(
+        variant=None,
+        message=f"loop not analysed: {ctx.not_analysed_reason}",
+        measured=None,
+        limit=None,
+        unit=None,
+        frequency_hz=None,
+        location=location,
+        key_path=f"{controller.file}:{controller.path}#not-analysed",
+    )
+
+
+def _check_selection(only: Sequence[str], skip: Sequence[str]) -> None:
+    for option, patterns in (("--only", only), ("--skip", skip)):
+        try:
+            check_patterns(patterns)
+        except UnknownRule as exc:
+            raise InputError("<command line>", None, None, option, str(exc)) from None
+
+
+def iter_findings(
+    contexts: Iterable[LoopContext],
+    ruleset: Ruleset,
+    *,
+    only: Sequence[str] = (),
+    skip: Sequence[str] = (),
+    today: datetime.date | None = None,
+    cached: Mapping[str, Sequence[Finding]] | None = None,
+) -> Iterator[Finding]:
+    """Every finding, lazily, in the documented order (see :func:`evaluate`)."""
+    only, skip = tuple(only), tuple(skip)
+    _check_selection(only, skip)
+    if today is None:
+        today = utc_today()
+    elif isinstance(today, datetime.datetime):
+        today = today.date()
+    active = [w for w in ruleset.waivers if waiver_active(w, today)]
+    hits = {id(w): 0 for w in active}
+    evaluated: set[str] = set()
+    project_loops: list[str] | None = None
+
+    for loop_name, found in (cached or {}).items():
+        evaluated.add(loop_name)
+        for f in found:
+            for w in active:
+                if f.waived and waiver_applies(w, f.rule, f.loop):
+                    hits[id(w)] += 1
+
+    loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
+    for ctx in contexts:
+        name = ctx.spec.name
+        evaluated.add(name)
+        if project_loops is None:
+            project_loops = [s.name for s in getattr(ctx.project, "loops", ())]
+        config = effective_rules(ruleset, name, ctx.spec.tags, nominal_crossover_hz(ctx))
+        reason_rule = None
+        if ctx.not_analysed_reason is not None and not ctx.evaluations:
+            reason_rule = (ctx.extras or {}).get("not_analysed_rule") or CLOSED_LOOP
+        ids = loop_rules if reason_rule is None or reason_rule in loop_rules else sorted(
+            [*loop_rules, reason_rule]
+        )
+        for rule_id in ids:
+            effective = config.get(rule_id)
+            if rule_id == reason_rule:
+                # A loop that could not be analysed has no stability verdict: its
+                # finding is never hidden by --only/--skip or by `off`.
+                severity = effective.severity if effective is not None else Severity.ERROR
+                if severity is Severity.OFF:
+                    severity = config[CLOSED_LOOP].severity
+                violations: Iterable[Violation] = (_not_analysed_violation(ctx),)
+            else:
+                if not is_selected(rule_id, only, skip) or effective.severity is Severity.OFF:
+                    continue
+                severity = effective.severity
+                violations = RULES[rule_id].function(ctx, effective.parameters)
+            for violation in violations:
+                waiver = next((w for w in active if waiver_applies(w, rule_id, name)), None)
+                if waiver is not None:
+                    hits[id(waiver)] += 1
+                related = violation.related
+                if effective is not None:
+                    related = _with_ruleset_location(related, effective, ruleset)
+                yield _finding(
+                    rule_id,
+                    _lower(severity, violation.severity),
+                    name,
+                    violation,
+                    related,
+                    waiver,
+                )
+
+    yield from _ruleset_findings(
+        ruleset, today, active, hits, evaluated, project_loops, only, skip
+    )
+
+
+def _ruleset_findings(
+    ruleset: Ruleset,
+    today: datetime.date,
+    active: list[Waiver],
+    hits: dict[int, int],
+    evaluated: set[str],
+    project_loops: list[str] | None,
+    only: tuple[str, ...],
+    skip: tuple[str, ...],
+) -> Iterator[Finding]:
+    top = effective_rules(ruleset)
+    expired_rule, unused_rule = top["waiver.expired"], top["waiver.unused"]
+    if is_selected("waiver.expired", only, skip) and expired_rule.severity is not Severity.OFF:
+        for w in ruleset.waivers:
+            if waiver_active(w, today):
+                continue
+            yield _ruleset_finding(
+                "waiver.expired",
+                expired_rule.severity,
+                w,
+                f"waiver of {w.rule} for {', '.join(w.loops)} expired on "
+                f"{w.expires.isoformat()} and no longer applies (reason given: {w.reason})",
+            )
+    if not is_selected("waiver.unused", only, skip) or unused_rule.severity is Severity.OFF:
+        return
+    all_loops = project_loops if project_loops is not None else sorted(evaluated)
+    for w in active:
+        if hits[id(w)] or not any(is_selected(r, only, skip) for r in RULES if matches(r, w.rule)):
+            continue
+        named = [n for n in all_loops if any(fnmatch.fnmatchcase(n, g) for g in w.loops)]
+        if named and not any(n in evaluated for n in named):
+            continue  # its loops are not part of this run: not judged
+        why = (
+            "its loops pass the rule"
+            if named
+            else f"no loop matches {', '.join(repr(g) for g in w.loops)}"
+        )
+        yield _ruleset_finding(
+            "waiver.unused",
+            unused_rule.severity,
+            w,
+            f"waiver of {w.rule} for {', '.join(w.loops)} matched no finding ({why}); "
+            "remove it or correct it",
+        )
+
+
+def _ruleset_finding(rule_id: str, severity: Severity, waiver: Waiver, message: str) -> Finding:
+    return Finding(
+        rule=rule_id,
+        severity=severity,
+        loop=None,
+        variant=None,
+        message=message,
+        measured=None,
+        limit=None,
+        unit=None,
+        frequency_hz=None,
+        location=waiver.location,
+        key_path=f"waivers:{waiver.rule}:{','.join(waiver.loops)}",
+    )
+
+
+def evaluate(
+    contexts: Iterable[LoopContext],
+    ruleset: Ruleset,
+    *,
+    only: Sequence[str] = (),
+    skip: Sequence[str] = (),
+    today: datetime.date | None = None,
+    cached: Mapping[str, Sequence[Finding]] | None = None,
+) -> tuple[Finding, ...]:
+    """Apply ``ruleset`` to analysed loops; return every finding.
+
+    Parameters
+    ----------
+    contexts:
+        One :class:`~ruleguard.rules.base.LoopContext` per loop, in report order.
+    ruleset:
+        The loaded ruleset (:func:`ruleguard.load.rulesets.load_ruleset`).
+    only, skip:
+        ``--only``/``--skip`` patterns: rule ids or family prefixes. An unknown
+        pattern is an :class:`~ruleguard.errors.InputError` (file
+        ``"<command line>"``). The finding of a loop that could not be analysed
+        is reported whatever the selection.
+    today:
+        The date waivers are judged on (default: today, UTC).
+    cached:
+        Findings of loops taken from the cache (loop name -> findings): they are
+        not re-evaluated, but count as evaluated for ``waiver.unused``.
+
+    Returns
+    -------
+    tuple of Finding
+        Loops in the order given, rules by id within a loop; ``waiver.*``
+        findings about the ruleset last.
+    """
+    return tuple(
+        iter_findings(contexts, ruleset, only=only, skip=skip, today=today, cached=cached)
+    )
