@@ -337,27 +337,33 @@ def _real_sections(block: ZPK) -> list[tuple[np.ndarray, np.ndarray]]:
     """Monic real (numerator, denominator) sections of degree <= 2 whose product is the block."""
     zr, zc = _pair_roots(block.zeros)
     pr, pc = _pair_roots(block.poles)
-    zpolys = [np.array([1.0, -r]) for r in zr] + [
-        np.array([1.0, -2 * z.real, abs(z) ** 2]) for z in zc
-    ]
-    ppolys = [np.array([1.0, -r]) for r in pr] + [
-        np.array([1.0, -2 * p.real, abs(p) ** 2]) for p in pc
-    ]
-    # Order by degree so numerator degree never exceeds denominator degree.
-    zpolys.sort(key=len, reverse=True)
-    ppolys.sort(key=len, reverse=True)
+    zero_lins = [np.array([1.0, -r]) for r in zr]
+    zero_quads = [np.array([1.0, -2 * z.real, abs(z) ** 2]) for z in zc]
+    pole_lins = [np.array([1.0, -r]) for r in pr]
+    pole_quads = [np.array([1.0, -2 * p.real, abs(p) ** 2]) for p in pc]
+    # Numerator degree may never exceed denominator degree in a section: a
+    # complex zero pair needs a quadratic denominator, so when zero pairs
+    # outnumber pole pairs, two real poles make one quadratic section (always
+    # possible for a proper block).
+    while len(pole_quads) < len(zero_quads) and len(pole_lins) >= 2:
+        pole_quads.append(np.polymul(pole_lins.pop(), pole_lins.pop()))
+    if len(pole_quads) < len(zero_quads) or (
+        2 * len(zero_quads) + len(zero_lins) > 2 * len(pole_quads) + len(pole_lins)
+    ):
+        raise ValueError("an improper block has no state-space realization")
     sections: list[tuple[np.ndarray, np.ndarray]] = []
-    zeros_left = list(zpolys)
-    for den in ppolys:
-        num = np.array([1.0])
-        deg = len(den) - 1
-        while zeros_left and (len(num) - 1) + (len(zeros_left[-1]) - 1) <= deg:
-            num = np.polymul(num, zeros_left.pop())
-            if len(num) - 1 == deg:
-                break
+    for den in pole_quads:
+        if zero_quads:
+            num = zero_quads.pop()
+        else:
+            num = np.array([1.0])
+            for _ in range(2):
+                if zero_lins:
+                    num = np.polymul(num, zero_lins.pop())
         sections.append((num, den))
-    if zeros_left:
-        # remaining zeros pair with nothing: only possible when improper
+    for den in pole_lins:
+        sections.append((zero_lins.pop() if zero_lins else np.array([1.0]), den))
+    if zero_lins or zero_quads:
         raise ValueError("an improper block has no state-space realization")
     return sections
 
