@@ -7,8 +7,6 @@ Each class here satisfies :class:`~ruleguard.analysis.openloop.ResponseFactor`
 * :class:`BlockResponse`: a factored block evaluated in its own domain
   inside a loop of another domain or rate (a continuous sensor beside a
   measured plant in a sampled loop, a closed inner loop at another rate).
-* :class:`DelayResponse`: an exact ``exp(-j w tau)`` (the fractional part of
-  a sampled loop's delay in front of a measured plant).
 * :class:`ClosedLoopResponse`: the closed inner loop of a cascade,
   ``T = forward / (1 + L)``, evaluated exactly from its parts.
 """
@@ -68,30 +66,6 @@ class BlockResponse:
     def nonzero_boundary_poles(self) -> list[tuple[float, int]]:
         """Boundary poles away from zero frequency (a factor cannot declare them)."""
         return [(w0, m) for w0, m in self.block.boundary_pole_frequencies() if w0 > 1e-12]
-
-
-@dataclass(frozen=True, eq=False)
-class DelayResponse:
-    """An exact transport delay ``exp(-j w delay_s)``."""
-
-    delay_s: float
-    unstable_poles: int = 0
-    integrators: int = 0
-
-    @property
-    def w_min(self) -> float:
-        return 0.0
-
-    @property
-    def w_max(self) -> float:
-        return float(np.inf)
-
-    def response(self, w) -> np.ndarray:
-        w = np.asarray(w, dtype=float)
-        return np.exp(-1j * w * self.delay_s)
-
-    def grid(self) -> np.ndarray:
-        return np.zeros(0)
 
 
 @dataclass(frozen=True, eq=False)
