@@ -1,0 +1,134 @@
+"""Frequency responses the rules look at, on grids that do not miss narrow peaks.
+
+The signals are those of RULES.md ``response.mask``: the open loop ``L``,
+the sensitivity ``S = 1/(1 + L)``, the complementary sensitivity
+``T = L/(1 + L)`` and the controller path ``C F1..Fn``. Grids are
+logarithmic, with the open loop's corner frequencies added and extra points
+across every lightly damped root (width about zeta * wn, METHODS.md
+"Margins"), so a resonance with damping 0.001 is not stepped over. Peaks are
+refined by golden-section search on the exact response.
+
+References
+----------
+J. Kiefer, "Sequential minimax search for a maximum", Proceedings of the
+American Mathematical Society 4(3), 1953 (golden-section search).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+
+SIGNALS = ("loop", "sensitivity", "complementary", "controller")
+
+_GOLDEN = (np.sqrt(5.0) - 1.0) / 2.0
+
+
+def signal_response(model, signal: str, w) -> np.ndarray:
+    """The complex response of ``signal`` of a :class:`LoopModel` at ``w`` rad/s.
+
+    Parameters
+    ----------
+    model:
+        A :class:`~ruleguard.analysis.loop.LoopModel`.
+    signal:
+        ``"loop"`` (L), ``"sensitivity"`` (S), ``"complementary"`` (T) or
+        ``"controller"`` (C F1..Fn).
+    w:
+        Frequencies in rad/s.
+    """
+    w = np.asarray(w, dtype=float)
+    if signal == "controller":
+        return model.controller_path.response(w)
+    loop = model.open_loop.response(w)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        if signal == "loop":
+            return loop
+        if signal == "sensitivity":
+            return 1.0 / (1.0 + loop)
+        if signal == "complementary":
+            return loop / (1.0 + loop)
+    raise ValueError(f"unknown signal {signal!r}; expected one of {', '.join(SIGNALS)}")
+
+
+def _equivalent_s_roots(block) -> np.ndarray:
+    """Roots of a block as s-plane equivalents (``log(z)/h`` for a z-plane block)."""
+    roots = np.concatenate([block.zeros, block.poles])
+    if block.sample_time_s is None:
+        return roots
+    roots = roots[np.abs(roots) > 1e-300]
+    return np.log(roots.astype(complex)) / block.sample_time_s
+
+
+def dense_grid(
+    w_lo: float, w_hi: float, blocks=(), points_per_decade: int = 200
+) -> np.ndarray:
+    """A logarithmic grid on ``[w_lo, w_hi]`` rad/s that resolves every root of ``blocks``.
+
+    Each root with natural frequency wn in range adds wn itself and, when it
+    is lightly damped (zeta < 0.3), 41 points across wn (1 +- 4 zeta).
+    """
+    if not (w_hi > w_lo > 0):
+        raise ValueError(f"need 0 < w_lo < w_hi, got {w_lo}, {w_hi}")
+    decades = np.log10(w_hi / w_lo)
+    n = max(int(np.ceil(decades * points_per_decade)) + 1, 32)
+    parts = [np.logspace(np.log10(w_lo), np.log10(w_hi), n)]
+    for block in blocks:
+        if block is None:
+            continue
+        for r in _equivalent_s_roots(block):
+            wn = abs(r)
+            if not np.isfinite(wn) or wn <= 0:
+                continue
+            parts.append(np.array([wn, abs(r.imag)]))
+            zeta = -r.real / wn
+            if abs(zeta) < 0.3:
+                half = max(4.0 * abs(zeta), 1e-5)
+                parts.append(wn * (1.0 + np.linspace(-half, half, 41)))
+    w = np.concatenate(parts)
+    w = w[np.isfinite(w) & (w >= w_lo) & (w <= w_hi)]
+    return np.unique(w)
+
+
+def refine_maximum(
+    values: Callable[[np.ndarray], np.ndarray],
+    w: np.ndarray,
+    y: np.ndarray,
+    index: int,
+    iterations: int = 60,
+) -> tuple[float, float]:
+    """Refine a grid maximum of a real function of frequency by golden-section search.
+
+    ``values(w)`` gives the function at an array of frequencies; ``w, y`` are
+    the grid and its values, ``index`` the grid maximum. The search runs in
+    log-frequency between the neighbours of the maximum. Returns
+    ``(w_peak, y_peak)``, never below the grid value.
+    """
+    lo = w[max(index - 1, 0)]
+    hi = w[min(index + 1, w.size - 1)]
+    best_w, best_y = float(w[index]), float(y[index])
+    if not (hi > lo > 0):
+        return best_w, best_y
+    a, b = np.log(lo), np.log(hi)
+    c = b - _GOLDEN * (b - a)
+    d = a + _GOLDEN * (b - a)
+    fc = float(values(np.array([np.exp(c)]))[0])
+    fd = float(values(np.array([np.exp(d)]))[0])
+    for _ in range(iterations):
+        if not (np.isfinite(fc) and np.isfinite(fd)):
+            break
+        if fc > fd:
+            b, d, fd = d, c, fc
+            c = b - _GOLDEN * (b - a)
+            fc = float(values(np.array([np.exp(c)]))[0])
+        else:
+            a, c, fc = c, d, fd
+            d = a + _GOLDEN * (b - a)
+            fd = float(values(np.array([np.exp(d)]))[0])
+        if b - a < 1e-12:
+            break
+    for wc, fv in ((np.exp(c), fc), (np.exp(d), fd)):
+        if np.isfinite(fv) and fv > best_y:
+            best_w, best_y = float(wc), float(fv)
+    return best_w, best_y
