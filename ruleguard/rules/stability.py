@@ -60,8 +60,9 @@ def closed_loop(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
         z = st.closed_loop_unstable_poles
         message = (
             f"closed loop unstable: {z} unstable closed-loop pole{'s' if z != 1 else ''} "
-            f"(Z = P - ccw = {st.open_loop_unstable_poles} - "
-            f"{st.ccw_encirclements}){phrase}"
+            f"(Z = N + P = {-st.ccw_encirclements} + {st.open_loop_unstable_poles}: "
+            f"{-st.ccw_encirclements} clockwise encirclements of -1, "
+            f"{st.open_loop_unstable_poles} unstable open-loop poles){phrase}"
         )
         measured = float(z)
     yield Violation(
