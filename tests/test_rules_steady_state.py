@@ -1,0 +1,128 @@
+"""steady-state.type and config.bounds.
+
+References
+----------
+* System type: the number of poles of L at s = 0 (z = 1); by the final-value
+  theorem type 0 leaves a step error 1/(1 + L(0)), type 1 none (Franklin,
+  Powell & Emami-Naeini, Feedback Control of Dynamic Systems; from memory).
+* Tustin maps s = 0 to z = (c + 0)/(c - 0) = 1, so a discretized integrator
+  stays an integrator (bilinear map, Åström & Wittenmark 1997).
+"""
+
+import math
+
+import numpy as np
+import pytest
+from rule_contexts import (
+    analysis,
+    block,
+    context,
+    controller_entry,
+    evaluation,
+    loop_spec,
+    model,
+    zpk,
+)
+
+from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.models.discretize import discretize_block
+from ruleguard.models.lti import MeasuredResponse
+from ruleguard.rules.base import Severity
+from ruleguard.rules.bounds import config_bounds
+from ruleguard.rules.steady_state import loop_type, steady_state_type
+
+
+def pi_loop(spec, plant_zpk, h=None):
+    kp, ki = 2.0, 50.0
+    c = zpk([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
+    d = discretize_block(c, "tustin", h) if h else None
+    ctrl = block("controller", "velocity (pid)", "pid", c, d, "tustin" if h else None,
+                 spec.controller.location)
+    pd = None
+    if h:
+        from ruleguard.models.discretize import zoh_equivalent
+
+        pd = zoh_equivalent(plant_zpk, h)
+    plant = block("plant", "mechanics", "zero_pole_gain", plant_zpk, pd)
+    return evaluation("nominal", model(spec, ctrl, plant), analysis())
+
+
+def test_pi_gives_type_one_continuous_and_sampled():
+    spec = loop_spec(controller_entry(fields={"kp": 2.0, "ki": 50.0}))
+    ev = pi_loop(spec, zpk([], [-1.0], 1.0))
+    assert loop_type(ev.model.open_loop) == 1
+    assert list(steady_state_type(context(spec, [ev]), {"min_integrators": 1})) == []
+    (v,) = steady_state_type(context(spec, [ev]), {"min_integrators": 2})
+    assert v.measured == 1.0 and v.limit == 2.0
+    assert v.location == spec.controller.field_locations["ki"]
+    dspec = loop_spec(controller_entry(fields={"kp": 2.0, "ki": 50.0}), sample_rate_hz=1000.0)
+    dev = pi_loop(dspec, zpk([], [-1.0], 1.0), h=1e-3)
+    assert np.min(np.abs(dev.model.controller.discrete.poles - 1.0)) < 1e-15  # Tustin: z = 1
+    assert loop_type(dev.model.open_loop) == 1
+
+
+def test_zero_at_origin_cancels_plant_integrator():
+    # washout s/(s + 1) on the plant 1/s: the integrator does not reach L (type 0)
+    spec = loop_spec(controller_entry(kind="transfer_function", fields={}))
+    c = zpk([0.0], [-1.0], 1.0)
+    ctrl = block("controller", "velocity (transfer_function)", "transfer_function", c)
+    plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [0.0], 3.0))
+    ev = evaluation("nominal", model(spec, ctrl, plant), analysis())
+    assert loop_type(ev.model.open_loop) == 0
+    (v,) = steady_state_type(context(spec, [ev]), {"min_integrators": 1})
+    assert v.location == spec.controller.location  # no ki field: the controller table
+
+
+def test_measured_factor_integrators_count():
+    w = np.logspace(0, 3, 50)
+    meas = MeasuredResponse(w, -20 * np.log10(w), np.full_like(w, -90.0), integrators=1)
+    ol = OpenLoop(zpk([], [], 2.0), (meas,))
+    assert loop_type(ol) == 1
+
+
+def test_default_checks_nothing():
+    spec = loop_spec(controller_entry(kind="transfer_function"))
+    c = zpk([], [-1.0], 1.0)
+    ev = evaluation("nominal", model(spec, block("controller", "c", "tf", c),
+                                     block("plant", "p", "zpk", zpk([], [-2.0], 1.0))),
+                    analysis())
+    assert list(steady_state_type(context(spec, [ev]), {"min_integrators": 0})) == []
+
+
+# ------------------------------------------------------------------ bounds
+def bounded(bounds, fields=None, filters=()):
+    if fields is None:
+        fields = {"kp": 2.1, "ki": 6200.0, "derivative_filter_hz": 4e3}
+    spec = loop_spec(controller_entry(fields=fields, filters=filters), bounds=bounds)
+    return spec, context(spec, [])  # needs no analysis: runs on unanalysed loops too
+
+
+def test_bounds_pass_inclusive_ends():
+    spec, ctx = bounded({"kp": (2.1, 4.0), "ki": (0.0, 6200.0)})
+    assert list(config_bounds(ctx, {})) == []
+
+
+def test_bounds_fail_points_at_field_with_bounds_related():
+    spec, ctx = bounded({"kp": (2.5, 4.0), "derivative_filter_hz": (0.0, 3000.0)})
+    out = {v.key_path.rsplit(".", 1)[-1]: v for v in config_bounds(ctx, {})}
+    kp = out["kp"]
+    assert kp.measured == 2.1 and kp.limit == 2.5 and "below the minimum" in kp.message
+    assert kp.location == spec.controller.field_locations["kp"]
+    assert kp.related == (spec.field_locations["bounds.kp"],)
+    f = out["derivative_filter_hz"]
+    assert f.limit == 3000.0 and f.unit == "Hz" and "above the maximum" in f.message
+
+
+def test_bounds_reach_filter_fields_and_note_unknown_names():
+    spec, ctx = bounded(
+        {"filters.0.center_hz": (100.0, 1000.0), "kd": (0.0, 1.0)},
+        filters=[("notch", {"center_hz": 1800.0, "width_hz": 300.0})],
+    )
+    out = list(config_bounds(ctx, {}))
+    notes = [v for v in out if v.severity is Severity.NOTE]
+    fails = [v for v in out if v.severity is None]
+    assert len(notes) == 1 and "`kd`" in notes[0].message
+    (f,) = fails
+    assert f.measured == 1800.0
+    assert f.location == spec.controller.filters[0].field_locations["center_hz"]
+    assert math.isfinite(f.limit) and f.limit == pytest.approx(1000.0)
