@@ -37,7 +37,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ruleguard.errors import NumericalWarning
-from ruleguard.models.lti import ZPK, StateSpace, zpk_to_state_space
+from ruleguard.models.lti import ZPK, StateSpace
 
 #: Methods accepted by :func:`discretize_block`.
 DISCRETIZATION_METHODS = ("tustin", "tustin_prewarp", "backward_euler", "forward_euler")
@@ -191,7 +191,7 @@ def discretize_block(
         c = tustin_constant(h, prewarp_rad_s)
 
         def factor(q: np.ndarray):
-            return c - q, c + q, -1.0  # a z + b = (c - q) z - (c + q); common root z = -1
+            return c - q, -(c + q), -1.0  # a z + b = (c - q) z - (c + q); common root z = -1
 
         def degenerate(q: np.ndarray) -> np.ndarray:
             return -(c + q)
@@ -320,10 +320,19 @@ class DiscreteStateSpace:
     d: np.ndarray
     sample_time_s: float
     delay_samples: int = 0
+    #: ``a - I`` computed without cancellation (``A int_0^h e^{As} ds`` for a
+    #: ZOH equivalent); ``None`` means ``a - I`` formed directly.
+    a_minus_identity: np.ndarray | None = None
 
     @property
     def order(self) -> int:
         return self.a.shape[0]
+
+    def shifted_a(self) -> np.ndarray:
+        """``a - I`` (accurate when ``a`` has eigenvalues near ``z = 1``)."""
+        if self.a_minus_identity is not None:
+            return self.a_minus_identity
+        return self.a - np.eye(self.order)
 
     def evaluate(self, z) -> np.ndarray:
         """Transfer function at complex points ``z`` (whole-sample delay included)."""
@@ -424,27 +433,36 @@ def zoh_state_space(
     d, f = split_delay(own_delay + float(delay_s), h)
     a, b, c, dd = ss.a, ss.b, ss.c, ss.d
     n = a.shape[0]
-    m = np.zeros((n + 1, n + 1))
+    # expm([[A, I, B], [0, 0, 0], [0, 0, 0]] t) holds e^{At}, Psi(t) =
+    # int_0^t e^{As} ds and Psi(t) B; Phi - I = A Psi(h) without cancellation.
+    m = np.zeros((2 * n + 1, 2 * n + 1))
     m[:n, :n] = a
-    m[:n, n:] = b
+    m[:n, n : 2 * n] = np.eye(n)
+    m[:n, 2 * n :] = b
+
+    def blocks(t: float):
+        e = scipy.linalg.expm(m * t)
+        return e[:n, :n], e[:n, n : 2 * n], e[:n, 2 * n :]
+
     if f == 0.0:
-        e = scipy.linalg.expm(m * h)
-        return DiscreteStateSpace(e[:n, :n], e[:n, n:], c, dd, h, d)
+        phi, psi, gamma = blocks(h)
+        return DiscreteStateSpace(phi, gamma, c, dd, h, d, a @ psi)
     t_frac = f * h
-    e_rest = scipy.linalg.expm(m * (h - t_frac))
-    e_frac = scipy.linalg.expm(m * t_frac)
-    phi_rest, gamma0 = e_rest[:n, :n], e_rest[:n, n:]
-    phi_frac, int_frac = e_frac[:n, :n], e_frac[:n, n:]
+    phi_rest, psi_rest, gamma0 = blocks(h - t_frac)
+    phi_frac, psi_frac, int_frac = blocks(t_frac)
     phi = phi_rest @ phi_frac
     gamma1 = phi_rest @ int_frac
     ad = np.zeros((n + 1, n + 1))
     ad[:n, :n] = phi
     ad[:n, n:] = gamma1
+    shifted = ad - np.eye(n + 1)
+    # Psi(h) = Psi(h - tau') + e^{A (h - tau')} Psi(tau')
+    shifted[:n, :n] = a @ (psi_rest + phi_rest @ psi_frac)
     bd = np.zeros((n + 1, 1))
     bd[:n] = gamma0
     bd[n, 0] = 1.0
     cd = np.hstack([c, dd])
-    return DiscreteStateSpace(ad, bd, cd, np.zeros((1, 1)), h, d)
+    return DiscreteStateSpace(ad, bd, cd, np.zeros((1, 1)), h, d, shifted)
 
 
 def zoh_equivalent(
@@ -515,29 +533,39 @@ def zoh_equivalent(
 def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
     """Finite invariant zeros of a discrete realization (whole-sample delay excluded).
 
-    The zeros are the finite generalized eigenvalues of the Rosenbrock pencil
-    ``([[A, B], [C, D]], [[I, 0], [0, 0]])``; eigenvalues with modulus above
-    :data:`ZERO_INFINITY_RATIO` ``* (1 + max |eig A|)`` are at infinity. The
-    result is made exactly conjugate-symmetric.
+    With ``z = 1 + h delta`` the transfer function is
+    ``C (delta I - F)^-1 G + D``, ``F = (A - I)/h``, ``G = B/h`` (the delta
+    form of Middleton & Goodwin). Its zeros are the finite generalized
+    eigenvalues of the Rosenbrock pencil ``([[F, G], [C, D]], [[I, 0], [0, 0]])``
+    ([EV]); eigenvalues with a modulus above :data:`ZERO_INFINITY_RATIO` times
+    the scale of ``F`` are at infinity. Working in ``delta`` keeps zeros near
+    ``z = 1`` (slow dynamics sampled fast) accurate: their distance from 1 is
+    computed directly instead of as a small difference of numbers near 1.
+    The result is made exactly conjugate-symmetric.
 
     References
     ----------
     Emami-Naeini & Van Dooren, "Computation of zeros of linear multivariable
     systems", Automatica 18(4), 1982.
+    R. H. Middleton, G. C. Goodwin, Digital Control and Estimation: A Unified
+    Approach, Prentice Hall, 1990 (the delta operator).
     """
     import scipy.linalg  # lazy
 
     n = dss.order
     if n == 0:
         return np.zeros(0, complex)
-    pencil = np.block([[dss.a, dss.b], [dss.c, dss.d]])
+    h = dss.sample_time_s
+    f = dss.shifted_a() / h
+    g = dss.b / h
+    pencil = np.block([[f, g], [dss.c, dss.d]])
     e = np.zeros((n + 1, n + 1))
     e[:n, :n] = np.eye(n)
     alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
-    radius = 1.0 + float(np.max(np.abs(np.linalg.eigvals(dss.a)), initial=0.0))
+    radius = 1.0 / h + float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
     finite = np.abs(alpha) < ZERO_INFINITY_RATIO * radius * np.abs(beta)
-    zeros = alpha[finite] / beta[finite]
-    return _conjugate_symmetric(zeros)
+    delta = _conjugate_symmetric(alpha[finite] / beta[finite])
+    return 1.0 + h * delta
 
 
 def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
@@ -586,14 +614,248 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
 
 def _as_state_space(block: ZPK | StateSpace) -> tuple[StateSpace, float]:
     if isinstance(block, StateSpace):
-        return block, block.delay_s
+        if block.order == 0:
+            return block, block.delay_s
+        import scipy.linalg  # lazy
+
+        # diagonal similarity x = T x' (Parlett-Reinsch balancing) so that the
+        # matrix exponential works on a matrix with rows and columns of like size
+        _, (scale, _) = scipy.linalg.matrix_balance(block.a, permute=False, separate=True)
+        a = block.a * scale[None, :] / scale[:, None]
+        b = block.b / scale[:, None]
+        c = block.c * scale[None, :]
+        return StateSpace(a, b, c, block.d, block.delay_s), block.delay_s
     if isinstance(block, ZPK):
         if block.is_discrete:
             raise ValueError("zoh_equivalent needs a continuous (s-plane) block")
         if not block.is_proper:
             raise ValueError("an improper block has no zero-order-hold equivalent")
-        return zpk_to_state_space(block), block.delay_s
+        return scaled_cascade_realization(block), block.delay_s
     raise TypeError(f"block must be a ZPK or StateSpace, got {type(block).__name__}")
+
+
+# --------------------------------------------------------------------------
+# Grouping roots into sections, and a well-scaled cascade realization
+# --------------------------------------------------------------------------
+def _split_conjugates(roots: np.ndarray) -> tuple[list[complex], list[float]]:
+    """Upper-half members of conjugate pairs, and real roots (tolerance 1e-9 relative)."""
+    roots = np.asarray(roots, dtype=complex)
+    tol = 1e-9
+    scale = np.maximum(np.abs(roots), 1e-300)
+    upper = [complex(r) for r in roots[roots.imag > tol * scale]]
+    lower = roots[roots.imag < -tol * scale]
+    real = [float(r.real) for r in roots[np.abs(roots.imag) <= tol * scale]]
+    if len(upper) != lower.size:
+        raise ValueError("roots are not conjugate-symmetric")
+    return upper, real
+
+
+def boundary_distance(root: complex, discrete: bool) -> float:
+    """How far a root lies from the stability boundary (0 on it).
+
+    ``| 1 - |z| |`` in the z-plane; ``|Re s| / |s|`` (the damping ratio of a
+    pole pair) in the s-plane, 0 for ``s = 0``.
+    """
+    if discrete:
+        return abs(1.0 - abs(root))
+    mag = abs(root)
+    return 0.0 if mag == 0.0 else abs(root.real) / mag
+
+
+def section_groups(
+    zeros: np.ndarray, poles: np.ndarray, discrete: bool
+) -> list[tuple[tuple[complex, ...], tuple[complex, ...]]]:
+    """Group the roots of a proper real block into sections of order <= 2.
+
+    The standard pairing for cascade realizations: poles are taken in order
+    of closeness to the stability boundary (the most sensitive first); each
+    conjugate pair forms a section, real poles are paired with the nearest
+    remaining real pole (an odd one out, the real pole farthest from the
+    boundary, forms a first-order section). Each section then receives the
+    zeros nearest to its poles (a conjugate pair, two real zeros or one),
+    filling its capacity while the zeros left over still fit the remaining
+    sections. Pairing each pole with its nearest zeros keeps every section's
+    gain close to flat, which minimises the sensitivity of the realization to
+    coefficient rounding and keeps the states of a cascade well scaled.
+
+    Parameters
+    ----------
+    zeros, poles:
+        Conjugate-symmetric roots, ``len(zeros) <= len(poles)``.
+    discrete:
+        Whether the roots are in the z-plane (for the boundary distance).
+
+    Returns
+    -------
+    list of (zeros, poles)
+        One entry per section, most sensitive first; each tuple holds full
+        conjugate pairs (both members).
+
+    References
+    ----------
+    L. B. Jackson, Digital Filters and Signal Processing, 3rd ed., Kluwer,
+    1996, section 11.5 (pole-zero pairing and ordering of cascade sections).
+    A. V. Oppenheim, R. W. Schafer, Discrete-Time Signal Processing, 3rd ed.,
+    2010, section 6.9 (sensitivity of cascade forms to coefficient
+    quantization).
+    """
+    zc, zr = _split_conjugates(zeros)
+    pc, pr = _split_conjugates(poles)
+    if 2 * len(zc) + len(zr) > 2 * len(pc) + len(pr):
+        raise ValueError("an improper block cannot be split into proper sections")
+    # ---- pole groups
+    groups: list[tuple[complex, ...]] = [(p, p.conjugate()) for p in pc]
+    reals = sorted(pr, key=lambda r: boundary_distance(complex(r), discrete))
+    single: tuple[complex, ...] | None = None
+    if len(reals) % 2:
+        single = (complex(reals.pop()),)  # farthest from the boundary stands alone
+    while reals:
+        first = reals.pop(0)
+        k = int(np.argmin([abs(first - r) for r in reals]))
+        groups.append((complex(first), complex(reals.pop(k))))
+    groups.sort(key=lambda g: min(boundary_distance(r, discrete) for r in g))
+    if single is not None:
+        groups.append(single)
+    # ---- zero assignment
+    zc_left = list(zc)
+    zr_left = list(zr)
+    out: list[tuple[tuple[complex, ...], tuple[complex, ...]]] = []
+    for i, g in enumerate(groups):
+        rest = groups[i + 1 :]
+        doubles = sum(1 for r in rest if len(r) == 2)
+        singles = len(rest) - doubles
+
+        def feasible(n_c: int, n_r: int, doubles=doubles, singles=singles) -> bool:
+            return n_c <= doubles and 2 * n_c + n_r <= 2 * doubles + singles
+
+        ref = [r for r in g if r.imag >= 0]
+
+        def dist(z: complex, ref=ref) -> float:
+            return min(abs(z - r) for r in ref)
+
+        options: list[tuple[int, float, list[complex], list[float]]] = []
+        if len(g) == 2:
+            for z in zc_left:
+                options.append((2, dist(z), [z], []))
+            if len(zr_left) >= 2:
+                order = sorted(zr_left, key=lambda z: dist(complex(z)))
+                pair_dist = dist(complex(order[0])) + dist(complex(order[1]))
+                options.append((2, pair_dist, [], order[:2]))
+        for z in zr_left:
+            options.append((1, dist(complex(z)), [], [z]))
+        options.append((0, 0.0, [], []))
+        options.sort(key=lambda o: (-o[0], o[1]))
+        for _, _, take_c, take_r in options:
+            n_c = len(zc_left) - len(take_c)
+            n_r = len(zr_left) - len(take_r)
+            if feasible(n_c, n_r):
+                break
+        else:  # pragma: no cover - the counts above guarantee a feasible option
+            raise ValueError("could not pair zeros with poles")
+        for z in take_c:
+            zc_left.remove(z)
+        for z in take_r:
+            zr_left.remove(z)
+        zg = tuple(x for z in take_c for x in (z, z.conjugate())) + tuple(
+            complex(z) for z in take_r
+        )
+        out.append((zg, g))
+    return out
+
+
+def scaled_cascade_realization(block: ZPK) -> StateSpace:
+    """A well-scaled real state-space realization of a proper s-plane block.
+
+    A cascade of sections (:func:`section_groups`, each pole pair with its
+    nearest zeros) in which every section is realised in real modal form
+    (``[[sigma, omega], [-omega, sigma]]`` for a pair ``sigma +/- j omega``,
+    ``[[p1, m], [0, p2]]`` with ``m = max |p|`` for two real poles, equal or
+    not), so that no entry grows like ``omega^2`` as in a companion
+    form. Each section is normalised to unit gain at ``s = |p|`` and its
+    input and output vectors are balanced; the block's gain is applied at
+    the output. The matrix exponential of such a realization stays accurate
+    for orders of 50 and more, where a companion-form cascade loses all
+    digits (its matrix is far from normal).
+
+    References
+    ----------
+    Oppenheim & Schafer, Discrete-Time Signal Processing, 3rd ed., 2010,
+    section 6.3 (cascade forms); C. Moler, C. Van Loan, "Nineteen dubious
+    ways to compute the exponential of a matrix, twenty-five years later",
+    SIAM Review 45(1), 2003 (sensitivity of the exponential to non-normality).
+    """
+    if block.is_discrete or not block.is_proper:
+        raise ValueError("needs a proper s-plane block")
+    if block.poles.size == 0:
+        return StateSpace(np.zeros((0, 0)), np.zeros((0, 1)), np.zeros((1, 0)), [[block.gain]])
+    a = np.zeros((0, 0))
+    b = np.zeros((0, 1))
+    c = np.zeros((1, 0))
+    d = np.array([[1.0]])
+    total = block.gain
+    for zg, pg in section_groups(block.zeros, block.poles, discrete=False):
+        sa, sb, sc, sd, g = _modal_section(np.array(zg, complex), np.array(pg, complex))
+        total *= g
+        n1, n2 = a.shape[0], sa.shape[0]
+        na = np.zeros((n1 + n2, n1 + n2))
+        na[:n1, :n1] = a
+        na[n1:, :n1] = sb @ c
+        na[n1:, n1:] = sa
+        a = na
+        b = np.vstack([b, sb @ d])
+        c = np.hstack([sd @ c, sc])
+        d = sd @ d
+    return StateSpace(a, b, c * total, d * total)
+
+
+def _modal_section(zeros: np.ndarray, poles: np.ndarray):
+    """Real modal realization of ``g * prod(s - z) / prod(s - p)`` normalised to unit gain.
+
+    Returns ``(a, b, c, d, g)``: the realization of the normalised section
+    and the factor ``g`` taken out of it.
+    """
+    n = poles.size
+    ref = float(max(np.max(np.abs(poles)), 1e-12))
+    # numerator and denominator as real polynomials (degree <= 2, so exact enough)
+    num = np.real(np.poly(zeros)) if zeros.size else np.array([1.0])
+    den = np.real(np.poly(poles))
+    val = abs(np.polyval(num, ref) / np.polyval(den, ref))
+    g = 1.0 / val if np.isfinite(val) and val > 0 else 1.0
+    num = num * g
+    num = np.concatenate([np.zeros(n + 1 - num.size), num])
+    d0 = num[0]
+    rem = num - d0 * den  # strictly proper remainder, degree < n
+    if n == 1:
+        a = np.array([[poles[0].real]])
+        bb = np.array([[1.0]])
+        cc = np.array([[rem[1]]])
+    else:
+        p = poles[0] if poles[0].imag >= 0 else poles[1]
+        if abs(p.imag) > 0:
+            a = np.array([[p.real, p.imag], [-p.imag, p.real]])
+        else:
+            # two real poles: a scaled triangular (Jordan-like) block, which
+            # also holds a double pole and avoids the cancelling residues of
+            # a diagonal form when the poles are close
+            p1, p2 = poles[0].real, poles[1].real
+            a = np.array([[p1, max(abs(p1), abs(p2), 1e-12)], [0.0, p2]])
+        bb = np.array([[0.0], [1.0]])
+        # C adj(sI - A) B = r1 s + r0 with adj(sI - A) = [[s - a22, a12], [a21, s - a11]]
+        b1, b2 = bb[0, 0], bb[1, 0]
+        m = np.array(
+            [
+                [b1, b2],
+                [-a[1, 1] * b1 + a[0, 1] * b2, a[1, 0] * b1 - a[0, 0] * b2],
+            ]
+        )
+        cc = np.linalg.solve(m, np.array([rem[1], rem[2]])).reshape(1, 2)
+    nb = float(np.linalg.norm(bb))
+    nc = float(np.linalg.norm(cc))
+    if nc > 0:
+        beta = np.sqrt(nc / nb)
+        bb = bb * beta
+        cc = cc / beta
+    return a, bb, cc, np.array([[d0]]), 1.0 / g
 
 
 def _check_sample_time(sample_time_s: float) -> float:
