@@ -191,3 +191,28 @@ class TestFingerprints:
         twice = (STABILITY_FINDING, dataclasses.replace(STABILITY_FINDING, variant="corner-3"))
         prints = self._fingerprints(sample_report(findings=twice))
         assert prints[1] == prints[0] + ":2"
+
+
+class TestPlacesOutsideTheProject:
+    def test_builtin_ruleset_lines_are_not_artifacts(self):
+        from ruleguard.location import Location
+
+        finding = dataclasses.replace(
+            PHASE_FINDING,
+            location=Location("<builtin>/motion.toml", 13, 1, 'rules."margin.gain".min_db'),
+            related=(Location("<builtin>/baseline.toml", 64, 1, "rules.x"),
+                     Location("models/plants.toml", 1, 1, "plants.tilt_mechanics")),
+        )
+        log = _log(sample_report(findings=(finding,)))
+        for _, schema in _schemas():
+            jsonschema.Draft4Validator(schema).validate(log)
+        result = log["runs"][0]["results"][0]
+        # the primary location falls back to the manifest (a file of the project)
+        primary = result["locations"][0]["physicalLocation"]
+        assert primary == {"artifactLocation": {"uri": "ruleguard.toml",
+                                                "uriBaseId": "PROJECTROOT"}}
+        builtin, plant = result["relatedLocations"]
+        assert "physicalLocation" not in builtin
+        assert builtin["message"]["text"] == "<builtin>/baseline.toml:64 (rules.x)"
+        assert plant["physicalLocation"]["artifactLocation"]["uri"] == "models/plants.toml"
+        assert "%3C" not in json.dumps(log)

@@ -60,6 +60,19 @@ def _uri(file: str, uri_prefix: str) -> str:
     return quote(path.replace("\\", "/"), safe="/-._~")
 
 
+def _in_project(location: Location) -> bool:
+    """False for places that are no file of the project (``<builtin>/...``,
+    ``<command line>``): SARIF artifact locations must name real files."""
+    return bool(location.file) and not location.file.startswith("<")
+
+
+def _describe_place(location: Location) -> str:
+    place = location.file
+    if location.line is not None:
+        place += f":{location.line}"
+    return f"{place} ({location.key})" if location.key else place
+
+
 def _physical(location: Location, uri_prefix: str) -> dict:
     physical: dict = {
         "artifactLocation": {"uri": _uri(location.file, uri_prefix), "uriBaseId": URI_BASE_ID}
@@ -137,7 +150,9 @@ def sarif_log(report: Report, *, uri_prefix: str = "", root_uri: str | None = No
         seen[fingerprint] = seen.get(fingerprint, 0) + 1
         if seen[fingerprint] > 1:  # the same rule, loop and key twice: number them
             fingerprint = f"{fingerprint}:{seen[fingerprint]}"
-        results.append(_result(finding, index[finding.rule], fingerprint, uri_prefix))
+        results.append(
+            _result(finding, index[finding.rule], fingerprint, uri_prefix, report.manifest_file)
+        )
 
     run: dict = {
         "tool": {
@@ -162,13 +177,28 @@ def sarif_log(report: Report, *, uri_prefix: str = "", root_uri: str | None = No
     return {"$schema": SARIF_SCHEMA_URI, "version": SARIF_VERSION, "runs": [run]}
 
 
-def _result(finding: Finding, rule_index: int, fingerprint: str, uri_prefix: str) -> dict:
+def _related(index: int, related: Location, uri_prefix: str) -> dict:
+    if _in_project(related):
+        return {
+            "id": index,
+            "physicalLocation": _physical(related, uri_prefix),
+            "message": {"text": related.key or related.file},
+        }
+    return {"id": index, "message": {"text": _describe_place(related)}}
+
+
+def _result(
+    finding: Finding, rule_index: int, fingerprint: str, uri_prefix: str, manifest_file: str
+) -> dict:
+    primary = finding.location
+    if not _in_project(primary):  # a built-in ruleset's line: point at the manifest
+        primary = Location(manifest_file)
     result: dict = {
         "ruleId": finding.rule,
         "ruleIndex": rule_index,
         "level": _LEVEL[Severity(finding.severity).value],
         "message": {"text": _message(finding)},
-        "locations": [{"physicalLocation": _physical(finding.location, uri_prefix)}],
+        "locations": [{"physicalLocation": _physical(primary, uri_prefix)}],
         "partialFingerprints": {FINGERPRINT_NAME: fingerprint},
         "properties": plain(
             {
@@ -188,11 +218,7 @@ def _result(finding: Finding, rule_index: int, fingerprint: str, uri_prefix: str
         ]
     if finding.related:
         result["relatedLocations"] = [
-            {
-                "id": i,
-                "physicalLocation": _physical(related, uri_prefix),
-                "message": {"text": related.key or related.file},
-            }
+            _related(i, related, uri_prefix)
             for i, related in enumerate(finding.related, start=1)
         ]
     if finding.waived:

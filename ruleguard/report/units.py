@@ -53,6 +53,8 @@ def quantity(value: float | None, unit: str | None) -> str:
         return seconds(value)
     if not unit:
         return number(value)
+    if unit == "ratio":
+        return f"{number(value)}×"
     return f"{number(value)} {unit}"
 
 
