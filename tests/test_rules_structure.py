@@ -1,0 +1,116 @@
+"""loop.hidden-cancellation.
+
+References
+----------
+* Internal stability: the closed loop of C and P is internally stable iff
+  1 + L has no zeros in the closed right half-plane AND there is no
+  right-half-plane pole-zero cancellation between C and P (Doyle, Francis &
+  Tannenbaum, Feedback Control Theory, 1992, section 3.3; from memory).
+  Checked independently here: the eigenvalues (numpy.linalg.eigvals) of a
+  hand-written closed-loop state-space realization of C and P keep the
+  cancelled pole.
+* ZOH maps a continuous pole p to z = exp(p h) (Åström & Wittenmark,
+  Computer-Controlled Systems, 3rd ed., 1997).
+"""
+
+import math
+
+import numpy as np
+import pytest
+from rule_contexts import (
+    analysis,
+    block,
+    context,
+    controller_entry,
+    evaluation,
+    loop_spec,
+    model,
+    zpk,
+)
+
+from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.location import Location
+from ruleguard.models.lti import MeasuredResponse
+from ruleguard.rules.base import Severity
+from ruleguard.rules.structure import hidden_cancellation
+
+PLANT_LOC = Location("models/plants.toml", 1, 1, "plants.mechanics")
+
+
+def ctx_for(c, g, h=None, variant="nominal", filters=()):
+    spec = loop_spec(controller_entry(kind="transfer_function"),
+                     sample_rate_hz=None if h is None else 1.0 / h)
+    ctrl = block("controller", "velocity (transfer_function)", "transfer_function",
+                 None if h else c, c if h else None, "given" if h else None,
+                 spec.controller.location)
+    plant = block("plant", "mechanics (zero_pole_gain)", "zero_pole_gain",
+                  None if h else g, g if h else None, location=PLANT_LOC)
+    ev = evaluation(variant, model(spec, ctrl, plant, filters), analysis())
+    return spec, context(spec, [ev])
+
+
+def test_unstable_plant_pole_cancelled_by_controller_zero():
+    k = 5.0
+    c = zpk([1.0], [-10.0], k)  # k (s - 1)/(s + 10)
+    g = zpk([], [1.0], 1.0)  # 1/(s - 1)
+    spec, ctx = ctx_for(c, g)
+    # Independent check: closed loop of G (x' = x + u, y = x) and C (k (1 - 11/(s + 10)):
+    # xc' = -10 xc + e, u = k (e - 11 xc)) with e = -y keeps the eigenvalue +1.
+    a = np.array([[1.0 - k, -11.0 * k], [-1.0, -10.0]])
+    eig = np.linalg.eigvals(a)
+    assert np.max(eig.real) == pytest.approx(1.0)
+    (v,) = hidden_cancellation(ctx, {"tolerance": 1e-6})
+    assert "unstable plant pole" in v.message
+    assert v.location == spec.controller.location and v.related == (PLANT_LOC,)
+    assert v.measured == pytest.approx(0.0) and v.limit == 1e-6
+    assert v.frequency_hz == pytest.approx(1.0 / (2 * math.pi))
+
+
+def test_integrator_cancelled_by_washout_is_marginal():
+    spec, ctx = ctx_for(zpk([0.0], [-1.0], 1.0), zpk([], [0.0], 3.0))
+    (v,) = hidden_cancellation(ctx, {"tolerance": 1e-6})
+    assert "marginal plant pole" in v.message
+
+
+def test_controller_integrator_cancelled_by_plant_zero_at_origin():
+    # PI (s + 10)/s on the plant s/(s + 2): r -> u = C/(1 + L) keeps the pole at 0
+    spec, ctx = ctx_for(zpk([-10.0], [0.0], 1.0), zpk([0.0], [-2.0], 1.0))
+    (v,) = hidden_cancellation(ctx, {"tolerance": 1e-6})
+    assert "pole of velocity" in v.message and v.location == spec.controller.location
+    assert v.related == (PLANT_LOC,)
+
+
+def test_tolerance_is_relative():
+    g = zpk([], [100.0], 1.0)
+    near = zpk([100.0 * (1 + 1e-8)], [-1000.0], 1.0)
+    far = zpk([100.0 * (1 + 1e-3)], [-1000.0], 1.0)
+    assert len(list(hidden_cancellation(ctx_for(near, g)[1], {"tolerance": 1e-6}))) == 1
+    assert list(hidden_cancellation(ctx_for(far, g)[1], {"tolerance": 1e-6})) == []
+    # stable cancellations are fine (a notch on a damped mode)
+    stable = zpk([-3.0 + 40j, -3.0 - 40j], [-500.0, -500.0], 1.0)
+    assert list(hidden_cancellation(ctx_for(stable, zpk([], [-3 + 40j, -3 - 40j], 1.0))[1],
+                                    {"tolerance": 1e-6})) == []
+
+
+def test_sampled_cancellation_of_zoh_pole():
+    h = 1e-3
+    from ruleguard.models.discretize import zoh_equivalent
+
+    g = zoh_equivalent(zpk([], [1.0], 1.0), h)
+    assert np.max(np.abs(g.poles)) == pytest.approx(math.exp(h), rel=1e-12)  # z = e^{p h}
+    c = zpk([math.exp(h)], [0.5], 1.0, h=h)
+    (v,) = hidden_cancellation(ctx_for(c, g, h=h)[1], {"tolerance": 1e-6})
+    assert "unstable plant pole" in v.message
+
+
+def test_measured_plant_is_a_note():
+    spec = loop_spec(controller_entry(kind="transfer_function"))
+    ctrl = block("controller", "velocity", "transfer_function", zpk([1.0], [-10.0], 1.0),
+                 location=spec.controller.location)
+    plant = block("plant", "mechanics (measured_response)", "measured_response", location=PLANT_LOC)
+    w = np.logspace(0, 3, 20)
+    meas = MeasuredResponse(w, np.zeros_like(w), np.zeros_like(w))
+    m = model(spec, ctrl, plant, factors=(meas,))
+    assert isinstance(m.open_loop, OpenLoop)
+    (n,) = hidden_cancellation(context(spec, [evaluation("nominal", m, analysis())]), {})
+    assert n.severity is Severity.NOTE and n.location == PLANT_LOC
