@@ -1,0 +1,426 @@
+"""Whole loops: continuous, sampled, measured, cascades.
+
+Outside references named beside each check:
+* scipy.signal.freqresp of the formulas written out here (continuous loops);
+* scipy.signal.cont2discrete ("bilinear", "backward_diff", "euler", "zoh")
+  for the discretized controller and the ZOH plant with whole-sample delays;
+* the modified z-transform of a first-order plant with a fractional delay,
+  derived in a comment;
+* cascades: closed-loop poles from numpy.linalg.eigvals of a state-space
+  closed loop built independently with scipy.signal.tf2ss, and the closed
+  loop evaluated directly as C F G / (1 + C F G H).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import scipy.signal
+from model_builders import controller, filt, loop, plant, project, vary
+
+from ruleguard.errors import InputError, LoopNotAnalysable
+from ruleguard.load.spec import MeasuredData
+from ruleguard.models.assemble import build_loop, closed_loop_zpk
+from ruleguard.models.discretize import DelayFactor, HoldFactor
+from ruleguard.models.factors import ClosedLoopResponse
+from ruleguard.models.families import Variant, loop_variants
+from ruleguard.models.lti import ZPK
+
+TWO_PI = 2 * math.pi
+NOMINAL = Variant("nominal", {})
+
+
+def polyval_ratio(num, den, x):
+    return np.polyval(num, x) / np.polyval(den, x)
+
+
+def rel_err(a, b):
+    a, b = np.asarray(a), np.asarray(b)
+    return float(np.max(np.abs(a - b) / np.abs(b)))
+
+
+def c2d(num, den, h, method):
+    """scipy.signal.cont2discrete of a transfer function: (numd, dend)."""
+    numd, dend, _ = scipy.signal.cont2discrete((num, den), h, method=method)
+    return np.trim_zeros(np.ravel(numd), "f"), np.ravel(dend)
+
+
+# ------------------------------------------------------------ continuous
+class TestContinuous:
+    def setup_method(self):
+        self.ctrl = controller("pid", kp=2.0, ki=30.0, kd=0.01, derivative_filter_hz=200.0,
+                               filters=[filt("notch", center_hz=60.0, width_hz=15.0,
+                                             depth_db=20.0)])
+        self.motor = plant("motor", "first_order_dead_time", gain=3.0, time_constant_s=0.05,
+                           delay_s=0.004, varied=[vary("gain", 2.0, 4.0)])
+        self.sense = plant("sense", "transfer_function", numerator=[1.0],
+                           denominator=[1 / 2000.0, 1.0], delay_s=0.001)
+
+    def reference(self, w, gain=3.0, extra_delay=0.0):
+        # L = C F G H exp(-j w tau), each factor by scipy.signal.freqresp of its formula
+        wd, w0 = TWO_PI * 200, TWO_PI * 60
+        zp = 15.0 / 120.0
+        zz = zp * 0.1
+        c = (2.0 + scipy.signal.freqresp(([30.0], [1, 0]), w)[1]
+             + scipy.signal.freqresp(([0.01, 0], [1 / wd, 1]), w)[1])
+        f = scipy.signal.freqresp(([1, 2 * zz * w0, w0**2], [1, 2 * zp * w0, w0**2]), w)[1]
+        g = scipy.signal.freqresp(([gain], [0.05, 1]), w)[1]
+        h = scipy.signal.freqresp(([1.0], [1 / 2000.0, 1]), w)[1]
+        return c * f * g * h * np.exp(-1j * w * (0.004 + 0.001 + extra_delay))
+
+    def test_open_loop_is_the_product_with_exact_delay(self):
+        proj = project([self.motor, self.sense],
+                       [loop("a", "motor", self.ctrl, sensor="sense", delay_s=0.0005)])
+        model = build_loop(proj, proj.loops[0], loop_variants(proj, proj.loops[0])[0])
+        w = np.logspace(-1, 4, 300)
+        assert rel_err(model.open_loop.response(w), self.reference(w, extra_delay=5e-4)) < 1e-10
+        assert model.total_delay_s == pytest.approx(0.0055)
+        assert model.open_loop.rational.delay_s == pytest.approx(0.0055)
+        assert model.open_loop.factors == ()
+        assert model.discretization == {}
+        assert model.sample_rate_hz is None
+        assert model.controller.method is None and model.controller.discrete is None
+        assert [b.kind for b in model.filters] == ["notch"]
+        assert model.sensor is not None and model.sensor.kind == "transfer_function"
+        # controller_path = C F
+        ref_cf = self.reference(w, extra_delay=5e-4) / (
+            scipy.signal.freqresp(([3.0], [0.05, 1]), w)[1]
+            * scipy.signal.freqresp(([1.0], [1 / 2000.0, 1]), w)[1]
+            * np.exp(-1j * w * 0.0055))
+        assert rel_err(model.controller_path.response(w), ref_cf) < 1e-10
+
+    def test_variant_values_reach_the_plant(self):
+        proj = project([self.motor, self.sense], [loop("a", "motor", self.ctrl, sensor="sense")])
+        variants = loop_variants(proj, proj.loops[0])
+        assert [v.id for v in variants] == ["nominal", "corner-1", "corner-2"]
+        model = build_loop(proj, proj.loops[0], variants[2])  # gain at its maximum, 4.0
+        w = np.logspace(0, 3, 50)
+        assert rel_err(model.open_loop.response(w), self.reference(w, gain=4.0)) < 1e-10
+
+    def test_unfiltered_derivative_is_not_analysable(self):
+        ctrl = controller("pid", kp=1.0, ki=1.0, kd=0.1)
+        proj = project([self.motor], [loop("a", "motor", ctrl)])
+        with pytest.raises(LoopNotAnalysable) as info:
+            build_loop(proj, proj.loops[0], NOMINAL)
+        assert info.value.rule == "controller.derivative-filter"
+        assert info.value.location.key == "c.kd"
+
+    def test_improper_transfer_function_controller_is_not_analysable(self):
+        ctrl = controller("transfer_function", numerator=[1.0, 2.0, 3.0], denominator=[1.0, 5.0])
+        proj = project([self.motor], [loop("a", "motor", ctrl)])
+        with pytest.raises(LoopNotAnalysable):
+            build_loop(proj, proj.loops[0], NOMINAL)
+
+    def test_z_filter_in_a_continuous_loop_is_an_input_error(self):
+        ctrl = controller("pid", kp=1.0, filters=[filt("biquad", b=[1.0], a=[1.0, -0.5])])
+        proj = project([self.motor], [loop("a", "motor", ctrl)])
+        with pytest.raises(InputError):
+            build_loop(proj, proj.loops[0], NOMINAL)
+
+    def test_delay_samples_without_rate_is_an_input_error(self):
+        proj = project([self.motor], [loop("a", "motor", self.ctrl, delay_samples=1.0)])
+        with pytest.raises(InputError):
+            build_loop(proj, proj.loops[0], NOMINAL)
+
+    def test_measured_plant(self):
+        f = np.logspace(-1, 3, 401)
+        w = TWO_PI * f
+        g = 3.0 / (0.05j * w + 1)
+        data = MeasuredData(tuple(f), tuple(20 * np.log10(np.abs(g))),
+                            tuple(np.degrees(np.unwrap(np.angle(g)))), "m.csv")
+        meas = plant("motor", "measured_response", measured=data, file="m.csv", delay_s=0.004)
+        proj = project([meas, self.sense], [loop("a", "motor", self.ctrl, sensor="sense")])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        assert model.plant.measured is not None and model.plant.continuous is None
+        # at the data points the interpolation is exact: L equals the parametric product
+        assert rel_err(model.open_loop.response(w), self.reference(w)) < 1e-10
+        assert model.total_delay_s == pytest.approx(0.005)
+
+
+# -------------------------------------------------------------- sampled
+class TestSampled:
+    h = 1e-3
+
+    def first_order(self, delay_s):
+        return plant("motor", "first_order_dead_time", gain=2.0, time_constant_s=0.02,
+                     delay_s=delay_s)
+
+    def test_pi_lowpass_zoh_whole_samples_against_cont2discrete(self):
+        ctrl = controller("pid", kp=0.8, ki=40.0, filters=[filt("lowpass1", cutoff_hz=100.0)])
+        proj = project([self.first_order(0.002)],
+                       [loop("a", "motor", ctrl, rate=1000.0, delay_samples=1.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        h = self.h
+        wc = TWO_PI * 100
+        # References: scipy.signal.cont2discrete bilinear (Tustin, the default) for C and F,
+        # zoh for the plant, and z^-3 for 0.002 s + 1 sample at 1 kHz.
+        cn, cd = c2d([0.8, 40.0], [1.0, 0.0], h, "bilinear")
+        fn, fd = c2d([1.0], [1 / wc, 1.0], h, "bilinear")
+        gn, gd = c2d([2.0], [0.02, 1.0], h, "zoh")
+        theta = np.linspace(0.01, math.pi - 0.01, 400)
+        z = np.exp(1j * theta)
+        ref = polyval_ratio(cn, cd, z) * polyval_ratio(fn, fd, z) * polyval_ratio(gn, gd, z) \
+            * z**-3
+        assert rel_err(model.open_loop.response(theta / h), ref) < 1e-9
+        assert model.discretization == {"controller": "tustin", "filters": ["tustin"],
+                                        "plant": "zoh"}
+        assert model.total_delay_s == pytest.approx(0.003)
+        assert any("default" in n for n in model.notes)
+        assert model.open_loop.sample_time_s == h
+        assert model.controller.discrete is not None and model.controller.method == "tustin"
+
+    @pytest.mark.parametrize("fraction", [0.25, 0.6])
+    def test_fractional_delay_modified_z_transform(self, fraction):
+        # Derivation (modified z-transform of K/(T s + 1) with delay (d + f) h):
+        # the held step response S(t) = K (1 - exp(-(t - tau)/T)) for t >= tau, so
+        # S(kh) = K (1 - beta alpha^(k-d-1)) for k >= d + 1, alpha = exp(-h/T),
+        # beta = exp(-h (1 - f)/T); G(z) = (1 - z^-1) Z{S(kh)}
+        #      = K z^-(d+1) ((1 - beta) z + (beta - alpha)) / (z - alpha).
+        K, T, h = 2.0, 0.02, self.h
+        d = 2
+        tau_plant = (d - 1 + fraction) * h  # plus one sample of computation delay
+        ctrl = controller("pid", kp=1.0)
+        proj = project([self.first_order(tau_plant)],
+                       [loop("a", "motor", ctrl, rate=1 / h, delay_samples=1.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        alpha, beta = math.exp(-h / T), math.exp(-h * (1 - fraction) / T)
+        theta = np.linspace(0.01, math.pi - 0.01, 300)
+        z = np.exp(1j * theta)
+        ref = K * z ** -(d + 1) * ((1 - beta) * z + (beta - alpha)) / (z - alpha)
+        assert rel_err(model.open_loop.response(theta / h), ref) < 1e-9
+        assert model.total_delay_s == pytest.approx((d + fraction) * h)
+
+    @pytest.mark.parametrize("method,scipy_method", [("backward_euler", "backward_diff"),
+                                                     ("forward_euler", "euler"),
+                                                     ("tustin", "bilinear")])
+    def test_methods_against_cont2discrete(self, method, scipy_method):
+        ctrl = controller("lead_lag", gain=1.5, zero_hz=20.0, pole_hz=80.0,
+                          discretization=method)
+        proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        wz, wp = TWO_PI * 20, TWO_PI * 80
+        cn, cd = c2d([1.5 / wz, 1.5], [1 / wp, 1.0], self.h, scipy_method)
+        theta = np.linspace(0.01, math.pi - 0.01, 200)
+        ref = polyval_ratio(cn, cd, np.exp(1j * theta))
+        assert rel_err(model.controller_path.response(theta / self.h), ref) < 1e-10
+        assert model.discretization["controller"] == method
+
+    def test_prewarp_per_filter_and_pid_falls_back_to_tustin(self):
+        depth = 30.0
+        ctrl = controller("pid", kp=1.0, ki=5.0, discretization="tustin_prewarp",
+                          filters=[filt("notch", 0, center_hz=300.0, width_hz=40.0,
+                                        depth_db=depth),
+                                   filt("lowpass1", 1, cutoff_hz=200.0,
+                                        discretization="backward_euler")])
+        proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        assert model.discretization == {"controller": "tustin",
+                                        "filters": ["tustin_prewarp", "backward_euler"],
+                                        "plant": "zoh"}
+        # closed form: prewarped Tustin maps j w0 exactly onto exp(j w0 h), so the
+        # discrete notch has its full depth at its centre
+        notch = model.filters[0].discrete
+        w0 = TWO_PI * 300
+        assert 20 * math.log10(abs(notch.response(w0))) == pytest.approx(-depth, abs=1e-9)
+
+    def test_unfiltered_derivative_allowed_in_a_sampled_loop(self):
+        ctrl = controller("pid", kp=1.0, kd=0.002, discretization="backward_euler")
+        proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        # backward Euler: kp + kd (z - 1)/(h z) (definition of the substitution)
+        theta = np.linspace(0.05, 3.0, 50)
+        z = np.exp(1j * theta)
+        ref = 1.0 + 0.002 * (z - 1) / (self.h * z)
+        assert rel_err(model.controller_path.response(theta / self.h), ref) < 1e-12
+        # with Tustin the derivative puts a pole at z = -1 (the rule reports it)
+        ctrl = controller("pid", kp=1.0, kd=0.002)
+        proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        assert np.any(np.abs(model.controller_path.poles + 1) < 1e-12)
+
+    def test_biquad_is_used_as_given(self):
+        ctrl = controller("pid", kp=1.0, filters=[filt("biquad", b=[0.2, 0.4, 0.2],
+                                                       a=[1.0, -0.3, 0.1])])
+        proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        assert model.filters[0].method == "given" and model.filters[0].continuous is None
+        theta = np.linspace(0.05, 3.0, 50)
+        ref = scipy.signal.freqz([0.2, 0.4, 0.2], [1.0, -0.3, 0.1], worN=theta)[1]
+        assert rel_err(model.filters[0].discrete.response(theta / self.h), ref) < 1e-12
+
+    def test_measured_plant_behind_the_hold(self):
+        h = self.h
+        f = np.logspace(-1, math.log10(500.0), 301)
+        w = TWO_PI * f
+        g = 2.0 / (0.02j * w + 1)
+        data = MeasuredData(tuple(f), tuple(20 * np.log10(np.abs(g))),
+                            tuple(np.degrees(np.angle(g))), "m.csv")
+        meas = plant("motor", "measured_response", measured=data, file="m.csv",
+                     delay_s=0.0004)
+        ctrl = controller("pid", kp=0.8, ki=40.0)
+        proj = project([meas], [loop("a", "motor", ctrl, rate=1000.0, delay_samples=1.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        kinds = [type(fac) for fac in model.open_loop.factors]
+        assert HoldFactor in kinds and DelayFactor in kinds
+        assert model.discretization["plant"] == "hold"
+        assert any("aliasing" in n for n in model.notes)
+        # Reference: C_d (cont2discrete bilinear) z^-1 (whole sample of 1.4 samples)
+        # x hold (1 - e^{-j w h})/(j w h) x data x e^{-j w 0.4 h}
+        cn, cd = c2d([0.8, 40.0], [1.0, 0.0], h, "bilinear")
+        z = np.exp(1j * w * h)
+        hold = (1 - np.exp(-1j * w * h)) / (1j * w * h)
+        ref = polyval_ratio(cn, cd, z) / z * hold * g * np.exp(-1j * w * 0.4 * h)
+        assert rel_err(model.open_loop.response(w), ref) < 1e-9
+
+
+# -------------------------------------------------------------- cascades
+def direct_closed_loop(c, g, hsens):
+    """T = C G / (1 + C G H) evaluated directly (the definition, FORMATS.md section 1)."""
+    return c * g / (1 + c * g * hsens)
+
+
+class TestCascades:
+    def entries(self, inner_delay=0.0):
+        winding = plant("winding", "transfer_function", numerator=[1.0],
+                        denominator=[4e-3, 1.3], delay_s=inner_delay)
+        sense = plant("sense", "transfer_function", numerator=[1.0],
+                      denominator=[1 / 5000.0, 1.0])
+        mech = plant("mech", "zero_pole_gain", gain=50.0, zeros=[], poles=[0.0, -2.0])
+        return [winding, sense, mech]
+
+    def test_closed_loop_poles_against_independent_state_space(self):
+        ci = controller("pid", kp=5.0, ki=2000.0)
+        co = controller("pid", path="v", kp=0.4, ki=1.0)
+        proj = project(self.entries(), [loop("cur", "winding", ci, sensor="sense"),
+                                        loop("vel", "mech", co, inner="cur")])
+        model = build_loop(proj, proj.loops[1], NOMINAL)
+        assert model.inner is not None and model.inner.name == "cur"
+        # Independent: L_inner = (5 s + 2000)/s * 1/(4e-3 s + 1.3) * 1/(s/5000 + 1)
+        # multiplied out (order 3), realised by scipy.signal.tf2ss, closed by
+        # A - B C/(1 + D); eigenvalues by numpy.linalg.eigvals.
+        num = [5.0, 2000.0]
+        den = np.polymul(np.polymul([1.0, 0.0], [4e-3, 1.3]), [1 / 5000.0, 1.0])
+        a, b, c, d = scipy.signal.tf2ss(num, den)
+        ref_poles = np.linalg.eigvals(a - b @ c / (1 + d[0, 0]))
+        inner_t = closed_loop_zpk(
+            ZPK([-400.0], [0.0, -1.3 / 4e-3], 5.0 / 4e-3),
+            model.inner.open_loop.rational)
+        np.testing.assert_allclose(np.sort_complex(inner_t.poles), np.sort_complex(ref_poles),
+                                   rtol=1e-9)
+        # T's zeros: the PI zero and the sensor pole (-5000), by the formula
+        np.testing.assert_allclose(np.sort(inner_t.zeros.real), [-5000.0, -400.0], rtol=1e-12)
+        # the outer loop: C_o T G_o, against C F G/(1 + C F G H) evaluated directly
+        w = np.logspace(-1, 5, 300)
+        s = 1j * w
+        ci_w, gi_w, hi_w = (5.0 + 2000.0 / s), 1 / (4e-3 * s + 1.3), 1 / (s / 5000.0 + 1)
+        t_w = direct_closed_loop(ci_w, gi_w, hi_w)
+        ref = (0.4 + 1.0 / s) * t_w * 50.0 / (s * (s + 2.0))
+        assert rel_err(model.open_loop.response(w), ref) < 1e-9
+        assert model.open_loop.factors == ()
+        assert rel_err(inner_t.response(w), t_w) < 1e-9
+
+    def test_continuous_inner_with_delay_is_an_exact_response(self):
+        ci = controller("pid", kp=5.0, ki=2000.0)
+        co = controller("pid", path="v", kp=0.4, ki=1.0)
+        proj = project(self.entries(inner_delay=1e-4),
+                       [loop("cur", "winding", ci, sensor="sense"),
+                        loop("vel", "mech", co, inner="cur")])
+        model = build_loop(proj, proj.loops[1], NOMINAL)
+        factor = model.open_loop.factors[0]
+        assert isinstance(factor, ClosedLoopResponse)
+        w = np.logspace(-1, 5, 300)
+        s = 1j * w
+        gi = np.exp(-1e-4 * s) / (4e-3 * s + 1.3)
+        t_w = direct_closed_loop(5.0 + 2000.0 / s, gi, 1 / (s / 5000.0 + 1))
+        assert rel_err(factor.response(w), t_w) < 1e-12
+        ref = (0.4 + 1.0 / s) * t_w * 50.0 / (s * (s + 2.0))
+        assert rel_err(model.open_loop.response(w), ref) < 1e-11
+
+    def test_same_rate_sampled_cascade(self):
+        h = 1e-3
+        ci = controller("pid", kp=0.5, ki=200.0)
+        co = controller("pid", path="v", kp=0.4, ki=1.0)
+        proj = project(self.entries(), [loop("cur", "winding", ci, sensor="sense", rate=1 / h,
+                                             delay_samples=1.0),
+                                        loop("vel", "mech", co, inner="cur", rate=1 / h,
+                                             delay_samples=1.0)])
+        model = build_loop(proj, proj.loops[1], NOMINAL)
+        assert model.open_loop.factors == ()
+        # References (scipy.signal.cont2discrete): C_i, C_o bilinear; the inner forward path
+        # ZOH(G_i) z^-1 and the inner loop ZOH(G_i H_i) z^-1; the outer plant ZOH(G_o) z^-1.
+        cin, cid = c2d([0.5, 200.0], [1.0, 0.0], h, "bilinear")
+        con, cod = c2d([0.4, 1.0], [1.0, 0.0], h, "bilinear")
+        gn, gd = c2d([1.0], [4e-3, 1.3], h, "zoh")
+        ghn, ghd = c2d([1.0], np.polymul([4e-3, 1.3], [1 / 5000.0, 1.0]), h, "zoh")
+        mn, md = c2d([50.0], [1.0, 2.0, 0.0], h, "zoh")
+        theta = np.linspace(0.02, math.pi - 0.02, 300)
+        z = np.exp(1j * theta)
+        ci_z = polyval_ratio(cin, cid, z)
+        t_z = ci_z * polyval_ratio(gn, gd, z) / z / (1 + ci_z * polyval_ratio(ghn, ghd, z) / z)
+        ref = polyval_ratio(con, cod, z) * t_z * polyval_ratio(mn, md, z) / z
+        assert rel_err(model.open_loop.response(theta / h), ref) < 1e-8
+        assert any("same rate" in n for n in model.notes)
+
+    def test_same_rate_inner_with_integrating_plant_has_unit_dc_gain(self):
+        # An inner P loop around an integrator with a first-order sensor: T(1) = 1/H(0) = 1
+        # at DC (closed form: at z = 1 the loop gain is infinite), and the forward-path
+        # integrator cancels exactly against its copy in L (no pole left at z = 1).
+        h = 1e-3
+        vel = plant("vel", "integrator_dead_time", gain=100.0)
+        sense = plant("sense", "first_order_dead_time", gain=1.0, time_constant_s=2e-3)
+        pos = plant("pos", "integrator_dead_time", gain=1.0)
+        ci = controller("pid", kp=3.0)
+        co = controller("pid", path="p", kp=2.0)
+        proj = project([vel, sense, pos], [
+            loop("v", "vel", ci, sensor="sense", rate=1 / h),
+            loop("p", "pos", co, inner="v", rate=1 / h)])
+        model = build_loop(proj, proj.loops[1], NOMINAL)
+        rational = model.open_loop.rational
+        at_one = np.abs(rational.poles - 1.0) < 1e-9
+        assert int(np.count_nonzero(at_one)) == 1  # only the outer integrator
+        w = 1e-3
+        # |L| ~ kp_o * T(1) * (ZOH of 1/s ~ h/(z - 1)) -> kp_o * 1 / (w) at low frequency
+        assert abs(model.open_loop.response(w)) * w == pytest.approx(2.0, rel=1e-3)
+
+    def test_different_rates_inner_seen_through_its_response(self):
+        hi, ho = 1 / 8000.0, 1e-3
+        ci = controller("pid", kp=0.5, ki=200.0)
+        co = controller("pid", path="v", kp=0.4, ki=1.0)
+        proj = project(self.entries(), [loop("cur", "winding", ci, rate=1 / hi),
+                                        loop("vel", "mech", co, inner="cur", rate=1 / ho,
+                                             delay_samples=0.5)])
+        model = build_loop(proj, proj.loops[1], NOMINAL)
+        assert model.discretization["plant"] == "hold"
+        assert any("Nyquist" in n and "aliasing" in n for n in model.notes)
+        # Reference: C_o(e^{jwh_o}) hold_o(w) e^{-jw 0.5 h_o} T_i(e^{jw h_i}) G_o(jw), with
+        # T_i = C_i G_i^zoh/(1 + C_i G_i^zoh) at the inner rate (scipy.signal.cont2discrete).
+        cin, cid = c2d([0.5, 200.0], [1.0, 0.0], hi, "bilinear")
+        gn, gd = c2d([1.0], [4e-3, 1.3], hi, "zoh")
+        con, cod = c2d([0.4, 1.0], [1.0, 0.0], ho, "bilinear")
+        w = np.linspace(0.5, 0.99 * math.pi / ho, 300)
+        zi, zo = np.exp(1j * w * hi), np.exp(1j * w * ho)
+        li = polyval_ratio(cin, cid, zi) * polyval_ratio(gn, gd, zi)
+        t_i = li / (1 + li)
+        hold = (1 - np.exp(-1j * w * ho)) / (1j * w * ho)
+        go = 50.0 / (1j * w * (1j * w + 2.0))
+        ref = polyval_ratio(con, cod, zo) * hold * np.exp(-0.5j * w * ho) * t_i * go
+        assert rel_err(model.open_loop.response(w), ref) < 1e-8
+
+    def test_inner_not_analysable_propagates(self):
+        ci = controller("pid", kp=5.0, kd=0.1)
+        co = controller("pid", path="v", kp=0.4)
+        proj = project(self.entries(), [loop("cur", "winding", ci),
+                                        loop("vel", "mech", co, inner="cur")])
+        with pytest.raises(LoopNotAnalysable) as info:
+            build_loop(proj, proj.loops[1], NOMINAL)
+        assert "inner loop 'cur'" in info.value.reason
+        assert info.value.rule == "controller.derivative-filter"
+
+    def test_cascade_cycle_is_an_input_error(self):
+        c = controller("pid", kp=1.0)
+        proj = project(self.entries(), [loop("a", "winding", c, inner="b"),
+                                        loop("b", "mech", c, inner="a")])
+        with pytest.raises(InputError):
+            build_loop(proj, proj.loops[0], NOMINAL)
