@@ -80,8 +80,8 @@ class TestClosedLoop:
 
 
 class TestEncirclements:
-    def test_default_required_is_open_loop_unstable_poles(self):
-        ctx = context(analysis(Stability(True, 1, 1, 0)))
+    def test_stated_count_met_by_unstable_plant(self):
+        ctx = context(analysis(Stability(True, 1, 1, 0)), spec=loop_spec(required_ccw=1))
         assert run("stability.encirclements", ctx) == []
 
     def test_required_ccw_mismatch_fails(self):
@@ -99,18 +99,27 @@ class TestEncirclements:
         ctx = context(analysis(Stability(True, 1, 1, 0)), spec=spec)
         assert run("stability.encirclements", ctx) == []
 
-    def test_mismatch_against_p_fails_with_worst_variant(self):
+    def test_mismatch_with_worst_variant(self):
+        spec = loop_spec(required_ccw=2)
         ctx = context(
             analysis(Stability(True, 2, 2, 0)),
             analysis(Stability(False, 2, 1, 1)),
             analysis(Stability(False, 2, -1, 3)),
+            spec=spec,
         )
         (v,) = run("stability.encirclements", ctx)
         assert v.variant == "corner-2"
         assert v.measured == -1.0 and v.limit == 2.0
 
+    def test_without_required_ccw_defers_to_closed_loop(self):
+        # required = P, and ccw != P is exactly Z != 0: one finding, from
+        # stability.closed-loop, not two
+        ctx = context(analysis(Stability(False, 2, 1, 1)))
+        assert run("stability.encirclements", ctx) == []
+        assert len(run("stability.closed-loop", ctx)) == 1
+
     def test_uncounted_gives_note(self):
-        ctx = context(analysis(through_minus_one()))
+        ctx = context(analysis(through_minus_one()), spec=loop_spec(required_ccw=0))
         (v,) = run("stability.encirclements", ctx)
         assert v.severity is Severity.NOTE
         assert "passes through -1" in v.message

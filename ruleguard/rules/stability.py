@@ -92,6 +92,10 @@ def encirclements(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
     if not ctx.evaluations:
         yield note(ctx, "encirclements not counted: no variant of the loop was analysed")
         return
+    if getattr(ctx.spec, "required_ccw", None) is None:
+        # The required count is then P, and ccw != P is exactly Z != 0: the
+        # finding of stability.closed-loop. No second finding for one fact.
+        return
     uncounted = []
     failing = []
     for ev in ctx.evaluations:
@@ -176,7 +180,9 @@ RULES: tuple[RuleSpec, ...] = (
             "poles; the `unstable_poles` the user declared decides P and hence the verdict "
             "of stability.closed-loop. Stating the expected count as `required_ccw` makes "
             "an independent cross-check: a wrong declaration, or a plant that changed, "
-            "shows up here.\n\n"
+            "shows up here. Without `required_ccw` the required number is P, and a "
+            "mismatch is exactly an unstable closed loop: stability.closed-loop reports "
+            "it and this rule adds no second finding.\n\n"
             "How to fix it: check the declared unstable poles of measured plants and the "
             "loop's `required_ccw`; if both are right the loop is unstable (see "
             "stability.closed-loop)."
