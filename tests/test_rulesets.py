@@ -1,0 +1,298 @@
+"""Ruleset files: built-ins, extends chains, validation against the rules table."""
+
+from __future__ import annotations
+
+import datetime
+import json
+import textwrap
+
+import pytest
+from rule_cases import analysis, context, loop_spec, project
+
+from ruleguard.errors import InputError
+from ruleguard.load.rulesets import builtin_names, load_ruleset
+from ruleguard.location import Location
+from ruleguard.rules.base import Severity
+from ruleguard.rules.catalog import RULES
+from ruleguard.rules.engine import effective_rules, evaluate
+
+ORIGIN = Location("ruleguard.toml", 3, 1, "project.ruleset")
+BUILTINS = ("baseline", "motion", "process", "power", "flight")
+
+
+def write(tmp_path, name: str, text: str) -> None:
+    path = tmp_path / name
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(textwrap.dedent(text).lstrip("\n"), encoding="utf-8")
+
+
+def load(tmp_path, ref: str):
+    return load_ruleset(str(tmp_path), ref, ORIGIN)
+
+
+def error_of(tmp_path, ref: str) -> InputError:
+    with pytest.raises(InputError) as err:
+        load(tmp_path, ref)
+    return err.value
+
+
+class TestBuiltins:
+    def test_every_builtin_is_shipped(self):
+        assert set(BUILTINS) <= set(builtin_names())
+
+    @pytest.mark.parametrize("name", BUILTINS)
+    def test_loads_and_extends_baseline(self, tmp_path, name):
+        rs = load(tmp_path, name)
+        assert rs.name == name
+        assert rs.file == f"<builtin>/{name}.toml"
+        assert rs.files[0] == "<builtin>/baseline.toml"
+        assert rs.files[-1] == rs.file
+
+    def test_baseline_states_the_catalog_defaults(self, tmp_path):
+        # RULES.md: the baseline ruleset holds the catalog's default thresholds
+        rs = load(tmp_path, "baseline")
+        for rule_id, rule in RULES.items():
+            setting = rs.rules.get(rule_id)
+            assert setting is not None, f"baseline does not mention {rule_id}"
+            assert setting.severity is rule.default_severity, rule_id
+            for name, value in setting.parameters.items():
+                assert value == rule.defaults()[name], (rule_id, name)
+            for p in rule.parameters:
+                if p.default is not None:
+                    assert p.name in setting.parameters, (rule_id, p.name)
+
+    def test_every_builtin_threshold_has_a_source_comment(self):
+        from importlib import resources
+
+        for name in BUILTINS:
+            text = resources.files("ruleguard.rulesets").joinpath(f"{name}.toml").read_text()
+            for number, line in enumerate(text.splitlines(), 1):
+                code = line.split("#", 1)[0]
+                if "=" in code and not code.strip().startswith(("name", "extends",
+                                                                "description", "severity",
+                                                                "tags", "loops")):
+                    assert "#" in line, f"{name}.toml line {number} has no source comment"
+
+    def test_flight_schedules_by_mode_frequency(self, tmp_path):
+        rs = load(tmp_path, "flight")
+        mid = effective_rules(rs, "pitch.rate", crossover_hz=1.0)
+        low = effective_rules(rs, "pitch.attitude", crossover_hz=0.03)
+        structural = effective_rules(rs, "wing.bending", ("structural",), crossover_hz=8.0)
+        assert (mid["margin.gain"].parameters["min_db"],
+                mid["margin.phase"].parameters["min_deg"]) == (6.0, 45.0)
+        assert (low["margin.gain"].parameters["min_db"],
+                low["margin.phase"].parameters["min_deg"]) == (4.5, 30.0)
+        assert (structural["margin.gain"].parameters["min_db"],
+                structural["margin.phase"].parameters["min_deg"]) == (8.0, 60.0)
+
+    def test_motion_sets_delay_in_samples(self, tmp_path):
+        rs = load(tmp_path, "motion")
+        assert rs.rules["margin.delay"].parameters["min_samples"] == 1.0
+        assert rs.rules["margin.delay"].locations["min_samples"].file == "<builtin>/motion.toml"
+
+
+class TestUserFiles:
+    def test_toml_and_json_agree(self, tmp_path):
+        write(tmp_path, "a.toml", """
+            [ruleset]
+            name = "house"
+            extends = "motion"
+            [rules."margin.phase"]
+            min_deg = 45.0
+            [[waivers]]
+            rule = "margin.gain"
+            loops = ["pan.position"]
+            reason = "reviewed"
+            expires = 2027-03-01
+        """)
+        (tmp_path / "a.json").write_text(json.dumps({
+            "ruleset": {"name": "house", "extends": "motion"},
+            "rules": {"margin.phase": {"min_deg": 45.0}},
+            "waivers": [{"rule": "margin.gain", "loops": ["pan.position"],
+                         "reason": "reviewed", "expires": "2027-03-01"}],
+        }, indent=2))
+        a, b = load(tmp_path, "a.toml"), load(tmp_path, "a.json")
+        assert a.rules["margin.phase"].parameters == b.rules["margin.phase"].parameters
+        assert a.waivers[0].expires == b.waivers[0].expires == datetime.date(2027, 3, 1)
+        assert b.rules["margin.phase"].locations["min_deg"].file == "a.json"
+        assert b.rules["margin.phase"].locations["min_deg"].line is not None
+
+    def test_extends_chain_by_path_later_wins(self, tmp_path):
+        write(tmp_path, "policy/company.toml", """
+            [ruleset]
+            extends = "baseline"
+            [rules."margin.phase"]
+            min_deg = 40.0
+            severity = "warning"
+            [rules."margin.gain"]
+            min_db = 9.0
+        """)
+        write(tmp_path, "policy/team.toml", """
+            [ruleset]
+            extends = "company.toml"
+            [rules."margin.phase"]
+            min_deg = 50.0
+        """)
+        rs = load(tmp_path, "policy/team.toml")
+        assert rs.files == ("<builtin>/baseline.toml", "policy/company.toml",
+                            "policy/team.toml")
+        phase = rs.rules["margin.phase"]
+        assert phase.parameters["min_deg"] == 50.0
+        assert phase.severity is Severity.WARNING  # kept from company.toml
+        assert phase.locations["min_deg"].file == "policy/team.toml"
+        assert phase.locations["severity"].file == "policy/company.toml"
+        assert rs.rules["margin.gain"].parameters == {"min_db": 9.0, "min_lower_db": 6.0}
+
+    def test_extends_cycle(self, tmp_path):
+        write(tmp_path, "a.toml", '[ruleset]\nextends = "b.toml"\n')
+        write(tmp_path, "b.toml", '[ruleset]\nextends = "a.toml"\n')
+        err = error_of(tmp_path, "a.toml")
+        assert "cycle" in err.message and "a.toml -> b.toml -> a.toml" in err.message
+        assert (err.file, err.line, err.key) == ("b.toml", 2, "ruleset.extends")
+
+    def test_self_extension_is_a_cycle(self, tmp_path):
+        write(tmp_path, "a.toml", '[ruleset]\nextends = "a.toml"\n')
+        err = error_of(tmp_path, "a.toml")
+        assert "cycle" in err.message and err.file == "a.toml"
+
+    def test_unknown_builtin(self, tmp_path):
+        err = error_of(tmp_path, "motoin")
+        assert "motion" in err.message and err.location == ORIGIN
+
+    def test_path_outside_the_project(self, tmp_path):
+        inside = tmp_path / "proj"
+        inside.mkdir()
+        write(tmp_path, "evil.toml", '[ruleset]\nname = "x"\n')
+        with pytest.raises(InputError):
+            load_ruleset(str(inside), "../evil.toml", ORIGIN)
+
+    def test_unknown_rule_with_suggestion(self, tmp_path):
+        write(tmp_path, "r.toml", '[rules."margin.phse"]\nmin_deg = 45.0\n')
+        err = error_of(tmp_path, "r.toml")
+        assert "margin.phase" in err.message
+        assert (err.file, err.line) == ("r.toml", 1)
+
+    def test_unknown_parameter_with_suggestion(self, tmp_path):
+        write(tmp_path, "r.toml", '[rules."margin.phase"]\nmin_degs = 45.0\n')
+        err = error_of(tmp_path, "r.toml")
+        assert "min_deg" in err.message and "min_degs" in err.message
+        assert (err.line, err.key) == (2, 'rules."margin.phase".min_degs')
+
+    def test_parameter_type_and_range(self, tmp_path):
+        write(tmp_path, "r.toml", '[rules."margin.phase"]\nmin_deg = "45"\n')
+        assert "must be a number" in error_of(tmp_path, "r.toml").message
+        write(tmp_path, "r.toml", '[rules."margin.phase"]\nmin_deg = -5.0\n')
+        assert ">= 0" in error_of(tmp_path, "r.toml").message
+        write(tmp_path, "r.toml", '[rules."steady-state.type"]\nmin_integrators = 1.5\n')
+        assert "integer" in error_of(tmp_path, "r.toml").message
+
+    def test_override_parameters_validated(self, tmp_path):
+        write(tmp_path, "r.toml", """
+            [[overrides]]
+            loops = ["pan.*"]
+            rules = { "margin.gain" = { min_dB = 3.0 } }
+        """)
+        err = error_of(tmp_path, "r.toml")
+        assert "min_db" in err.message and err.line == 3
+
+    def test_bad_severity(self, tmp_path):
+        write(tmp_path, "r.toml", '[rules."margin.phase"]\nseverity = "fatal"\n')
+        err = error_of(tmp_path, "r.toml")
+        assert "error" in err.message and err.line == 2
+
+    def test_closed_loop_off_in_an_override(self, tmp_path):
+        write(tmp_path, "r.toml", """
+            [[overrides]]
+            loops = ["*"]
+            rules = { "stability.closed-loop" = { severity = "off" } }
+        """)
+        assert "cannot be turned off" in error_of(tmp_path, "r.toml").message
+
+    @pytest.mark.parametrize(
+        "waiver, words",
+        [
+            ('rule = "margin.gain"\nloops = ["a"]\nexpires = 2027-01-01', "reason"),
+            ('rule = "margin.gain"\nloops = ["a"]\nreason = "  "\nexpires = 2027-01-01',
+             "reason"),
+            ('rule = "margin.gain"\nloops = ["a"]\nreason = "ok"\nexpires = 2027-01-01T10:00:00',
+             "date"),
+            ('rule = "margin.gian"\nloops = ["a"]\nreason = "ok"\nexpires = 2027-01-01',
+             "margin.gain"),
+            ('rule = "margin.gain"\nloops = ["a"]\nreason = "ok"\nexpires = "2027-02-30"',
+             "calendar date"),
+            ('rule = "margin.gain"\nloops = []\nreason = "ok"\nexpires = 2027-01-01', "1"),
+        ],
+    )
+    def test_bad_waivers(self, tmp_path, waiver, words):
+        write(tmp_path, "r.toml", "[[waivers]]\n" + waiver + "\n")
+        err = error_of(tmp_path, "r.toml")
+        assert words in err.message
+        assert err.file == "r.toml" and err.line is not None
+
+    def test_unknown_top_level_key(self, tmp_path):
+        write(tmp_path, "r.toml", '[waiver]\nrule = "margin.gain"\n')
+        err = error_of(tmp_path, "r.toml")
+        assert "waivers" in err.message
+
+    def test_builtin_cannot_extend_a_path(self, tmp_path):
+        # only reachable through the loader's own guard: a built-in names a path
+        from ruleguard.load.rulesets import _Loader
+
+        with pytest.raises(InputError):
+            _Loader(str(tmp_path))._document(
+                "x.toml", Location("<builtin>/motion.toml", 9, 1, "ruleset.extends"), ""
+            )
+
+    def test_fingerprint_follows_content(self, tmp_path):
+        write(tmp_path, "r.toml", '[rules."margin.phase"]\nmin_deg = 45.0\n')
+        first = load(tmp_path, "r.toml").fingerprint()
+        assert first == load(tmp_path, "r.toml").fingerprint()
+        write(tmp_path, "r.toml", '[rules."margin.phase"]\nmin_deg = 46.0\n')
+        assert load(tmp_path, "r.toml").fingerprint() != first
+        assert load(tmp_path, "r.toml").severity_of("margin.phase") is Severity.ERROR
+
+
+def test_one_short_file_expresses_a_team_policy(tmp_path):
+    """Issue "full rule catalog": "45 deg everywhere, 35 deg on process loops, one
+    reviewed exception until March" is one short ruleset file that works."""
+    write(tmp_path, "policy.toml", """
+        [ruleset]
+        extends = "baseline"
+
+        [rules."margin.phase"]
+        min_deg = 45.0
+
+        [[overrides]]
+        tags = ["process"]
+        rules = { "margin.phase" = { min_deg = 35.0 } }
+
+        [[waivers]]
+        rule = "margin.phase"
+        loops = ["pan.position"]
+        reason = "fixture-limited travel; accepted at the November design review"
+        expires = 2027-03-31
+    """)
+    assert len((tmp_path / "policy.toml").read_text().splitlines()) <= 16
+    rs = load(tmp_path, "policy.toml")
+    servo = loop_spec("tilt.velocity", tags=("motion",), path="tv")
+    oven = loop_spec("oven.zone", tags=("process",), path="oz")
+    pan = loop_spec("pan.position", tags=("motion",), path="pp")
+    proj = project(servo, oven, pan)
+    pm40 = analysis(phase_margin_deg=40.0)
+    contexts = [context(pm40, spec=s, proj=proj) for s in (servo, oven, pan)]
+    only = ("margin.phase", "waiver")
+
+    march = evaluate(contexts, rs, only=only, today=datetime.date(2027, 3, 31))
+    assert [(f.loop, f.rule, f.waived) for f in march] == [
+        ("tilt.velocity", "margin.phase", False),  # 40 < 45
+        ("pan.position", "margin.phase", True),  # the reviewed exception
+    ]
+    assert march[0].limit == 45.0
+    assert any(loc.file == "policy.toml" and loc.line == 5 for loc in march[0].related)
+
+    april = evaluate(contexts, rs, only=only, today=datetime.date(2027, 4, 1))
+    assert [(f.loop, f.rule, f.waived) for f in april] == [
+        ("tilt.velocity", "margin.phase", False),
+        ("pan.position", "margin.phase", False),
+        (None, "waiver.expired", False),
+    ]
