@@ -408,6 +408,37 @@ class TestCascades:
         ref = polyval_ratio(con, cod, zo) * hold * np.exp(-0.5j * w * ho) * t_i * go
         assert rel_err(model.open_loop.response(w), ref) < 1e-8
 
+    def test_same_rate_inner_with_measured_plant(self):
+        # The inner closed loop is known by its response (measured plant behind the hold);
+        # at the same rate it multiplies the exact ZOH equivalent of the outer plant.
+        h = 1e-3
+        f = np.logspace(-1, math.log10(500.0), 401)
+        wdata = TWO_PI * f
+        g = 1 / (4e-3j * wdata + 1.3)
+        data = MeasuredData(tuple(f), tuple(20 * np.log10(np.abs(g))),
+                            tuple(np.degrees(np.angle(g))), "w.csv")
+        winding = plant("winding", "measured_response", measured=data, file="w.csv")
+        mech = plant("mech", "zero_pole_gain", gain=50.0, zeros=[], poles=[0.0, -2.0])
+        ci = controller("pid", kp=0.5, ki=200.0)
+        co = controller("pid", path="v", kp=0.4, ki=1.0)
+        proj = project([winding, mech], [loop("cur", "winding", ci, rate=1 / h),
+                                         loop("vel", "mech", co, inner="cur", rate=1 / h)])
+        model = build_loop(proj, proj.loops[1], NOMINAL)
+        assert model.discretization["plant"] == "zoh"
+        assert [type(x) for x in model.open_loop.factors] == [ClosedLoopResponse]
+        # Reference: T_i = C_i hold G / (1 + C_i hold G) with C_i by cont2discrete bilinear
+        # and the hold (1 - e^{-jwh})/(jwh); the outer plant ZOH by cont2discrete.
+        cin, cid = c2d([0.5, 200.0], [1.0, 0.0], h, "bilinear")
+        con, cod = c2d([0.4, 1.0], [1.0, 0.0], h, "bilinear")
+        mn, md = c2d([50.0], [1.0, 2.0, 0.0], h, "zoh")
+        w = wdata[(wdata > 1.0) & (wdata < 0.99 * math.pi / h)]
+        gw = 1 / (4e-3j * w + 1.3)
+        z = np.exp(1j * w * h)
+        hold = (1 - np.exp(-1j * w * h)) / (1j * w * h)
+        li = polyval_ratio(cin, cid, z) * hold * gw
+        ref = polyval_ratio(con, cod, z) * li / (1 + li) * polyval_ratio(mn, md, z)
+        assert rel_err(model.open_loop.response(w), ref) < 1e-9
+
     def test_inner_not_analysable_propagates(self):
         ci = controller("pid", kp=5.0, kd=0.1)
         co = controller("pid", path="v", kp=0.4)

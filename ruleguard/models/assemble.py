@@ -48,9 +48,11 @@ Cascades (``inner = "name"``)
     * inner continuous with a delay, or with measured data: a
       :class:`~ruleguard.models.factors.ClosedLoopResponse` evaluating ``T``
       exactly;
-    * same domain and rate: ``T`` is composed with the outer path in z; a
-      continuous rational ``T`` in a discrete outer loop is part of the
-      continuous path whose exact ZOH equivalent is taken;
+    * same domain and rate: ``T`` is composed with the outer path in z (a
+      sampled ``T`` known only by its response multiplies the exact ZOH
+      equivalent of the outer plant); a continuous rational ``T`` in a
+      discrete outer loop is part of the continuous path whose exact ZOH
+      equivalent is taken;
     * different rates (inner faster): the outer loop sees
       ``T(exp(j w h_inner))`` as a response factor behind the outer hold
       (valid below the inner Nyquist frequency; aliasing ignored, said in
@@ -339,7 +341,8 @@ def _discrete_path(controller_path: ZPK, inner_t, plant, sensor, delay_s: float,
 
     rational = controller_path
     continuous: list[ZPK] = []
-    responses: list = []
+    same_rate: list = []  # z-domain responses at this rate: multiplied as they are
+    responses: list = []  # continuous-time responses: seen through the hold
     for piece in (inner_t, plant, sensor):
         if piece is None:
             continue
@@ -349,6 +352,8 @@ def _discrete_path(controller_path: ZPK, inner_t, plant, sensor, delay_s: float,
             continuous.append(piece.without_delay())
         elif isinstance(piece, ZPK):
             responses.append(BlockResponse(piece))
+        elif isinstance(piece, ClosedLoopResponse) and _same_rate(piece.loop.sample_time_s, h):
+            same_rate.append(piece)
         else:
             responses.append(piece)
     if not responses:
@@ -356,7 +361,7 @@ def _discrete_path(controller_path: ZPK, inner_t, plant, sensor, delay_s: float,
         for piece in continuous:
             path = path * piece
         zoh = zoh_equivalent(path, h, delay_s)
-        return OpenLoop(rational * zoh, ()), zoh, "zoh"
+        return OpenLoop(rational * zoh, tuple(same_rate)), zoh, "zoh"
     whole, fraction = split_delay(delay_s, h)
     if whole:
         rational = rational * ZPK([], np.zeros(whole), 1.0, 0.0, h)
@@ -364,6 +369,7 @@ def _discrete_path(controller_path: ZPK, inner_t, plant, sensor, delay_s: float,
     if fraction:
         factors.append(DelayFactor(fraction * h))
     factors.extend(BlockResponse(piece) for piece in continuous)
+    factors.extend(same_rate)
     factors.extend(responses)
     notes.append("the plant path is known by its frequency response: hold factor times the "
                  f"continuous response ({ALIASING_NOTE})")
@@ -485,7 +491,11 @@ def _cascade_notes(inner: LoopModel, inner_t, h: float | None) -> list[str]:
         notes.append(f"inner loop {inner.name!r} is sampled and this loop is continuous: its "
                      f"closed loop enters through T(exp(j w h_inner)) ({ALIASING_NOTE})")
     elif h is not None and h_inner is not None:
-        if _same_rate(h, h_inner):
+        if _same_rate(h, h_inner) and isinstance(inner_t, ClosedLoopResponse):
+            notes.append(f"inner loop {inner.name!r} at the same rate: its closed loop "
+                         "T(exp(j w h)) multiplies the ZOH equivalent of this loop's plant; "
+                         "the inner plant's output is taken as held between samples")
+        elif _same_rate(h, h_inner):
             notes.append(f"inner loop {inner.name!r} at the same rate: composed exactly in z; "
                          "the inner plant's output is taken as held between samples")
         else:
