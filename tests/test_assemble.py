@@ -455,3 +455,52 @@ class TestCascades:
                                         loop("b", "mech", c, inner="a")])
         with pytest.raises(InputError):
             build_loop(proj, proj.loops[0], NOMINAL)
+
+
+# ------------------------------------------------- built loops, analysed
+class TestBuiltLoopsAnalysed:
+    """Built loops handed to the analysis give the verdicts of independent references."""
+
+    def test_routh_hurwitz_critical_gain(self):
+        # Routh-Hurwitz on s^3 + 3 s^2 + 2 s + K: stable for 0 < K < 6, the boundary
+        # at s = +- j sqrt(2); so K = 1.5 has a gain margin of 20 log10(4) dB at
+        # sqrt(2)/(2 pi) Hz.
+        from ruleguard.analysis.margins import analyse_open_loop
+
+        g = plant("g", "zero_pole_gain", gain=1.0, zeros=[], poles=[0.0, -1.0, -2.0])
+        proj = project([g], [loop("a", "g", controller("pid", kp=1.5))])
+        analysis = analyse_open_loop(build_loop(proj, proj.loops[0], NOMINAL).open_loop)
+        assert analysis.stability.stable
+        assert analysis.margins.gain_margin_db == pytest.approx(20 * math.log10(4.0), rel=1e-6)
+        assert analysis.margins.gain_margin_hz == pytest.approx(math.sqrt(2) / TWO_PI, rel=1e-6)
+
+    @staticmethod
+    def sampled_case(seed):
+        # Reference: roots of the closed-loop characteristic polynomial
+        # den_C den_G z^d + num_C num_G (scipy.signal.cont2discrete for C and G,
+        # numpy.roots; order <= 5 here, where numpy.roots is reliable).
+        rng = np.random.default_rng(seed)
+        h = 1e-3
+        kp, ki = rng.uniform(0.1, 20.0), rng.uniform(1.0, 400.0)
+        tau_t = rng.uniform(0.002, 0.05)
+        d = int(rng.integers(0, 3))
+        g = plant("g", "first_order_dead_time", gain=2.0, time_constant_s=tau_t)
+        proj = project([g], [loop("a", "g", controller("pid", kp=kp, ki=ki), rate=1 / h,
+                                  delay_samples=float(d))])
+        cn, cd = c2d([kp, ki], [1.0, 0.0], h, "bilinear")
+        gn, gd = c2d([2.0], [tau_t, 1.0], h, "zoh")
+        den = np.polymul(np.polymul(cd, gd), np.r_[1.0, np.zeros(d)])
+        char = np.polyadd(den, np.polymul(cn, gn))
+        return proj, bool(np.all(np.abs(np.roots(char)) < 1.0))
+
+    def test_sampled_cases_mix_stable_and_unstable(self):
+        verdicts = [self.sampled_case(seed)[1] for seed in range(16)]
+        assert 3 <= sum(verdicts) <= 13
+
+    @pytest.mark.parametrize("seed", range(16))
+    def test_sampled_pi_verdict_against_characteristic_roots(self, seed):
+        from ruleguard.analysis.margins import analyse_open_loop
+
+        proj, stable = self.sampled_case(seed)
+        analysis = analyse_open_loop(build_loop(proj, proj.loops[0], NOMINAL).open_loop)
+        assert analysis.stability.stable == stable
