@@ -225,6 +225,15 @@ class TestSampled:
         w0 = TWO_PI * 300
         assert 20 * math.log10(abs(notch.response(w0))) == pytest.approx(-depth, abs=1e-9)
 
+    def test_prewarp_at_or_above_nyquist_falls_back_with_a_note(self):
+        ctrl = controller("pid", kp=1.0, discretization="tustin_prewarp",
+                          filters=[filt("notch", center_hz=700.0, width_hz=50.0,
+                                        depth_db=20.0)])
+        proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        assert model.discretization["filters"] == ["tustin"]
+        assert any("Nyquist" in n and "plain Tustin" in n for n in model.notes)
+
     def test_unfiltered_derivative_allowed_in_a_sampled_loop(self):
         ctrl = controller("pid", kp=1.0, kd=0.002, discretization="backward_euler")
         proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])

@@ -20,7 +20,8 @@ Discrete loop (``sample_rate_hz`` set, h = 1/rate)
       characteristic frequency (notch centre, low-pass cutoff, lead-lag
       sqrt(zero_hz pole_hz)); a PID or transfer function without
       ``prewarp_hz`` gets plain Tustin and is reported as ``"tustin"`` (the
-      method used). Biquads and z transfer functions are used as given
+      method used); so does a block whose prewarp frequency is not below the
+      Nyquist frequency (with a note). Biquads and z transfer functions are used as given
       (``"given"``).
     * Plant x sensor x transport delay is replaced by its exact zero-order
       hold equivalent (:func:`ruleguard.models.discretize.zoh_equivalent`),
@@ -171,6 +172,9 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
                 own = _method(own, entry.field_locations.get("discretization", entry.location))
         method_asked = own or default_method
         run, method = _run_block(block, method_asked, h)
+        if method_asked == "tustin_prewarp" and method == "tustin" and block.prewarp_hz:
+            notes.append(f"{label}: prewarp frequency {block.prewarp_hz:g} Hz is not below the "
+                         "Nyquist frequency; plain Tustin used")
         if method == "forward_euler" and not run.is_proper:
             notes.append(f"{label}: forward Euler leaves the unfiltered derivative non-causal")
         run_blocks.append(run)
@@ -306,14 +310,13 @@ def _run_block(block: DesignedBlock, method: str, h: float | None) -> tuple[ZPK,
     prewarp = None
     used = method
     if method == "tustin_prewarp":
-        if block.prewarp_hz is None:
+        if block.prewarp_hz is None or not 2.0 * math.pi * block.prewarp_hz < math.pi / h:
+            # No prewarping frequency (a PID), or one at or above the Nyquist
+            # frequency (a filter the rule filter.below-nyquist reports): the
+            # bilinear rule cannot match there, plain Tustin is what is used.
             used = "tustin"
         else:
             prewarp = 2.0 * math.pi * block.prewarp_hz
-            if not prewarp < math.pi / h:
-                raise InputError.at(block.location,
-                                    f"prewarp frequency {block.prewarp_hz} Hz is not below the "
-                                    f"Nyquist frequency {0.5 / h} Hz")
     return discretize_block(block.model, used, h, prewarp), used
 
 
