@@ -296,3 +296,55 @@ def test_one_short_file_expresses_a_team_policy(tmp_path):
         ("pan.position", "margin.phase", False),
         (None, "waiver.expired", False),
     ]
+
+
+DEMO = __import__("pathlib").Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+
+
+@pytest.fixture(scope="module")
+def demo_analysed():
+    """The demo project analysed once (pipeline stages up to the rules)."""
+    from ruleguard.load.project import load_project
+    from ruleguard.pipeline import analyse_loop
+
+    proj = load_project(DEMO / "ruleguard.toml")
+    return proj, [analyse_loop(proj, spec) for spec in proj.loops]
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", BUILTINS)
+def test_builtin_rulesets_on_the_demo_project(demo_analysed, name):
+    # Each built-in ruleset judges the demo: a margin finding is present exactly
+    # when the worst stable variant's margin is below the limit the ruleset
+    # (with its overrides, e.g. flight's scheduling by crossover) sets for that loop.
+    from ruleguard.rules.engine import nominal_crossover_hz
+
+    proj, analysed = demo_analysed
+    rs = load_ruleset(proj.root, name, ORIGIN)
+    contexts = [a.context for a in analysed]
+    findings = evaluate(contexts, rs, today=datetime.date(2027, 1, 1))
+    assert all(f.rule in RULES for f in findings)
+    judged = 0
+    for ctx in contexts:
+        if not ctx.evaluations:
+            continue
+        eff = effective_rules(rs, ctx.spec.name, ctx.spec.tags, nominal_crossover_hz(ctx))
+        stable_margins = [e.analysis.margins for e in ctx.evaluations
+                          if e.analysis.stability.stable]
+        pms = [m.phase_margin_deg for m in stable_margins if m.phase_margin_deg is not None]
+        gms = [m.gain_margin_db for m in stable_margins if m.gain_margin_db is not None]
+        mine = {(f.rule, f.key_path.rsplit("#", 1)[-1]) for f in findings
+                if f.loop == ctx.spec.name}
+        if pms:
+            limit = eff["margin.phase"].parameters["min_deg"]
+            assert (("margin.phase", ctx.spec.controller.file + ":" + ctx.spec.controller.path)
+                    in mine) == (min(pms) < limit), (ctx.spec.name, min(pms), limit)
+            judged += 1
+        if gms:
+            limit = eff["margin.gain"].parameters["min_db"]
+            assert (("margin.gain", "upper") in mine) == (min(gms) < limit), ctx.spec.name
+        if name == "flight":
+            # scheduling by mode frequency: below 0.06 Hz 30 deg, else 45 deg
+            low = nominal_crossover_hz(ctx) is not None and nominal_crossover_hz(ctx) < 0.06
+            assert eff["margin.phase"].parameters["min_deg"] == (30.0 if low else 45.0)
+    assert judged >= 3
