@@ -114,3 +114,9 @@ def test_measured_plant_is_a_note():
     assert isinstance(m.open_loop, OpenLoop)
     (n,) = hidden_cancellation(context(spec, [evaluation("nominal", m, analysis())]), {})
     assert n.severity is Severity.NOTE and n.location == PLANT_LOC
+
+
+def test_one_zero_cancels_one_pole_of_a_double_integrator():
+    # plant 1/s^2, controller zero at s = 0: one integrator is hidden, the other stays in L
+    spec, ctx = ctx_for(zpk([0.0, -5.0], [-50.0, -60.0], 1.0), zpk([], [0.0, 0.0], 1.0))
+    assert len(list(hidden_cancellation(ctx, {"tolerance": 1e-6}))) == 1

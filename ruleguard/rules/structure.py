@@ -109,10 +109,12 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
             continue
         floor = _reference_scale(all_zpk)
         pairs = (("plant", plant_side, ctrl_blocks), ("controller", ctrl_blocks, plant_side))
+        used: set[tuple[int, int]] = set()  # one zero cancels one pole (and its conjugate)
         for side, pole_blocks, zero_blocks in pairs:
             for pb, pz in pole_blocks:
                 candidates = pz.poles[_not_stable_mask(pz, pz.poles)]
-                for pole in candidates:
+                candidates = sorted(candidates, key=lambda r: (abs(r), r.imag))
+                for rank, pole in enumerate(candidates):
                     pole = complex(pole)
                     if pole.imag < 0:
                         continue  # the conjugate is reported with its partner
@@ -120,13 +122,18 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
                         if zz.zeros.size == 0:
                             continue
                         dist = np.array(
-                            [_distance(pole, complex(z), discrete, floor) for z in zz.zeros]
+                            [
+                                np.inf
+                                if (id(zz), j) in used
+                                else _distance(pole, complex(z), discrete, floor)
+                                for j, z in enumerate(zz.zeros)
+                            ]
                         )
                         i = int(np.argmin(dist))
                         if dist[i] > tolerance:
                             continue
-                        pole_hz = _root_hz(pole, pz.sample_time_s)
-                        ident = f"{side}:{pb.label}:{zb.label}:{pole_hz:.6g}"
+                        used.add((id(zz), i))
+                        ident = f"{side}:{pb.label}:{zb.label}:pole{rank}"
                         best = found.get(ident)
                         if best is None or dist[i] < best[0]:
                             found[ident] = (
@@ -174,7 +181,7 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
                 frequency_hz=_root_hz(pole, h),
                 location=location,
                 related=related,
-                key_path=key(base, side, pb.label, zb.label, f"{_root_hz(pole, h):.4g}Hz"),
+                key_path=key(base, ident),
             )
         )
     return out
