@@ -448,6 +448,25 @@ class TestCascades:
         ref = polyval_ratio(con, cod, z) * li / (1 + li) * polyval_ratio(mn, md, z)
         assert rel_err(model.open_loop.response(w), ref) < 1e-9
 
+    def test_biproper_inner_loop_closed_form(self):
+        # L = 3 (s + 2)/(s + 1): T = L/(1 + L) = 3 (s + 2)/(4 s + 7), so the closed
+        # loop has its pole at -7/4, its zero at -2 and leading gain 3/4 (by hand).
+        t = closed_loop_zpk(ZPK([-2.0], [-1.0], 3.0), ZPK([-2.0], [-1.0], 3.0))
+        np.testing.assert_allclose(t.poles, [-1.75], rtol=1e-14)
+        np.testing.assert_allclose(t.zeros, [-2.0], rtol=1e-14)
+        assert t.gain == pytest.approx(0.75, rel=1e-14)
+
+    def test_ill_posed_inner_loop_is_not_analysable(self):
+        # L = -1 at every frequency: 1 + L = 0, the loop equations have no solution.
+        static = plant("static", "transfer_function", numerator=[1.0], denominator=[1.0])
+        mech = plant("mech", "integrator_dead_time", gain=1.0)
+        proj = project([static, mech], [loop("i", "static", controller("pid", kp=-1.0)),
+                                        loop("o", "mech", controller("pid", path="o", kp=1.0),
+                                             inner="i")])
+        with pytest.raises(LoopNotAnalysable) as info:
+            build_loop(proj, proj.loops[1], NOMINAL)
+        assert "ill-posed" in info.value.reason
+
     def test_inner_not_analysable_propagates(self):
         ci = controller("pid", kp=5.0, kd=0.1)
         co = controller("pid", path="v", kp=0.4)

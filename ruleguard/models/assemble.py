@@ -422,6 +422,8 @@ def inner_closed_loop(forward: OpenLoop, loop: OpenLoop, location: Location
         except ZeroDivisionError:
             raise LoopNotAnalysable("the inner loop is ill-posed (1 + L is zero at infinite "
                                     "frequency)", "stability.closed-loop", location) from None
+        except ValueError:
+            pass  # no factored form found: the exact response serves instead
     return ClosedLoopResponse(forward, loop)
 
 
