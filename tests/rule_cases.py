@@ -220,3 +220,13 @@ def run(rule_id: str, ctx: LoopContext, **params):
     rule = RULES[rule_id]
     values = {**rule.defaults(), **params}
     return list(rule.function(ctx, values))
+
+
+def analysed(zeros, poles, gain, delay_s: float = 0.0, sample_time_s: float | None = None):
+    """A real analysis of L = gain prod(s - z)/prod(s - p) e^{-s delay} (H1's analysis)."""
+    from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.analysis.openloop import OpenLoop
+    from ruleguard.models.lti import ZPK
+
+    block = ZPK(zeros, poles, gain, delay_s=delay_s, sample_time_s=sample_time_s)
+    return analyse_open_loop(OpenLoop(block))

@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 import pytest
-from rule_cases import analysis, context, loop_spec, run, unstable
+from rule_cases import analysed, analysis, context, loop_spec, run, unstable
 
 from ruleguard.analysis.results import Stability
 from ruleguard.location import Location
@@ -248,3 +248,37 @@ def test_margin_rules_skip_not_analysed_loops():
     assert run("margin.phase", ctx) == []
     assert run("margin.delay", ctx, min_s=0.1) == []
     assert run("margin.disk", ctx, min_alpha=0.5) == []
+
+
+class TestOnAnalysedLoops:
+    """The rules on analyses of real open loops (ruleguard.analysis.margins)."""
+
+    def test_third_order_gain_margin(self):
+        # K/(s (s+1) (s+2)), K = 4: GM = 6/K = 1.5 (3.52 dB) at sqrt(2) rad/s
+        a = analysed([], [0.0, -1.0, -2.0], 4.0)
+        (v,) = run("margin.gain", context(a))
+        assert v.measured == pytest.approx(20 * math.log10(1.5), abs=1e-6)
+        assert v.frequency_hz == pytest.approx(math.sqrt(2) / (2 * math.pi), rel=1e-6)
+        assert run("margin.gain", context(analysed([], [0.0, -1.0, -2.0], 2.0))) == []
+
+    def test_integrator_with_delay_phase_and_delay_margin(self):
+        # (10/s) e^{-0.11 s}: PM = 90 - 10 * 0.11 rad = 26.97 deg at 10 rad/s,
+        # delay margin = pi/20 - 0.11 = 0.04708 s
+        a = analysed([], [0.0], 10.0, delay_s=0.11)
+        (v,) = run("margin.phase", context(a))
+        assert v.measured == pytest.approx(90 - math.degrees(1.1), abs=1e-4)
+        assert v.frequency_hz == pytest.approx(10 / (2 * math.pi), rel=1e-6)
+        (v,) = run("margin.delay", context(a), min_s=0.05)
+        assert v.measured == pytest.approx(math.pi / 20 - 0.11, rel=1e-6)
+        assert run("margin.phase", context(analysed([], [0.0], 10.0, delay_s=0.1))) == []
+
+    def test_unstable_plant_lower_margin(self):
+        # K/(s - 1), K = 1.5: stable for K > 1, lower margin 20 log10(1/1.5)
+        (v,) = run("margin.gain", context(analysed([], [1.0], 1.5)))
+        assert v.key_path.endswith("#lower")
+        assert v.measured == pytest.approx(-20 * math.log10(1.5), abs=1e-6)
+        assert run("margin.gain", context(analysed([], [1.0], 4.0))) == []
+
+    def test_disk_margin_of_an_integrator_is_unbounded(self):
+        a = analysed([], [0.0], 5.0)
+        assert run("margin.disk", context(a), min_gain_db=20.0, min_phase_deg=80.0) == []

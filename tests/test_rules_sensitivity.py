@@ -124,3 +124,17 @@ class TestComplementaryPeak:
     def test_configured_limit(self):
         ctx = context(analysis(complementary_peak_db=2.5))
         assert len(run("sensitivity.complementary-peak", ctx, max_db=2.0)) == 1
+
+
+def test_on_an_analysed_loop():
+    # K/(s (s+1)^2): Ms from H1's analysis against a dense numpy grid
+    from rule_cases import analysed
+
+    a = analysed([], [0.0, -1.0, -1.0], 1.2)
+    w = np.logspace(-3, 2, 200_001)
+    L = 1.2 / (1j * w * (1j * w + 1) ** 2)
+    ms_db = db(np.max(np.abs(1 / (1 + L))))
+    assert a.margins.sensitivity_peak_db == pytest.approx(ms_db, abs=1e-3)
+    (v,) = run("sensitivity.peak", context(a), max_db=ms_db - 0.1)
+    assert v.measured == pytest.approx(ms_db, abs=1e-3)
+    assert run("sensitivity.peak", context(a), max_db=ms_db + 0.1) == []

@@ -123,3 +123,22 @@ class TestEncirclements:
         (v,) = run("stability.encirclements", ctx)
         assert v.severity is Severity.NOTE
         assert "passes through -1" in v.message
+
+
+class TestOnAnalysedLoops:
+    def test_routh_hurwitz_critical_gain(self):
+        # K/(s (s+1) (s+2)) is stable iff K < 6 (Routh-Hurwitz)
+        from rule_cases import analysed
+
+        assert run("stability.closed-loop", context(analysed([], [0.0, -1.0, -2.0], 5.0))) == []
+        (v,) = run("stability.closed-loop", context(analysed([], [0.0, -1.0, -2.0], 7.0)))
+        assert v.measured == 2.0
+
+    def test_unstable_plant_needs_one_encirclement(self):
+        # K/(s - 1): P = 1; K = 2 gives one ccw encirclement and Z = 0; K = 0.5 none
+        from rule_cases import analysed
+
+        spec = loop_spec(required_ccw=1)
+        assert run("stability.encirclements", context(analysed([], [1.0], 2.0), spec=spec)) == []
+        (v,) = run("stability.encirclements", context(analysed([], [1.0], 0.5), spec=spec))
+        assert v.measured == 0.0 and v.limit == 1.0
