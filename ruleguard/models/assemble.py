@@ -127,11 +127,13 @@ def build_loop(project: Project, spec: LoopSpec, variant: Variant) -> LoopModel:
     InputError
         A model that cannot be built from the inputs (located).
     """
-    return _build(project, spec, variant, ()).model
+    return _build(project, spec, variant, (), need_forward=False).model
 
 
 # ------------------------------------------------------------------ loops
-def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str, ...]) -> _Built:
+def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str, ...], *,
+           need_forward: bool) -> _Built:
+    """Build a loop; its forward path (for a cascade) only when ``need_forward``."""
     if spec.name in chain:
         raise InputError.at(spec.field_locations.get("inner", spec.location),
                             f"cascade cycle: {' -> '.join((*chain, spec.name))}")
@@ -200,7 +202,8 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
     if spec.inner:
         inner_spec = find_loop(project, spec.inner, spec)
         try:
-            inner = _build(project, inner_spec, variant, (*chain, spec.name))
+            inner = _build(project, inner_spec, variant, (*chain, spec.name),
+                           need_forward=True)
         except LoopNotAnalysable as exc:
             raise LoopNotAnalysable(f"inner loop {inner_spec.name!r}: {exc.reason}",
                                     exc.rule, exc.location) from None
@@ -215,7 +218,7 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
         total_delay = plant_delay + sensor_delay + extra_delay
         loop = _continuous_path(controller_path, inner_t, plant, sensor,
                                 plant_delay + sensor_delay + extra_delay)
-        forward = (loop if sensor is None and sensor_delay == 0.0 else
+        forward = (loop if not need_forward or (sensor is None and sensor_delay == 0.0) else
                    _continuous_path(controller_path, inner_t, plant, None,
                                     plant_delay + extra_delay))
         plant_method = None
@@ -224,7 +227,7 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
         total_delay = plant_delay + sensor_delay + delay_samples * h + extra_delay
         loop, plant_discrete, plant_method = _discrete_path(
             controller_path, inner_t, plant, sensor, total_delay, h, notes)
-        if sensor is None and sensor_delay == 0.0:
+        if not need_forward or (sensor is None and sensor_delay == 0.0):
             forward = loop
         else:
             forward, _, _ = _discrete_path(controller_path, inner_t, plant, None,
