@@ -671,7 +671,10 @@ def section_groups(
     of closeness to the stability boundary (the most sensitive first); each
     conjugate pair forms a section, real poles are paired with the nearest
     remaining real pole (an odd one out, the real pole farthest from the
-    boundary, forms a first-order section). Each section then receives the
+    boundary, forms a first-order section). Real poles on the boundary
+    (``s = 0``; ``z = 1`` or ``z = -1``) form first-order sections of their
+    own, as firmware accumulators do, unless complex zero pairs need them in
+    a second-order section. Each section then receives the
     zeros nearest to its poles (a conjugate pair, two real zeros or one),
     filling its capacity while the zeros left over still fit the remaining
     sections. Pairing each pole with its nearest zeros keeps every section's
@@ -705,17 +708,26 @@ def section_groups(
         raise ValueError("an improper block cannot be split into proper sections")
     # ---- pole groups
     groups: list[tuple[complex, ...]] = [(p, p.conjugate()) for p in pc]
-    reals = sorted(pr, key=lambda r: boundary_distance(complex(r), discrete))
-    single: tuple[complex, ...] | None = None
+    # real poles on the boundary (integrators, z = -1) stand alone when the
+    # complex zero pairs leave room, so that an accumulator is realised as
+    # a1 = -1 exactly whatever the number format
+    on_boundary = [r for r in pr if boundary_distance(complex(r), discrete) <= 1e-9]
+    reals = [r for r in pr if boundary_distance(complex(r), discrete) > 1e-9]
+    reals.sort(key=lambda r: boundary_distance(complex(r), discrete))
+    singles: list[tuple[complex, ...]] = []
     if len(reals) % 2:
-        single = (complex(reals.pop()),)  # farthest from the boundary stands alone
+        singles.append((complex(reals.pop()),))  # farthest from the boundary stands alone
     while reals:
         first = reals.pop(0)
         k = int(np.argmin([abs(first - r) for r in reals]))
         groups.append((complex(first), complex(reals.pop(k))))
+    singles = [(complex(r),) for r in on_boundary] + singles
+    # complex zero pairs need second-order sections: merge singles if short
+    while len(zc) > len(groups) and len(singles) >= 2:
+        first, second = singles.pop(0), singles.pop(0)
+        groups.append(first + second)
+    groups = groups + singles
     groups.sort(key=lambda g: min(boundary_distance(r, discrete) for r in g))
-    if single is not None:
-        groups.append(single)
     # ---- zero assignment
     zc_left = list(zc)
     zr_left = list(zr)
