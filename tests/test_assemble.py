@@ -221,6 +221,8 @@ class TestSampled:
                                         "plant": "zoh"}
         # closed form: prewarped Tustin maps j w0 exactly onto exp(j w0 h), so the
         # discrete notch has its full depth at its centre
+        assert model.filters[0].characteristic_hz == {"center_hz": 300.0, "width_hz": 40.0,
+                                                      "prewarp_hz": 300.0}
         notch = model.filters[0].discrete
         w0 = TWO_PI * 300
         assert 20 * math.log10(abs(notch.response(w0))) == pytest.approx(-depth, abs=1e-9)

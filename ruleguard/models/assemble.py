@@ -180,11 +180,14 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
         if method == "forward_euler" and not run.is_proper:
             notes.append(f"{label}: forward Euler leaves the unfiltered derivative non-causal")
         run_blocks.append(run)
+        chars = dict(block.characteristic_hz)
+        if method == "tustin_prewarp":
+            chars["prewarp_hz"] = float(block.prewarp_hz)
         block_models.append(BlockModel(
             role=role, label=label, kind=block.kind,
             continuous=None if block.given_in_z else block.model,
             discrete=run if h is not None else None,
-            method=method, characteristic_hz=dict(block.characteristic_hz),
+            method=method, characteristic_hz=chars,
             location=block.location,
         ))
     controller_path = run_blocks[0]
