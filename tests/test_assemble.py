@@ -261,6 +261,17 @@ class TestSampled:
         ref = scipy.signal.freqz([0.2, 0.4, 0.2], [1.0, -0.3, 0.1], worN=theta)[1]
         assert rel_err(model.filters[0].discrete.response(theta / self.h), ref) < 1e-12
 
+    def test_measured_integrating_plant_declares_its_integrator(self):
+        # The contour is indented at z = 1 for the PI integrator and the declared one.
+        f = np.logspace(0, 2.5, 50)
+        data = MeasuredData(tuple(f), tuple(-20 * np.log10(f)), tuple(np.full(50, -90.0)),
+                            "m.csv")
+        meas = plant("m", "measured_response", measured=data, file="m.csv", integrators=1)
+        proj = project([meas], [loop("a", "m", controller("pid", kp=1.0, ki=3.0),
+                                     rate=1000.0)])
+        model = build_loop(proj, proj.loops[0], NOMINAL)
+        assert model.open_loop.boundary_pole_frequencies() == [(0.0, 2)]
+
     def test_measured_plant_behind_the_hold(self):
         h = self.h
         f = np.logspace(-1, math.log10(500.0), 301)
@@ -348,6 +359,20 @@ class TestCascades:
         assert rel_err(factor.response(w), t_w) < 1e-12
         ref = (0.4 + 1.0 / s) * t_w * 50.0 / (s * (s + 2.0))
         assert rel_err(model.open_loop.response(w), ref) < 1e-11
+
+    def test_closed_loop_response_at_zero_frequency(self):
+        # With integral action T(0) = 1/H(0) = 1 (closed form: |L(0)| is infinite);
+        # the response is evaluated as the limit beside w = 0, not inf/inf.
+        ci = controller("pid", kp=5.0, ki=2000.0)
+        co = controller("pid", path="v", kp=0.4, ki=1.0)
+        proj = project(self.entries(inner_delay=1e-4),
+                       [loop("cur", "winding", ci, sensor="sense"),
+                        loop("vel", "mech", co, inner="cur")])
+        factor = build_loop(proj, proj.loops[1], NOMINAL).open_loop.factors[0]
+        value = factor.response(np.array([0.0, 1e-3]))
+        assert np.all(np.isfinite(value))
+        np.testing.assert_allclose(value, [1.0, 1.0], atol=1e-6)
+        assert factor.response(0.0) == pytest.approx(1.0, abs=1e-6)
 
     def test_same_rate_sampled_cascade(self):
         h = 1e-3
