@@ -275,3 +275,30 @@ class TestWaivers:
         rs = ruleset(tmp_path, self.TEXT.replace("2027-03-01", "2000-01-01"))
         found = run_engine([context(weak_phase(20.0))], rs)
         assert [f.rule for f in found] == ["margin.phase", "waiver.expired"]
+
+
+def test_rules_see_the_loop_configuration(tmp_path, monkeypatch):
+    # A rule that re-runs others (quantization.robust) reads the effective
+    # parameters and severities of this loop from ctx.extras.
+    from ruleguard.rules import catalog
+    from ruleguard.rules.spec import RuleSpec
+
+    seen = {}
+
+    def spy(ctx, params):
+        seen.update(ctx.extras)
+        return ()
+
+    spec = catalog.RULES["margin.phase"]
+    monkeypatch.setitem(catalog.RULES, "margin.phase", RuleSpec(
+        spec.id, spec.default_severity, spec.summary, spec.explanation, spec.source,
+        spec.parameters, spy))
+    rs = ruleset(tmp_path, """
+        [rules."margin.gain"]
+        min_db = 9.0
+        [rules."sensitivity.peak"]
+        severity = "off"
+    """)
+    run_engine([context(weak_phase())], rs, today=DAY)
+    assert seen["rule_parameters"]["margin.gain"]["min_db"] == 9.0
+    assert seen["rule_severities"]["sensitivity.peak"] is Severity.OFF

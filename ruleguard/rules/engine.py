@@ -10,6 +10,13 @@ waivers). Everything is one lazy iterator (:func:`iter_findings`);
 
 Order of findings: loops in the order given, rules by id within a loop, a
 rule's own order within a rule; the ruleset findings (``waiver.*``) last.
+
+Rules that re-run other rules (``quantization.robust`` re-checks the margin
+rules on rounded coefficients) find the loop's effective configuration in
+the context they receive: ``ctx.extras["rule_parameters"]`` maps every rule
+id to its :class:`~ruleguard.rules.spec.ParameterValues` for this loop and
+``ctx.extras["rule_severities"]`` to its :class:`Severity` (``OFF`` for rules
+turned off here).
 """
 
 from __future__ import annotations
@@ -17,7 +24,7 @@ from __future__ import annotations
 import datetime
 import fnmatch
 from collections.abc import Iterable, Iterator, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from ruleguard.errors import InputError
 from ruleguard.location import Location
@@ -244,6 +251,14 @@ def iter_findings(
         if project_loops is None:
             project_loops = [s.name for s in getattr(ctx.project, "loops", ())]
         config = effective_rules(ruleset, name, ctx.spec.tags, nominal_crossover_hz(ctx))
+        ctx = replace(
+            ctx,
+            extras={
+                **(ctx.extras or {}),
+                "rule_parameters": {r: e.parameters for r, e in config.items()},
+                "rule_severities": {r: e.severity for r, e in config.items()},
+            },
+        )
         reason_rule = None
         if ctx.not_analysed_reason is not None and not ctx.evaluations:
             reason_rule = (ctx.extras or {}).get("not_analysed_rule") or CLOSED_LOOP
