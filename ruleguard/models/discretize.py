@@ -337,13 +337,18 @@ class DiscreteStateSpace:
     def evaluate(self, z) -> np.ndarray:
         """Transfer function at complex points ``z`` (whole-sample delay included)."""
         z = np.atleast_1d(np.asarray(z, dtype=complex))
+        flat = z.reshape(-1)
         n = self.order
-        out = np.empty(z.shape, dtype=complex)
-        eye = np.eye(n)
-        for i, zi in np.ndenumerate(z):
-            val = (self.c @ np.linalg.solve(zi * eye - self.a, self.b))[0, 0] if n else 0.0
-            out[i] = (val + self.d[0, 0]) * zi ** (-self.delay_samples)
-        return out
+        if n:
+            # one batched solve of (z_k I - A) x_k = B for all points
+            mats = flat[:, None, None] * np.eye(n) - self.a[None, :, :]
+            rhs = np.broadcast_to(self.b.astype(complex), (flat.size, n, 1))
+            x = np.linalg.solve(mats, rhs)
+            vals = (self.c.astype(complex) @ x)[:, 0, 0]
+        else:
+            vals = np.zeros(flat.size, dtype=complex)
+        out = (vals + self.d[0, 0]) * flat ** (-self.delay_samples)
+        return out.reshape(z.shape)
 
     def response(self, w) -> np.ndarray:
         """Frequency response at ``w`` rad/s (``z = exp(j w h)``)."""
@@ -525,6 +530,8 @@ def zoh_equivalent(
     poles = np.exp(np.asarray(cont_poles, dtype=complex) * h)
     augmented = dss.order - np.asarray(cont_poles).size
     poles = np.concatenate([poles, np.zeros(augmented + dss.delay_samples, complex)])
+    if not np.any(dss.c) and dss.d[0, 0] == 0.0:
+        return ZPK([], poles, 0.0, 0.0, h)  # a zero block has no zeros to speak of
     zeros = discrete_zeros(dss)
     gain = _fit_gain(dss, zeros, poles)
     return ZPK(zeros, poles, gain, 0.0, h)
