@@ -352,6 +352,13 @@ class SampledContour:
             if d.size == 0:
                 continue
             order = _local_minima(d)
+            if order.size:
+                best_grid = float(d[order[0]])
+                if best_grid < best:
+                    best, best_w = best_grid, float(br.w[order[0]])
+            # only minima that come close are refined (the samples already
+            # bound the curve, see refine_for_point)
+            order = order[d[order] < 0.25 * max(1.0, abs(p))]
             for i in order[:4]:
                 lo = br.w[max(i - 1, 0)]
                 hi = br.w[min(i + 1, br.w.size - 1)]
@@ -402,10 +409,10 @@ class SampledContour:
     def winding(self, point: complex = -1.0) -> int | None:
         """Counter-clockwise encirclements of ``point`` (None: the curve passes through it)."""
         p = complex(point)
+        self.refine_for_point(p)
         dist, _ = self.min_distance(p)
         if dist <= CRITICAL_TOL * max(1.0, abs(p)):
             return None
-        self.refine_for_point(p)
         total = self.angle_sum(p) / (2 * math.pi)
         n = round(total)
         if abs(total - n) > 0.05:
@@ -463,7 +470,7 @@ def _minimize(fun, lo: float, hi: float) -> tuple[float, float]:
     from scipy.optimize import minimize_scalar  # lazy import
 
     res = minimize_scalar(fun, bounds=(lo, hi), method="bounded",
-                          options={"xatol": 1e-12 * max(abs(hi), 1e-300)})
+                          options={"xatol": 1e-10 * max(abs(hi), 1e-300)})
     return float(res.x), float(res.fun)
 
 

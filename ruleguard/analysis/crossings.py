@@ -261,32 +261,45 @@ def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | 
     return None
 
 
-def peak(contour: SampledContour, fun_vec, candidates: int = 4) -> tuple[float, float]:
+def peak(contour: SampledContour, fun_vec, fun_scalar=None,
+         candidates: int = 3) -> tuple[float, float]:
     """Maximum of ``fun_vec(L)`` over the frequency axis, refined (Brent minimization).
 
-    Returns ``(value, w)``; the grid maxima are refined on the exact response
-    between their neighbours.
+    Returns ``(value, w)``. The largest grid maxima (those within 10 % of the
+    grid's largest value) are refined on the exact response between their
+    neighbours; ``fun_scalar`` is the same function of a complex scalar.
     """
-    best, best_w = -math.inf, math.nan
-    for br in contour.branches:
+    if fun_scalar is None:
+        def fun_scalar(L):
+            return float(fun_vec(np.array([L]))[0])
+
+    found = []
+    for bi, br in enumerate(contour.branches):
         v = fun_vec(br.L)
         if v.size == 0:
             continue
-        n = v.size
         left = np.concatenate([[-np.inf], v[:-1]])
         right = np.concatenate([v[1:], [-np.inf]])
         idx = np.nonzero((v >= left) & (v >= right) & np.isfinite(v))[0]
-        idx = idx[np.argsort(-v[idx])][:candidates]
-        for i in idx:
-            val, wv = float(v[i]), float(br.w[i])
-            lo, hi = br.w[max(i - 1, 0)], br.w[min(i + 1, n - 1)]
-            if hi > lo:
-                def neg(x):
-                    return -float(fun_vec(np.array([contour.evaluate_scalar(x)]))[0])
+        found += [(float(v[i]), bi, int(i)) for i in idx]
+    if not found:
+        return -math.inf, math.nan
+    found.sort(reverse=True)
+    top = found[0][0]
+    best, best_w = -math.inf, math.nan
+    for val, bi, i in found[:candidates]:
+        if val < 0.9 * top:
+            break
+        br = contour.branches[bi]
+        wv = float(br.w[i])
+        lo, hi = br.w[max(i - 1, 0)], br.w[min(i + 1, br.w.size - 1)]
+        if hi > lo:
+            def neg(x):
+                return -fun_scalar(contour.evaluate_scalar(x))
 
-                wx, nv = _minimize(neg, float(lo), float(hi))
-                if -nv > val:
-                    val, wv = -nv, wx
-            if val > best:
-                best, best_w = val, wv
+            wx, nv = _minimize(neg, float(lo), float(hi))
+            if -nv > val:
+                val, wv = -nv, wx
+        if val > best:
+            best, best_w = val, wv
     return best, best_w

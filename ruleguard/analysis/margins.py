@@ -288,9 +288,27 @@ def _abs_s_half(L: np.ndarray) -> np.ndarray:
         return np.abs(1.0 - L) / (2.0 * np.abs(1.0 + L))
 
 
+def _s_scalar(L: complex) -> float:
+    d = abs(1.0 + L)
+    return math.inf if d == 0 else 1.0 / d
+
+
+def _t_scalar(L: complex) -> float:
+    d = abs(1.0 + L)
+    return math.inf if d == 0 else abs(L) / d
+
+
+def _s_half_scalar(L: complex) -> float:
+    d = abs(1.0 + L)
+    return math.inf if d == 0 else abs(1.0 - L) / (2.0 * d)
+
+
+_SCALAR = {_abs_s: _s_scalar, _abs_t: _t_scalar, _abs_s_half: _s_half_scalar}
+
+
 def _extreme(contour: SampledContour, fun, limit_at_arcs: float) -> tuple[float, float]:
     """Peak of ``fun(L)`` over the frequency axis, arcs' limits included."""
-    val, w = peak(contour, fun)
+    val, w = peak(contour, fun, _SCALAR[fun])
     for ind in contour.indentations:
         if ind.order > 0 and limit_at_arcs > val:
             val, w = limit_at_arcs, ind.w0
