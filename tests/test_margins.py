@@ -444,3 +444,70 @@ class TestAccuracySweep:
             (u,) = positive_real_roots([1, 5, 4, -k * k])
             assert close(m.crossover_hz * TWO_PI, math.sqrt(u))
             assert close(m.gain_margin_db, db(6 / k))
+
+
+class _Constant:
+    """A response factor equal to 1 at every frequency (known to infinity)."""
+
+    unstable_poles = 0
+    integrators = 0
+    w_min = 0.0
+    w_max = math.inf
+
+    def response(self, w):
+        return np.ones(np.shape(w), dtype=complex)
+
+    def grid(self):
+        return np.zeros(0)
+
+
+class TestDiscreteWithFactor:
+    def test_closure_at_nyquist_and_note(self):
+        # K/(z-1) times a factor: the contour is closed at theta = pi by the
+        # segment from L to conj(L); L(-1) = -K/2 = -0.75 lies left of -0.5
+        L = OpenLoop(ZPK([], [1.0], 1.5, sample_time_s=0.01), (_Constant(),))
+        a = analyse_open_loop(L)
+        assert a.stability.stable
+        assert close(a.margins.gain_margin_db, db(2 / 1.5))
+        assert close(a.margins.gain_margin_hz, 50.0)
+        assert any("left of -0.5" in n for n in a.notes)
+
+
+class TestFirstOrderDeadTime:
+    """L = K e^{-s tau}/(T s + 1) (proportional control of a first-order plant with dead time).
+
+    Phase crossover: atan(w T) + w tau = pi (solved by mpmath.findroot), GM =
+    sqrt(1 + (w T)^2)/K. Gain crossover: w_c = sqrt(K^2 - 1)/T, PM = 180 deg -
+    atan(w_c T) - w_c tau (deg).
+    """
+
+    @pytest.mark.parametrize("k, tau, T", [(2.0, 0.1, 1.0), (5.0, 0.02, 0.5), (1.5, 1.0, 3.0)])
+    def test_margins(self, k, tau, T):
+        mpmath.mp.dps = 30
+        w180 = float(mpmath.findroot(lambda w: mpmath.atan(w * T) + w * tau - mpmath.pi,
+                                     math.pi / (2 * tau)))
+        m = analyse_open_loop(loop([], [-1 / T], k / T, tau)).margins
+        assert close(m.gain_margin_hz * TWO_PI, w180)
+        assert close(m.gain_margin_db, db(math.sqrt(1 + (w180 * T) ** 2) / k))
+        wc = math.sqrt(k * k - 1) / T
+        pm = 180 - math.degrees(math.atan(wc * T) + wc * tau)
+        assert close(m.crossover_hz * TWO_PI, wc)
+        assert m.phase_margin_deg == pytest.approx(pm, abs=DEG)
+        assert close(m.delay_margin_s, math.radians(pm) / wc)
+
+    def test_low_gain_has_no_crossover(self):
+        # K < 1: |L| < 1 everywhere: no phase margin, unbounded delay margin
+        m = analyse_open_loop(loop([], [-1.0], 0.5, 0.3)).margins
+        assert m.phase_margin_deg is None and m.crossovers == ()
+        assert m.delay_margin_s is None
+        assert m.gain_margin_db > 0
+
+
+class TestCancelledBoundaryPole:
+    def test_hidden_integrator_is_not_stable(self):
+        # s/(s (s + 1)): the closed loop keeps the pole at s = 0 (common practice:
+        # a cancelled boundary pole is a hidden marginal mode)
+        a = analyse_open_loop(loop([0.0], [0.0, -1.0], 1.0))
+        assert not a.stability.stable
+        assert a.margins.stable_gain_ranges_db == ()
+        assert any("cancelled" in n for n in a.notes)

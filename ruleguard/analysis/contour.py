@@ -401,6 +401,10 @@ class SampledContour:
                 Lb = complex(self.branches[gap + 1].L[0])
                 half += _arc_sweep(La, Lb, p, ind.order)
                 gap += 1
+        if self.starts_at_zero:
+            # junction from the mirror image conj(L0) to L0 (zero when L0 is real)
+            L0 = complex(self.branches[0].L[0])
+            start = _principal((L0 - p) / (L0.conjugate() - p)) if L0 != p else 0.0
         if self.end != "arc":
             Le = complex(self.branches[-1].L[-1])
             end = _principal((Le.conjugate() - p) / (Le - p)) if Le != p else 0.0
@@ -513,7 +517,7 @@ def _scale_hint(rational: RationalResponse, open_loop: OpenLoop) -> tuple[float,
 
 
 def _choose_eps(contour_eval, rational: RationalResponse, w0: float, position: str,
-                neighbours: list[float], scale: float) -> float:
+                neighbours: list[float], scale: float, order: int = 1) -> float:
     """Indentation radius: small against nearby roots, with ``|L| >= ARC_LEVEL`` at its ends."""
     loc = _boundary_location(rational, w0)
     d = np.abs(rational.roots - loc)
@@ -526,6 +530,8 @@ def _choose_eps(contour_eval, rational: RationalResponse, w0: float, position: s
     near += [abs(w0 - n) for n in neighbours if n != w0]
     base = min(near) if near else scale
     eps = 1e-3 * base
+    if order <= 0:
+        return eps  # cancelled: |L| stays finite there
     for _ in range(16):
         probes = []
         if position in ("interior", "start"):
@@ -619,7 +625,7 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
     bws = [r[0] for r in raw]
     indents: list[Indentation] = []
     for w0, order, position, cancelled in raw:
-        eps = _choose_eps(ev, rational, w0, position, bws, hi_scale)
+        eps = _choose_eps(ev, rational, w0, position, bws, hi_scale, order)
         indents.append(Indentation(w0, order, eps, position, cancelled))
         if cancelled:
             notes.append(
@@ -678,6 +684,8 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
         if not b > a:
             raise ValueError("indentations overlap; boundary poles too close together")
         w = _seeds(rational, open_loop, a, b, lo_seed)
+        if a == 0.0 and open_loop.factors and not np.isfinite(ev(np.array([0.0]))[0]):
+            w[0] = 1e-6 * lo_seed
         w, bound = _refine_rational(rational, w)
         branches.append(Branch(w, ev(w), bound))
     contour = SampledContour(
