@@ -225,6 +225,34 @@ class TestZohAgainstScipy:
         # (deep roll-off) are compared absolutely
         np.testing.assert_allclose(zd.response(w), ref, rtol=1e-7, atol=1e-12 * np.abs(ref).max())
 
+    @pytest.mark.parametrize(
+        "zeros,poles,gain",
+        [
+            ([], [2.0], 3.0),  # unstable first-order plant
+            ([], [0.0, -10.0], 10.0),  # motor: integrator and a lag
+            ([-5.0], [0.0, 0.0, -40.0], 40.0),  # double integrator with a lead
+            ([], [complex(0, 30), complex(0, -30)], 900.0),  # undamped resonance
+        ],
+    )
+    def test_unstable_and_boundary_plants(self, zeros, poles, gain):
+        # scipy.signal.cont2discrete("zoh") as the independent computation;
+        # poles stay exactly exp(p h) (on the unit circle for boundary poles)
+        blk = ZPK(zeros, poles, gain)
+        h = 5e-3
+        zd = zoh_equivalent(blk, h)
+        np.testing.assert_allclose(
+            np.sort_complex(zd.poles), np.sort_complex(np.exp(np.array(poles) * h)), rtol=1e-15
+        )
+        w = np.linspace(0.37, math.pi / h, 300)
+        ref = scipy_discretized_response(blk, h, "zoh", w)
+        np.testing.assert_allclose(zd.response(w), ref, rtol=1e-8, atol=1e-14 * np.abs(ref).max())
+        if any(p == 0 for p in poles):
+            assert zd.boundary_poles().size == sum(1 for p in poles if p == 0)
+
+    def test_zero_block(self):
+        zd = zoh_equivalent(ZPK([], [-1.0], 0.0), 0.1, delay_s=0.05)
+        assert zd.gain == 0.0 and zd.zeros.size == 0 and zd.poles.size == 2
+
     def test_state_space_input_against_scipy(self):
         a = np.array([[0.0, 1.0], [-4e4, -40.0]])
         b = np.array([[0.0], [4e4]])

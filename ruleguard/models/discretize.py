@@ -812,8 +812,15 @@ def scaled_cascade_realization(block: ZPK) -> StateSpace:
     c = np.zeros((1, 0))
     d = np.array([[1.0]])
     total = block.gain
+    mags = np.abs(np.concatenate([block.zeros, block.poles]))
+    mags = mags[mags > 0]
+    # sections whose roots are all at s = 0 are normalised at the block's
+    # typical frequency (geometric mean of its nonzero root magnitudes)
+    typical = float(np.exp(np.mean(np.log(mags)))) if mags.size else 1.0
     for zg, pg in section_groups(block.zeros, block.poles, discrete=False):
-        sa, sb, sc, sd, g = _modal_section(np.array(zg, complex), np.array(pg, complex))
+        sa, sb, sc, sd, g = _modal_section(
+            np.array(zg, complex), np.array(pg, complex), typical
+        )
         total *= g
         n1, n2 = a.shape[0], sa.shape[0]
         na = np.zeros((n1 + n2, n1 + n2))
@@ -827,18 +834,25 @@ def scaled_cascade_realization(block: ZPK) -> StateSpace:
     return StateSpace(a, b, c * total, d * total)
 
 
-def _modal_section(zeros: np.ndarray, poles: np.ndarray):
+def _modal_section(zeros: np.ndarray, poles: np.ndarray, typical: float):
     """Real modal realization of ``g * prod(s - z) / prod(s - p)`` normalised to unit gain.
 
-    Returns ``(a, b, c, d, g)``: the realization of the normalised section
-    and the factor ``g`` taken out of it.
+    The section is normalised to unit gain at ``|s| = max |root|``
+    (``typical`` when every root is at 0). Returns ``(a, b, c, d, g)``: the realization of the
+    normalised section and the factor ``g`` taken out of it.
     """
     n = poles.size
-    ref = float(max(np.max(np.abs(poles)), 1e-12))
+    ref = float(np.max(np.abs(np.concatenate([poles, zeros]))))
+    if not ref > 0.0:
+        ref = typical
     # numerator and denominator as real polynomials (degree <= 2, so exact enough)
     num = np.real(np.poly(zeros)) if zeros.size else np.array([1.0])
     den = np.real(np.poly(poles))
-    val = abs(np.polyval(num, ref) / np.polyval(den, ref))
+    # at s = ref e^{j 0.9}: off both axes, where integrators, real poles in
+    # either half-plane and undamped pairs sit
+    probe = ref * complex(math.cos(0.9), math.sin(0.9))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        val = abs(np.polyval(num, probe) / np.polyval(den, probe))
     g = 1.0 / val if np.isfinite(val) and val > 0 else 1.0
     num = num * g
     num = np.concatenate([np.zeros(n + 1 - num.size), num])
@@ -857,7 +871,7 @@ def _modal_section(zeros: np.ndarray, poles: np.ndarray):
             # also holds a double pole and avoids the cancelling residues of
             # a diagonal form when the poles are close
             p1, p2 = poles[0].real, poles[1].real
-            a = np.array([[p1, max(abs(p1), abs(p2), 1e-12)], [0.0, p2]])
+            a = np.array([[p1, max(abs(p1), abs(p2)) or ref], [0.0, p2]])
         bb = np.array([[0.0], [1.0]])
         # C adj(sI - A) B = r1 s + r0 with adj(sI - A) = [[s - a22, a12], [a21, s - a11]]
         b1, b2 = bb[0, 0], bb[1, 0]
