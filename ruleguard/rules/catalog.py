@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import difflib
 import importlib
+import textwrap
 from collections.abc import Iterable, Mapping
 from typing import Any
 
@@ -177,6 +178,23 @@ def _format_default(value: Any) -> str:
     return repr(value) if isinstance(value, str) else str(value)
 
 
+def _wrap(text: str, width: int, **indents: str) -> list[str]:
+    """Lines of at most ``width`` columns, never breaking a word or at a hyphen."""
+    return textwrap.wrap(
+        text, width=width, break_long_words=False, break_on_hyphens=False, **indents
+    )
+
+
+def _paragraphs(text: str, width: int = 88) -> list[str]:
+    """Paragraphs (blank-line separated) filled to ``width`` columns."""
+    out: list[str] = []
+    for paragraph in text.strip().split("\n\n"):
+        if out:
+            out.append("")
+        out.extend(_wrap(" ".join(paragraph.split()), width) or [""])
+    return out
+
+
 def explain(rule_id: str) -> str:
     """The text of ``ruleguard explain RULE``.
 
@@ -199,7 +217,7 @@ def explain(rule_id: str) -> str:
         f"default severity: {rule.default_severity.value}"
         + ("  (always on: may be waived, never turned off)" if rule.always_on else ""),
         "",
-        rule.explanation.strip(),
+        *_paragraphs(rule.explanation),
         "",
     ]
     if rule.parameters:
@@ -214,11 +232,16 @@ def explain(rule_id: str) -> str:
             if p.choices:
                 bounds.append("one of " + ", ".join(p.choices))
             limits = f", {' and '.join(bounds)}" if bounds else ""
-            lines.append(
-                f"  {p.name} ({p.type}{unit}{limits}); default {_format_default(p.default)}: "
-                f"{p.description}"
+            lines.extend(
+                _wrap(
+                    f"{p.name} ({p.type}{unit}{limits}); default "
+                    f"{_format_default(p.default)}: {p.description}",
+                    88,
+                    initial_indent="  ",
+                    subsequent_indent="      ",
+                )
             )
     else:
         lines.append("parameters: none (severity only)")
-    lines += ["", f"source of the default: {rule.source}", ""]
+    lines += ["", *_wrap(f"source of the default: {rule.source}", 88), ""]
     return "\n".join(lines)

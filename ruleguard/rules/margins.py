@@ -467,9 +467,9 @@ RULES: tuple[RuleSpec, ...] = (
             "Why it matters: classical gain and phase margins each assume the other "
             "perturbation is zero; a loop can have good separate margins and still be "
             "close to -1 in between. The disk margin is a single robust measure.\n\n"
-            "How to fix it: reduce the sensitivity peak (the disk margin of a balanced "
-            "disk is bounded by the distance of L from -1): less gain, more phase lead "
-            "near crossover, less delay."
+            "How to fix it: reduce the sensitivity peak (alpha <= 1/(Ms - 1/2), since "
+            "|S - 1/2| >= |S| - 1/2): less gain, more phase lead near crossover, less "
+            "delay."
         ),
         source=(
             "no default (opt-in); definition and conversions: Seiler, Packard & Gahinet, "
