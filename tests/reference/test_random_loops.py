@@ -237,6 +237,8 @@ def _random_discrete(rng):
                     r.append(1.0 if rng.random() < 0.8 else -1.0)
                 continue
             rad = rng.uniform(1.02, 2.0) if rng.random() < out_prob else rng.uniform(0.0, 0.98)
+            if rng.random() < 0.1:
+                rad = 1.0 - float(np.exp(rng.uniform(np.log(1e-4), np.log(5e-3))))  # light
             if count - len(r) >= 2 and rng.random() < 0.5:
                 th = rng.uniform(0.05, 3.1)
                 r += [rad * np.exp(1j * th), rad * np.exp(-1j * th)]
