@@ -372,7 +372,8 @@ def _check_zero_pole_gain(entry: PlantEntry, number: Callable, where: Callable) 
     if zeros > poles:
         raise InputError.at(
             where("zeros"),
-            f"improper plant: {zeros} zeros but only {poles} poles (a physical plant has at "
+            f"improper plant: {zeros} zeros but only {poles} pole{'s' if poles != 1 else ''} "
+            "(a physical plant has at "
             "least as many poles as zeros)",
         )
 

@@ -296,6 +296,7 @@ def read_document(
     InputError
         Containment, size, encoding or syntax problems, located.
     """
+    resolve_inside(root, rel_path, origin)  # containment first, whatever the name says
     fmt = format_of(str(rel_path), origin)
     name, text = read_text(root, rel_path, origin, max_bytes)
     return parse_text(name, text, fmt)
@@ -329,9 +330,47 @@ def _parse_toml(name: str, text: str) -> Any:
             line = text.count("\n") + 1
             column = len(text.rsplit("\n", 1)[-1]) + 1
         key = _key_at(text, "toml", line, column)
+        by_text = _toml_key_by_text(text, line, column)
+        if by_text is not None and (not key or not key.startswith(by_text[0])):
+            key = by_text[0]
+            if line is not None and by_text[1] < line and message.startswith("Unclosed"):
+                message += f" (the value of '{key}' opened at line {by_text[1]})"
         raise InputError(name, line, column, key, f"TOML syntax error: {message}") from None
     except RecursionError:
         raise InputError(name, 1, 1, "", "TOML nesting is too deep") from None
+
+
+_TOML_HEADER = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
+_TOML_PAIR = re.compile(r"^\s*([A-Za-z0-9_\-]+(?:\s*\.\s*[A-Za-z0-9_\-]+)*)\s*=")
+
+
+def _toml_key_by_text(
+    text: str, line: int | None, column: int | None = None
+) -> tuple[str, int] | None:
+    """The key of the last ``key = ...`` line at or before ``line`` (bare keys only).
+
+    A fallback for syntax errors that the grammar's error recovery hides
+    (an unclosed array reported where the next table starts).
+    """
+    if line is None:
+        return None
+    header: list[str] = []
+    found: tuple[str, int] | None = None
+    for number, raw in enumerate(text.split("\n")[:line], start=1):
+        head = _TOML_HEADER.match(raw)
+        if head:
+            parts = [part.strip() for part in head.group(1).split(".")]
+            if number < line:
+                header, found = parts, None
+            elif (column or 1) > 1 or found is None:
+                # an error at the start of a header line belongs to what came before
+                found = (".".join(parts), number)
+            continue
+        pair = _TOML_PAIR.match(raw)
+        if pair:
+            keys = [part.strip() for part in pair.group(1).split(".")]
+            found = (".".join(header + keys), number)
+    return found
 
 
 class _DuplicateKey(ValueError):
@@ -431,17 +470,22 @@ def _find_duplicate(text: str, key_name: str) -> tuple[int | None, int | None, K
 
 
 def _key_at(text: str, fmt: str, line: int | None, column: int | None = None) -> str:
-    """Best-effort dotted key of the last entry starting at or before a position."""
+    """Best-effort dotted key of the last entry starting at or before a position.
+
+    Every occurrence of a key counts (a key written twice is found at its
+    second place too), so a syntax error names the entry it is in.
+    """
     if line is None:
         return ""
     try:
-        source_map = _build_source_map(text, fmt)
+        occurrences: list = []
+        _build_source_map(text, fmt, occurrences)
     except Exception:
         return ""
     limit = (line, column if column is not None else 1 << 30)
     best: KeyPath = ()
     best_pos = (0, 0)
-    for path, pos in source_map.items():
+    for path, pos in occurrences:
         if path and best_pos <= pos <= limit:
             best, best_pos = path, pos
     return format_key(best)
@@ -480,15 +524,36 @@ def _point(text_or_lines: Any, point: Any) -> tuple[int, int]:
     return row + 1, column + 1
 
 
-def _build_source_map(text: str, fmt: str) -> dict[KeyPath, tuple[int, int]]:
+class _Positions(dict):
+    """Key path -> first position; every occurrence also goes to ``occurrences``."""
+
+    def __init__(self, occurrences: list | None) -> None:
+        super().__init__()
+        self.occurrences = occurrences
+
+    def setdefault(self, key, value):  # type: ignore[override]
+        if self.occurrences is not None:
+            self.occurrences.append((key, value))
+        return super().setdefault(key, value)
+
+    def __setitem__(self, key, value) -> None:
+        if self.occurrences is not None:
+            self.occurrences.append((key, value))
+        super().__setitem__(key, value)
+
+
+def _build_source_map(
+    text: str, fmt: str, occurrences: list | None = None
+) -> dict[KeyPath, tuple[int, int]]:
     tree = _tree(text, fmt)
     lines = text.split("\n")
-    positions: dict[KeyPath, tuple[int, int]] = {(): (1, 1)}
+    positions = _Positions(occurrences)
+    positions[()] = (1, 1)
     if fmt == "toml":
         _map_toml(tree.root_node, lines, positions)
     else:
         _map_json(tree.root_node, lines, positions, ())
-    return positions
+    return dict(positions)
 
 
 def _array_items(node: Any) -> list:

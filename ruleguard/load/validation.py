@@ -84,6 +84,12 @@ def show_value(value: Any, limit: int = 40) -> str:
     return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
+def _found(value: Any) -> str:
+    if isinstance(value, (dict, list)):
+        return show_value(value)
+    return f"{type_name(value)} {show_value(value)}"
+
+
 def check_finite(document: Document, data: Any = None, base: KeyPath = ()) -> None:
     """Raise at the first NaN or infinite number in ``data`` (default: the document)."""
     stack: list[tuple[KeyPath, Any]] = [(base, document.data if data is None else data)]
@@ -154,8 +160,16 @@ def validate(
 # --------------------------------------------------------------------------- messages
 
 
-def _where(path: KeyPath) -> str:
-    return f"'{format_key(path)}'" if path else "the top level"
+def _leaf(path: KeyPath) -> str:
+    """The name of the element at ``path`` for messages (``width_hz``, ``numerator.0``)."""
+    if not path:
+        return "the top level"
+    tail: list = []
+    for item in reversed(path):
+        tail.insert(0, item)
+        if isinstance(item, str):
+            break
+    return format_key(tuple(tail))
 
 
 def _expected(schema: Any) -> str | None:
@@ -168,8 +182,9 @@ def _expected(schema: Any) -> str | None:
 
 def _schema_type_text(types: Any) -> str:
     names = types if isinstance(types, list) else [types]
-    words = {"object": "table", "array": "array", "string": "string", "number": "number",
-             "integer": "integer", "boolean": "boolean (true/false)", "null": "null"}
+    words = {"object": "a table", "array": "an array", "string": "a string",
+             "number": "a number", "integer": "a whole number", "boolean": "true or false",
+             "null": "null"}
     return " or ".join(words.get(n, n) for n in names)
 
 
@@ -184,6 +199,11 @@ def _translate(
 ) -> InputError:
     rel = tuple(error.absolute_path)
     path = base + rel
+
+    def _where(where_path: KeyPath) -> str:
+        shown = locator(where_path).key
+        return f"'{shown}'" if shown else "the top level"
+
     kind = error.validator
     instance = error.instance
     schema = error.schema if isinstance(error.schema, dict) else {}
@@ -210,18 +230,21 @@ def _translate(
         key = missing[0] if missing else "?"
         hint = ""
         near = did_you_mean(key, [k for k in instance if isinstance(k, str)])
-        if near:
-            hint = f" (found '{near}': a misspelling?)"
         what = f"; expected {expected}" if expected else ""
+        if near:
+            return InputError.at(
+                locator(path + (near,)),
+                f"'{near}' is not a key here; did you mean '{key}'? ('{key}' is required in "
+                f"{_where(path)}){what}",
+            )
         return InputError.at(
-            locator(path), f"missing required key '{key}' in {_where(path)}{hint}{what}"
+            locator(path), f"missing required key '{key}' in {_where(path)}{what}"
         )
     if kind == "type":
         want = expected or _schema_type_text(error.validator_value)
         return InputError.at(
             locator(path),
-            f"expected {want} at {_where(path)}, found {type_name(instance)} "
-            f"{show_value(instance)}",
+            f"expected {want} for {_leaf(path)}, found {_found(instance)}",
         )
     if kind == "enum":
         options = [o for o in error.validator_value]
@@ -230,14 +253,14 @@ def _translate(
             instance, str) else ""
         return InputError.at(
             locator(path),
-            f"{show_value(instance)} is not allowed at {_where(path)}; expected one of "
+            f"{show_value(instance)} is not allowed for {_leaf(path)}; expected one of "
             f"{listed}{hint}",
         )
     if kind == "const":
         return InputError.at(
             locator(path),
-            f"expected {show_value(error.validator_value)} at {_where(path)}, found "
-            f"{show_value(instance)}",
+            f"expected {show_value(error.validator_value)} for {_leaf(path)}, found "
+            f"{_found(instance)}",
         )
     bounds = {
         "minimum": ">=", "exclusiveMinimum": ">", "maximum": "<=", "exclusiveMaximum": "<",
@@ -246,7 +269,7 @@ def _translate(
         what = f" ({expected})" if expected else ""
         return InputError.at(
             locator(path),
-            f"{_where(path)} must be {bounds[kind]} {error.validator_value}{what}, found "
+            f"{_leaf(path)} must be {bounds[kind]} {error.validator_value}{what}, found "
             f"{show_value(instance)}",
         )
     if kind in ("minItems", "maxItems"):
@@ -254,7 +277,7 @@ def _translate(
         n = error.validator_value
         return InputError.at(
             locator(path),
-            f"{_where(path)} needs {word} {n} item{'s' if n != 1 else ''}, found "
+            f"{_leaf(path)} needs {word} {n} item{'s' if n != 1 else ''}, found "
             f"{len(instance) if isinstance(instance, list) else '?'}",
         )
     if kind in ("minProperties", "maxProperties"):
@@ -266,15 +289,26 @@ def _translate(
         word = "at least" if kind == "minLength" else "at most"
         return InputError.at(
             locator(path),
-            f"{_where(path)} must be {word} {error.validator_value} characters long",
+            f"{_leaf(path)} must be {word} {error.validator_value} characters long",
         )
     if kind == "pattern":
         want = expected or f"text matching {error.validator_value}"
         return InputError.at(
-            locator(path), f"{show_value(instance)} at {_where(path)} is not {want}"
+            locator(path), f"{show_value(instance)} for {_leaf(path)} is not {want}"
         )
     if kind == "propertyNames":
         return InputError.at(locator(path), f"bad key name in {_where(path)}: {error.message}")
+    if kind in ("oneOf", "anyOf") and isinstance(instance, dict):
+        for option in error.validator_value:
+            props = option.get("properties") if isinstance(option, dict) else None
+            if props and instance and set(instance) <= set(props):
+                missing = [k for k in option.get("required", []) if k not in instance]
+                if missing:
+                    return InputError.at(
+                        locator(path),
+                        f"missing key '{missing[0]}' in {_leaf(path)}; a table with "
+                        f"{', '.join(sorted(instance))} needs {', '.join(option['required'])}",
+                    )
     if kind in ("oneOf", "anyOf", "not", "if", "then"):
         want = expected or "a value of another form"
         hint = ""
@@ -288,7 +322,7 @@ def _translate(
             hint = suggestion(instance, words)
         return InputError.at(
             locator(path),
-            f"{show_value(instance)} at {_where(path)} does not fit; expected {want}{hint}",
+            f"{_found(instance)} for {_leaf(path)} does not fit; expected {want}{hint}",
         )
     return InputError.at(locator(path), f"{_where(path)}: {error.message}")
 
