@@ -106,6 +106,7 @@ class TestUserFiles:
             expires = 2027-03-01
         """)
         (tmp_path / "a.json").write_text(json.dumps({
+            "$schema": "ruleset.schema.json",  # editors' schema hint, ignored
             "ruleset": {"name": "house", "extends": "motion"},
             "rules": {"margin.phase": {"min_deg": 45.0}},
             "waivers": [{"rule": "margin.gain", "loops": ["pan.position"],
