@@ -254,6 +254,8 @@ class TestWaivers:
         rs = ruleset(tmp_path, self.TEXT)
         (waived,) = run_engine([context(weak_phase(20.0))], rs, today=DAY)
         assert run_engine([], rs, today=DAY, cached={"tilt.velocity": (waived,)}) == ()
+        # only cached loops, none of them the waiver's: it cannot be judged
+        assert run_engine([], rs, today=DAY, cached={"pan.velocity": ()}) == ()
 
     def test_family_waiver_and_closed_loop_waiver(self, tmp_path):
         rs = ruleset(tmp_path, """

@@ -332,6 +332,8 @@ def _ruleset_findings(
         named = [n for n in all_loops if any(fnmatch.fnmatchcase(n, g) for g in w.loops)]
         if named and not any(n in evaluated for n in named):
             continue  # its loops are not part of this run: not judged
+        if not named and project_loops is None:
+            continue  # only cached loops here: the project's loop names are unknown
         why = (
             "its loops pass the rule"
             if named
