@@ -1,0 +1,89 @@
+"""One check run end to end on the demo project (fixtures/gimbal_demo)."""
+
+import datetime as dt
+import shutil
+from pathlib import Path
+
+import pytest
+
+from ruleguard.pipeline import CheckOptions, RunStatistics, check_project
+from ruleguard.rules.base import Severity
+
+DEMO = Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+AS_OF = dt.date(2026, 12, 1)
+
+
+@pytest.fixture()
+def demo(tmp_path):
+    folder = tmp_path / "demo"
+    shutil.copytree(DEMO, folder, ignore=shutil.ignore_patterns(".ruleguard-cache"))
+    return folder
+
+
+def test_demo_runs_every_loop_and_fails_on_purpose(demo):
+    report = check_project(demo / "ruleguard.toml", CheckOptions(today=AS_OF))
+    names = [lp.name for lp in report.loops]
+    assert names == [
+        "tilt.current",
+        "tilt.velocity",
+        "tilt.position",
+        "pan.current",
+        "pan.velocity",
+        "pan.position",
+        "housing.heater",
+    ]
+    assert all(lp.analysed for lp in report.loops)
+    assert all(lp.variants[0].id == "nominal" for lp in report.loops)
+    assert all(v.analysis.stability.stable for lp in report.loops for v in lp.variants)
+    # The heater's hot, slow corner misses the motion ruleset's 8 dB gain margin.
+    errors = [f for f in report.findings if f.severity == Severity.ERROR and not f.waived]
+    assert ("margin.gain", "housing.heater") in {(f.rule, f.loop) for f in errors}
+    assert report.failed
+    # The reviewed exception in policy/mast-house.toml is applied with its reason.
+    waived = [f for f in report.findings if f.waived]
+    assert [(f.rule, f.loop) for f in waived] == [("sensitivity.peak", "housing.heater")]
+    assert "MAST-212" in waived[0].waiver_reason
+
+
+def test_expired_waiver_stops_applying(demo):
+    report = check_project(demo / "ruleguard.toml", CheckOptions(today=dt.date(2027, 3, 2)))
+    assert not any(f.waived for f in report.findings)
+    rules = {(f.rule, f.loop, f.severity) for f in report.findings}
+    assert ("sensitivity.peak", "housing.heater", Severity.ERROR) in rules
+
+
+def test_changed_files_select_only_affected_loops(demo):
+    options = CheckOptions(today=AS_OF, changed_files=("plc/heater_params.json",), cwd=str(demo))
+    report = check_project(demo / "ruleguard.toml", options)
+    assert [lp.name for lp in report.loops] == ["housing.heater"]
+    options = CheckOptions(today=AS_OF, changed_files=("firmware/tilt.toml",), cwd=str(demo))
+    report = check_project(demo / "ruleguard.toml", options)
+    assert [lp.name for lp in report.loops] == ["tilt.current", "tilt.velocity", "tilt.position"]
+
+
+def test_cache_hit_skips_analysis(demo):
+    options = CheckOptions(today=AS_OF, use_cache=True)
+    first_stats = RunStatistics()
+    first = check_project(demo / "ruleguard.toml", options, statistics=first_stats)
+    assert first_stats.analysed_loops == 7 and first_stats.cached_loops == 0
+    second_stats = RunStatistics()
+    second = check_project(demo / "ruleguard.toml", options, statistics=second_stats)
+    assert second_stats.analysed_loops == 0 and second_stats.cached_loops == 7
+    assert [(f.rule, f.loop, f.measured) for f in second.findings] == [
+        (f.rule, f.loop, f.measured) for f in first.findings
+    ]
+    # An edit to one controller file re-analyses exactly the loops it feeds.
+    heater = demo / "plc" / "heater_params.json"
+    heater.write_text(heater.read_text().replace('"P": 16.5', '"P": 12.0'))
+    third_stats = RunStatistics()
+    check_project(demo / "ruleguard.toml", options, statistics=third_stats)
+    assert third_stats.analysed_loops == 1 and third_stats.cached_loops == 6
+
+
+def test_only_and_skip_select_rules(demo):
+    report = check_project(demo / "ruleguard.toml", CheckOptions(today=AS_OF, only=("margin",)))
+    assert report.findings and all(f.rule.startswith("margin.") for f in report.findings)
+    report = check_project(
+        demo / "ruleguard.toml", CheckOptions(today=AS_OF, skip=("margin", "sensitivity"))
+    )
+    assert not any(f.rule.startswith(("margin.", "sensitivity.")) for f in report.findings)
