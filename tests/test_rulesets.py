@@ -349,3 +349,16 @@ def test_builtin_rulesets_on_the_demo_project(demo_analysed, name):
             low = nominal_crossover_hz(ctx) is not None and nominal_crossover_hz(ctx) < 0.06
             assert eff["margin.phase"].parameters["min_deg"] == (30.0 if low else 45.0)
     assert judged >= 3
+
+
+def test_ruleset_and_parameters_pickle(tmp_path):
+    # rulesets and effective parameters travel to worker processes
+    import pickle
+
+    rs = load(tmp_path, "flight")
+    again = pickle.loads(pickle.dumps(rs))
+    assert again == rs and again.fingerprint() == rs.fingerprint()
+    params = effective_rules(rs, "pitch.rate")["margin.gain"].parameters
+    copy = pickle.loads(pickle.dumps(params))
+    assert dict(copy) == dict(params)
+    assert copy.location_of("min_db") == params.location_of("min_db")

@@ -25,7 +25,6 @@ import datetime
 import math
 import posixpath
 from importlib import resources
-from types import MappingProxyType
 from typing import Any
 
 from ruleguard.errors import InputError
@@ -156,7 +155,7 @@ class _Loader:
         return Ruleset(
             name=name,
             file=doc.file,
-            rules=MappingProxyType(rules),
+            rules=dict(rules),
             overrides=overrides,
             waivers=waivers,
             files=files,
@@ -179,8 +178,8 @@ def _merge(base: RuleSetting | None, top: RuleSetting) -> RuleSetting:
     return RuleSetting(
         rule=top.rule,
         severity=top.severity if top.severity is not None else base.severity,
-        parameters=MappingProxyType(parameters),
-        locations=MappingProxyType(locations),
+        parameters=dict(parameters),
+        locations=dict(locations),
         location=top.location,
     )
 
@@ -261,8 +260,8 @@ def _rule_setting(doc: Document, path: KeyPath, rule_id: str, table: dict) -> Ru
     return RuleSetting(
         rule=rule_id,
         severity=severity,
-        parameters=MappingProxyType(parameters),
-        locations=MappingProxyType(locations),
+        parameters=dict(parameters),
+        locations=dict(locations),
         location=doc.locate(path),
     )
 
@@ -374,7 +373,7 @@ def _override(doc: Document, index: int, item: dict) -> Override:
     return Override(
         loops=tuple(item.get("loops", ())),
         tags=tuple(item.get("tags", ())),
-        rules=MappingProxyType(rules),
+        rules=dict(rules),
         location=doc.locate(path),
         crossover_hz=crossover,
         index=index,
