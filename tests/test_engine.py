@@ -304,3 +304,18 @@ def test_rules_see_the_loop_configuration(tmp_path, monkeypatch):
     run_engine([context(weak_phase())], rs, today=DAY)
     assert seen["rule_parameters"]["margin.gain"]["min_db"] == 9.0
     assert seen["rule_severities"]["sensitivity.peak"] is Severity.OFF
+
+
+def test_waiver_findings_take_their_severity_from_the_ruleset(tmp_path):
+    # a team may make expired waivers errors, and silence unused ones
+    rs = ruleset(tmp_path, TestWaivers.TEXT + """
+        [rules."waiver.expired"]
+        severity = "error"
+        [rules."waiver.unused"]
+        severity = "off"
+    """)
+    late = datetime.date(2027, 3, 2)
+    found = run_engine([context(weak_phase(20.0))], rs, today=late)
+    assert [(f.rule, f.severity) for f in found] == [
+        ("margin.phase", Severity.ERROR), ("waiver.expired", Severity.ERROR)]
+    assert run_engine([context(weak_phase(50.0))], rs, today=DAY) == ()
