@@ -80,3 +80,19 @@ def test_unstable_inner_is_a_note_and_plain_loop_is_silent():
     plain = loop_spec(controller_entry())
     ev = loop_evaluation(plain, zpk([], [0.0], 1.0), analysis(crossovers_hz=[0.16]))
     assert list(separation(context(plain, [ev]), {"min_ratio": 4.0})) == []
+
+
+def test_analysis_of_the_same_inner_model_is_reused():
+    # the pipeline puts each outer variant's inner model, analysed, in the inner context;
+    # the rule takes that analysis (here a stated 50 Hz) instead of analysing again
+    spec = loop_spec(controller_entry(), inner="axis.current")
+    inner_spec, inner_ev = inner_model()
+    stated = evaluation("nominal", inner_ev.model, analysis(bandwidth_hz=50.0))
+    ctrl = block("controller", "velocity", "pid", zpk([], [0.0], 2 * math.pi * 20.0),
+                 location=spec.controller.location)
+    plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [], 1.0))
+    m = model(spec, ctrl, plant, inner=inner_ev.model)
+    ctx = context(spec, [evaluation("nominal", m, analysis(crossovers_hz=[20.0]))],
+                  inner=context(inner_spec, [stated]))
+    (v,) = separation(ctx, {"min_ratio": 4.0})
+    assert v.measured == pytest.approx(50.0 / 20.0, rel=1e-12)

@@ -94,6 +94,11 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
         f_c = max(crossings)
         inner_model = getattr(ev.model, "inner", None)
         if inner_model is not None:
+            # the pipeline's inner context holds this very inner model analysed
+            for inner_ev in ctx.inner.evaluations if ctx.inner is not None else ():
+                if inner_ev.model is inner_model:
+                    cache.setdefault(id(inner_model), inner_ev.analysis)
+                    break
             bw, lower, why = _inner_bandwidth_from_model(inner_model, cache)
         else:
             bw, lower, why = _inner_bandwidth_from_context(ctx.inner)
