@@ -362,3 +362,23 @@ def test_ruleset_and_parameters_pickle(tmp_path):
     copy = pickle.loads(pickle.dumps(params))
     assert dict(copy) == dict(params)
     assert copy.location_of("min_db") == params.location_of("min_db")
+
+
+def test_masks_in_a_ruleset(tmp_path):
+    write(tmp_path, "r.toml", """
+        [[overrides]]
+        tags = ["structural"]
+        rules = { "response.mask" = { signal = "loop", upper = [[150.0, -20.0], [400.0, -20.0]] } }
+    """)
+    rs = load(tmp_path, "r.toml")
+    eff = effective_rules(rs, "wing.bending", ("structural",))["response.mask"]
+    assert eff.parameters["upper"] == ((150.0, -20.0), (400.0, -20.0))
+    assert eff.parameters["signal"] == "loop"
+    write(tmp_path, "r.toml", """
+        [rules."response.mask"]
+        upper = [[150.0, -20.0], [100.0, -20.0]]
+    """)
+    err = error_of(tmp_path, "r.toml")
+    assert "increasing" in err.message and err.key == 'rules."response.mask".upper.1'
+    write(tmp_path, "r.toml", '[rules."response.mask"]\nsignal = "lop"\n')
+    assert "did you mean 'loop'" in error_of(tmp_path, "r.toml").message
