@@ -216,3 +216,42 @@ class TestPlacesOutsideTheProject:
         assert builtin["message"]["text"] == "<builtin>/baseline.toml:64 (rules.x)"
         assert plant["physicalLocation"]["artifactLocation"]["uri"] == "models/plants.toml"
         assert "%3C" not in json.dumps(log)
+
+
+@pytest.mark.slow
+def test_fingerprints_survive_unrelated_edits_of_the_demo(tmp_path):
+    """The real pipeline on a copy of the demo: lines move, fingerprints stay."""
+    import shutil
+
+    from ruleguard.pipeline import CheckOptions, check_project
+
+    demo = Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+    work = tmp_path / "demo"
+    shutil.copytree(demo, work, ignore=shutil.ignore_patterns(".ruleguard-cache"))
+
+    def results() -> list[dict]:
+        report = check_project(work / "ruleguard.toml", CheckOptions(use_cache=False))
+        return json.loads(sarif.render(report))["runs"][0]["results"]
+
+    def identity(result: dict) -> tuple:
+        return (result["ruleId"], result["partialFingerprints"]["ruleguardFinding/v1"])
+
+    def lines(found: list[dict]) -> dict:
+        return {identity(r): r["locations"][0]["physicalLocation"].get("region", {})
+                .get("startLine") for r in found}
+
+    before = results()
+    assert before, "the demo is meant to have findings"
+    # unrelated edits: comment lines on top of every TOML input, an unused key
+    # at the top of every JSON input (controllers ignore keys they do not use)
+    for path in work.rglob("*.toml"):
+        path.write_text("# reviewed\n# (no change to the loops)\n\n" + path.read_text())
+    for path in work.rglob("*.json"):
+        data = json.loads(path.read_text())
+        data = {"revision_note": "reformatted", **data}
+        path.write_text(json.dumps(data, indent=4) + "\n")
+    after = results()
+    assert sorted(map(identity, after)) == sorted(map(identity, before))
+    moved = [k for k, line in lines(before).items()
+             if line is not None and lines(after)[k] != line]
+    assert moved, "the edits were meant to move the findings' lines"
