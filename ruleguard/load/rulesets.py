@@ -16,7 +16,9 @@
 * every setting keeps its :class:`~ruleguard.location.Location`.
 
 A reference is a path when it ends in ``.toml``/``.json`` or holds a ``/``;
-otherwise it names a built-in ruleset.
+otherwise it names a built-in ruleset. A ruleset without ``extends`` starts
+from the catalog defaults (the values ``baseline`` states, so extending
+``baseline`` differs only in that findings can name baseline's lines).
 """
 
 from __future__ import annotations
