@@ -494,6 +494,26 @@ class TestCascades:
             build_loop(proj, proj.loops[1], NOMINAL)
         assert "ill-posed" in info.value.reason
 
+    def test_three_level_cascade_nests_closed_loops(self):
+        # position(velocity(current)): each outer plant sees the closed loop inside it.
+        # Reference: the nested definition T = C G/(1 + C G H) evaluated directly.
+        pos = plant("pos", "integrator_dead_time", gain=1.0)
+        entries = [*self.entries(), pos]
+        ci = controller("pid", kp=5.0, ki=2000.0)
+        cv = controller("pid", path="v", kp=0.4, ki=1.0)
+        cp = controller("pid", path="p", kp=3.0)
+        proj = project(entries, [loop("cur", "winding", ci, sensor="sense"),
+                                 loop("vel", "mech", cv, inner="cur"),
+                                 loop("pos", "pos", cp, inner="vel")])
+        model = build_loop(proj, proj.loops[2], NOMINAL)
+        assert model.inner.name == "vel" and model.inner.inner.name == "cur"
+        w = np.logspace(-1, 4, 200)
+        s = 1j * w
+        t_cur = direct_closed_loop(5.0 + 2000.0 / s, 1 / (4e-3 * s + 1.3), 1 / (s / 5000 + 1))
+        t_vel = direct_closed_loop(0.4 + 1.0 / s, t_cur * 50.0 / (s * (s + 2.0)), 1.0)
+        ref = 3.0 * t_vel / s
+        assert rel_err(model.open_loop.response(w), ref) < 1e-8
+
     def test_inner_not_analysable_propagates(self):
         ci = controller("pid", kp=5.0, kd=0.1)
         co = controller("pid", path="v", kp=0.4)
