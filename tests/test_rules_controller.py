@@ -170,3 +170,56 @@ def test_unanalysed_without_reason_is_a_note():
     spec = loop_spec(controller_entry(fields={"kp": 1.0}))
     (n,) = controller_stable(context(spec, []), {})
     assert n.severity is Severity.NOTE
+
+
+# ----------------------------------------------------- through the pipeline
+def write_project(root, sample_rate_line, discretization="tustin"):
+    files = {
+        "ruleguard.toml": f"""[project]
+name = "e2e"
+ruleset = "baseline"
+plants = ["models/plants.toml"]
+
+[[loops]]
+name = "axis.velocity"
+plant = "mechanics"
+controller = {{ file = "firmware/axis.toml", path = "velocity" }}
+{sample_rate_line}
+""",
+        "models/plants.toml": """[plants.mechanics]
+kind = "zero_pole_gain"
+gain = 50.0
+poles = [-5.0, -80.0]
+""",
+        "firmware/axis.toml": f"""[velocity]
+kind = "pid"
+kp = 1.0
+ki = 2.0
+kd = 0.01
+discretization = "{discretization}"
+""",
+    }
+    for rel, text in files.items():
+        (root / rel).parent.mkdir(parents=True, exist_ok=True)
+        (root / rel).write_text(text)
+    return root / "ruleguard.toml"
+
+
+def _derivative_findings(manifest):
+    from ruleguard.api import check
+
+    report = check(manifest)
+    return [f for f in report.findings if f.rule == "controller.derivative-filter"]
+
+
+def test_unfiltered_derivative_reported_once_continuous_and_sampled(tmp_path):
+    cont = _derivative_findings(write_project(tmp_path / "c", ""))
+    assert len(cont) == 1  # the loop is not analysed: one finding, with the reason
+    assert cont[0].location.file == "firmware/axis.toml"
+    sampled = _derivative_findings(write_project(tmp_path / "d", "sample_rate_hz = 1000.0"))
+    assert len(sampled) == 1 and "z = -1" in sampled[0].message
+    assert sampled[0].location.line == 5  # the kd line
+    euler = _derivative_findings(
+        write_project(tmp_path / "e", "sample_rate_hz = 1000.0", "backward_euler")
+    )
+    assert len(euler) == 1 and "z = -1" not in euler[0].message
