@@ -251,3 +251,44 @@ def test_finding_round_trip_keeps_related_and_waiver():
                               waiver_reason="r")
     back = finding_from_dict(json.loads(json.dumps(finding_to_dict(odd, finite_only=False))))
     assert back == odd
+
+
+@pytest.mark.slow
+def test_pipeline_second_run_is_served_from_the_cache(tmp_path):
+    """The real pipeline on a copy of the demo: the second run analyses nothing
+    (counted, not timed) and reports exactly what the first one did."""
+    import shutil
+    from pathlib import Path
+
+    from ruleguard.pipeline import CheckOptions, RunStatistics, check_project
+    from ruleguard.report import json_report, sarif
+
+    demo = Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+    work = tmp_path / "demo"
+    shutil.copytree(demo, work, ignore=shutil.ignore_patterns(CACHE_FOLDER))
+    options = CheckOptions(use_cache=True, today=dt.date(2026, 12, 1))
+
+    first_stats, second_stats = RunStatistics(), RunStatistics()
+    first = check_project(work / "ruleguard.toml", options, statistics=first_stats)
+    second = check_project(work / "ruleguard.toml", options, statistics=second_stats)
+    loops = len(first.loops)
+    assert (first_stats.analysed_loops, first_stats.cached_loops) == (loops, 0)
+    assert (second_stats.analysed_loops, second_stats.cached_loops) == (0, loops)
+    assert json_report.render(second) == json_report.render(first)
+    assert sarif.render(second) == sarif.render(first)
+
+    # an edit to a file of some loops: exactly those are analysed again
+    from ruleguard.load.project import load_project
+    from ruleguard.selection import loop_input_files
+
+    project = load_project(work / "ruleguard.toml")
+    inputs = {spec.name: loop_input_files(project, spec.name) for spec in project.loops}
+    controller = project.loops[-1].controller.file
+    users = {name for name, files in inputs.items() if controller in files}
+    assert 0 < len(users) < loops
+    path = work / controller
+    path.write_text(path.read_text() + "\n")
+    third_stats = RunStatistics()
+    check_project(work / "ruleguard.toml", options, statistics=third_stats)
+    assert (third_stats.analysed_loops, third_stats.cached_loops) == (
+        len(users), loops - len(users))
