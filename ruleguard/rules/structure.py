@@ -14,11 +14,11 @@ so the cancellation is found by comparing the roots of the two sides.
 References
 ----------
 K. J. Åström and R. M. Murray, *Feedback Systems*, 2nd ed., Princeton
-University Press, 2021, section 11.1 (the gang of four; cancellation of
-unstable poles and internal stability).
+University Press, 2021 (the gang of four; cancellation of unstable poles
+and internal stability; from memory).
 J. C. Doyle, B. A. Francis and A. R. Tannenbaum, *Feedback Control Theory*,
-Macmillan, 1992, section 3.3 (internal stability: no unstable pole-zero
-cancellation between C and P).
+Macmillan, 1992 (internal stability: no unstable pole-zero cancellation
+between C and P; from memory).
 """
 
 from __future__ import annotations
