@@ -74,6 +74,9 @@ DELAY_TAIL_LEVEL = 1e-3
 #: Zeros closer than this (relative) to a boundary pole cancel it.
 CANCEL_RTOL = 1e-8
 _MAX_PASSES = 80
+#: Samples per branch beyond which no further bisection is done (a curve that
+#: runs along a point, e.g. L = -1 identically, would otherwise never stop).
+_MAX_SAMPLES = 60_000
 _WIDTH_FLOOR = 1e-13
 
 
@@ -297,7 +300,7 @@ class SampledContour:
                 ad = np.abs(d)
                 a0, a1 = ad[:-1], ad[1:]
                 L0 = np.abs(br.L[:-1])
-                with np.errstate(invalid="ignore", over="ignore"):
+                with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
                     reach = np.expm1(np.minimum(br.bound, 50.0)) * L0
                     ang = np.abs(np.angle(d[1:] / d[:-1]))
                     dlog = np.abs(np.log(np.abs(br.L[1:]) / np.maximum(L0, 1e-300)))
@@ -306,7 +309,7 @@ class SampledContour:
                     split |= dlog > STEP_BOUND
                 width = np.diff(br.w)
                 split &= width > _WIDTH_FLOOR * np.maximum(br.w[1:], 1.0)
-                if not split.any():
+                if not split.any() or br.w.size + np.count_nonzero(split) > _MAX_SAMPLES:
                     break
                 self._insert(bi, split)
 
@@ -338,7 +341,7 @@ class SampledContour:
                     change = np.abs(np.log(np.abs(r))) + np.abs(np.angle(r))
                 split = (change > STEP_BOUND) & (
                     np.diff(br.w) > _WIDTH_FLOOR * np.maximum(br.w[1:], 1.0))
-                if not split.any():
+                if not split.any() or br.w.size + np.count_nonzero(split) > _MAX_SAMPLES:
                     break
                 self._insert(bi, split)
 
@@ -577,7 +580,7 @@ def _refine_rational(rational: RationalResponse, w: np.ndarray) -> tuple[np.ndar
     bound = rational.step_bound(w[:-1], w[1:])
     for _ in range(_MAX_PASSES):
         split = (bound > STEP_BOUND) & (np.diff(w) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0))
-        if not split.any():
+        if not split.any() or w.size + np.count_nonzero(split) > _MAX_SAMPLES:
             break
         idx = np.nonzero(split)[0]
         mids = 0.5 * (w[idx] + w[idx + 1])
