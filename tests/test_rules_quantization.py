@@ -134,3 +134,13 @@ def test_marginal_biquad_from_rounding_is_reported():
     stab = [v for v in out if v.key_path.endswith("block-stability")]
     assert len(stab) == 1 and stab[0].location == spec.controller.filters[0].location
     assert stab[0].measured == pytest.approx(1.0, abs=1e-9)
+
+
+def test_margin_rule_turned_off_is_not_rechecked():
+    from dataclasses import replace
+
+    from ruleguard.rules.base import Severity
+
+    _, ctx = lowpass_loop("q1.15")
+    off = replace(ctx, extras={"rule_severities": {"margin.gain": Severity.OFF}})
+    assert [v for v in quantization_robust(off, {}) if "margin.gain" in v.message] == []

@@ -11,9 +11,10 @@ passes on the exact coefficients must still pass on the rounded ones.
 ``float64`` (the reference arithmetic) and continuous loops have nothing to
 check.
 
-The margin rules run with the parameters this loop is judged with when the
-pipeline provides them (``LoopContext.extras["rule_parameters"]``, a mapping
-rule id -> parameters), otherwise with the catalog defaults.
+The margin rules run with the parameters this loop is judged with, which
+the engine provides (``LoopContext.extras["rule_parameters"]``, a mapping
+rule id -> parameters; catalog defaults without it); a margin rule turned
+``off`` for the loop (``extras["rule_severities"]``) is not re-checked.
 
 References
 ----------
@@ -176,7 +177,10 @@ def quantization_robust(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
         inner=ctx.inner,
         extras=ctx.extras,
     )
+    severities = (ctx.extras or {}).get("rule_severities", {}) or {}
     for rule in _margin_rules():
+        if severities.get(rule.id) is Severity.OFF:
+            continue  # a margin rule turned off for this loop is not re-checked either
         rule_params = _rule_params(ctx, rule)
         before = {
             v.key_path for v in rule.function(exact_ctx, rule_params) if v.severity is None
