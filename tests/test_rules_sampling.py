@@ -1,4 +1,4 @@
-"""sampling.rate and bandwidth.range.
+"""sampling.rate.
 
 References
 ----------
@@ -6,7 +6,6 @@ References
   a = 1 - K, |T(e^{j theta})|^2 = K^2/(1 - 2 a cos(theta) + a^2) and T(1) = 1,
   so |T| = 1/sqrt(2) at cos(theta) = (1 + a^2 - 2 K^2)/(2 a). The ratio of
   sample rate to bandwidth is then 2 pi / theta.
-* K/s closes to T = K/(s + K): -3 dB bandwidth w = K exactly.
 * min_ratio 10: common practice (10 to 30 samples per bandwidth period).
 """
 
@@ -16,7 +15,7 @@ import numpy as np
 import pytest
 from rule_contexts import analysis, context, controller_entry, loop_evaluation, loop_spec, zpk
 
-from ruleguard.rules import bandwidth, sampling
+from ruleguard.rules import sampling
 from ruleguard.rules.base import Severity
 
 RATE = 1000.0
@@ -76,25 +75,3 @@ def test_sampling_rate_skips_continuous_and_notes_unstable():
     ev = loop_evaluation(spec, zpk([], [1.0], 3.0, h=H), analysis(stable=False))
     (n,) = sampling.sampling_rate(context(spec, [ev]), {"min_ratio": 10.0})
     assert n.severity is Severity.NOTE and "unstable" in n.message
-
-
-def test_bandwidth_range_first_order_closed_form():
-    spec = loop_spec(controller_entry())
-    k = 2 * math.pi * 20.0  # T = K/(s + K): bandwidth 20 Hz
-    loop = zpk([], [0.0], k)
-    L = loop.response(np.array([k]))[0]
-    assert abs(L / (1 + L)) == pytest.approx(1 / math.sqrt(2), rel=1e-12)
-    ev = loop_evaluation(spec, loop, analysis(bandwidth_hz=20.0))
-    ctx = context(spec, [ev])
-    assert list(bandwidth.bandwidth_range(ctx, {"min_hz": 15.0, "max_hz": 25.0})) == []
-    (lo,) = bandwidth.bandwidth_range(ctx, {"min_hz": 30.0, "max_hz": None})
-    assert lo.measured == 20.0 and lo.limit == 30.0 and lo.unit == "Hz"
-    (hi,) = bandwidth.bandwidth_range(ctx, {"min_hz": None, "max_hz": 10.0})
-    assert hi.limit == 10.0 and "above the maximum" in hi.message
-    assert list(bandwidth.bandwidth_range(ctx, {"min_hz": None, "max_hz": None})) == []
-
-
-def test_bandwidth_unknown_is_a_note():
-    spec, ev = sampled(1.0, bw_known=False)
-    (n,) = bandwidth.bandwidth_range(context(spec, [ev]), {"min_hz": 1.0})
-    assert n.severity is Severity.NOTE
