@@ -167,3 +167,21 @@ class TestFactors:
         for k, ccw in [(5.0, 0), (15.0, -2)]:
             L = OpenLoop(ZPK([], [0.0], k), (_SmoothFactor(plant, 1000.0),))
             assert ccw_encirclements(L) == ccw
+
+
+class TestDelaySpiral:
+    def test_every_spiral_crossing(self):
+        # e^{-s}/s crosses the negative real axis where w = pi/2 + 2 pi k (angle
+        # -90 deg - w = -180 deg - 2 pi k), at x = -1/w, always upward (the
+        # winding about points nearer 0 drops by 2 at each): closed form.
+        from ruleguard.analysis.crossings import negative_axis_crossings
+
+        c = sample_contour(loop([], [0.0], 1.0, 1.0))
+        cr = sorted(negative_axis_crossings(c), key=lambda x: x.w)
+        assert len(cr) > 100  # enough to take the vectorized (Illinois) path
+        k = np.arange(len(cr))
+        ref = math.pi / 2 + 2 * math.pi * k
+        w = np.array([x.w for x in cr])
+        assert np.max(np.abs(w - ref) / ref) < 1e-12
+        assert np.allclose([x.value for x in cr], -1.0 / ref, rtol=1e-12)
+        assert all(x.weight == -2 for x in cr)
