@@ -147,49 +147,7 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
                             "delay_samples needs sample_rate_hz (a continuous loop uses delay_s)")
     notes: list[str] = []
 
-    # Controller and filters -------------------------------------------------
-    designed = [controller_block(spec.controller, h)]
-    designed += [filter_block(f, h) for f in spec.controller.filters]
-    if h is None:
-        for block in designed:
-            _require_proper(block, spec)
-    default_method = _method(spec.controller.fields.get("discretization"),
-                             spec.controller.field_locations.get("discretization",
-                                                                 spec.controller.location))
-    if h is not None and spec.controller.fields.get("discretization") is None and any(
-        not b.given_in_z for b in designed
-    ):
-        notes.append(f"no discretization given: {DEFAULT_DISCRETIZATION} (the default) used")
-    block_models: list[BlockModel] = []
-    run_blocks: list[ZPK] = []
-    for i, block in enumerate(designed):
-        if i == 0:
-            role, label, own = "controller", f"{spec.controller.path} ({block.kind})", None
-        else:
-            entry = spec.controller.filters[i - 1]
-            role = "filter"
-            label = f"{spec.controller.path}.filters.{entry.index} ({block.kind})"
-            own = entry.fields.get("discretization")
-            if own is not None:
-                own = _method(own, entry.field_locations.get("discretization", entry.location))
-        method_asked = own or default_method
-        run, method = _run_block(block, method_asked, h)
-        if method_asked == "tustin_prewarp" and method == "tustin" and block.prewarp_hz:
-            notes.append(f"{label}: prewarp frequency {block.prewarp_hz:g} Hz is not below the "
-                         "Nyquist frequency; plain Tustin used")
-        if method == "forward_euler" and not run.is_proper:
-            notes.append(f"{label}: forward Euler leaves the unfiltered derivative non-causal")
-        run_blocks.append(run)
-        chars = dict(block.characteristic_hz)
-        if method == "tustin_prewarp":
-            chars["prewarp_hz"] = float(block.prewarp_hz)
-        block_models.append(BlockModel(
-            role=role, label=label, kind=block.kind,
-            continuous=None if block.given_in_z else block.model,
-            discrete=run if h is not None else None,
-            method=method, characteristic_hz=chars,
-            location=block.location,
-        ))
+    block_models, run_blocks = _controller_side(spec, h, notes)
     controller_path = run_blocks[0]
     for blk in run_blocks[1:]:
         controller_path = controller_path * blk
@@ -263,6 +221,54 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
         inner=inner_model,
     )
     return _Built(model, forward)
+
+
+def _controller_side(spec: LoopSpec, h: float | None, notes: list[str]
+                     ) -> tuple[list[BlockModel], list[ZPK]]:
+    """The controller and its filters as designed and as run (in the loop's domain)."""
+    designed = [controller_block(spec.controller, h)]
+    designed += [filter_block(f, h) for f in spec.controller.filters]
+    if h is None:
+        for block in designed:
+            _require_proper(block, spec)
+    default_method = _method(spec.controller.fields.get("discretization"),
+                             spec.controller.field_locations.get("discretization",
+                                                                 spec.controller.location))
+    if h is not None and spec.controller.fields.get("discretization") is None and any(
+        not b.given_in_z for b in designed
+    ):
+        notes.append(f"no discretization given: {DEFAULT_DISCRETIZATION} (the default) used")
+    block_models: list[BlockModel] = []
+    run_blocks: list[ZPK] = []
+    for i, block in enumerate(designed):
+        if i == 0:
+            role, label, own = "controller", f"{spec.controller.path} ({block.kind})", None
+        else:
+            entry = spec.controller.filters[i - 1]
+            role = "filter"
+            label = f"{spec.controller.path}.filters.{entry.index} ({block.kind})"
+            own = entry.fields.get("discretization")
+            if own is not None:
+                own = _method(own, entry.field_locations.get("discretization", entry.location))
+        method_asked = own or default_method
+        run, method = _run_block(block, method_asked, h)
+        if method_asked == "tustin_prewarp" and method == "tustin" and block.prewarp_hz:
+            notes.append(f"{label}: prewarp frequency {block.prewarp_hz:g} Hz is not below the "
+                         "Nyquist frequency; plain Tustin used")
+        if method == "forward_euler" and not run.is_proper:
+            notes.append(f"{label}: forward Euler leaves the unfiltered derivative non-causal")
+        run_blocks.append(run)
+        chars = dict(block.characteristic_hz)
+        if method == "tustin_prewarp":
+            chars["prewarp_hz"] = float(block.prewarp_hz)
+        block_models.append(BlockModel(
+            role=role, label=label, kind=block.kind,
+            continuous=None if block.given_in_z else block.model,
+            discrete=run if h is not None else None,
+            method=method, characteristic_hz=chars,
+            location=block.location,
+        ))
+    return block_models, run_blocks
 
 
 def _entry(project: Project, name: str, spec: LoopSpec, key: str) -> PlantEntry:
