@@ -185,3 +185,33 @@ class TestDelaySpiral:
         assert np.max(np.abs(w - ref) / ref) < 1e-12
         assert np.allclose([x.value for x in cr], -1.0 / ref, rtol=1e-12)
         assert all(x.weight == -2 for x in cr)
+
+
+class _BlockFactor:
+    """A factored block seen only through its response (like a block at another rate)."""
+
+    unstable_poles = 0
+    integrators = 0
+    w_min = 0.0
+    w_max = math.inf
+
+    def __init__(self, block):
+        self.block = block
+
+    def response(self, w):
+        return self.block.response(w)
+
+    def grid(self):
+        return np.zeros(0)  # no hint: the sampling must find the resonance itself
+
+
+class TestBlockFactor:
+    @pytest.mark.parametrize("ratio, ccw", [(0.97, 0), (1.03, -2)])
+    def test_light_resonance_inside_a_factor(self, ratio, ccw):
+        # k/s times wn^2/(s^2 + 2 zeta wn s + wn^2) given as a factor: Routh,
+        # stable iff k < 2 zeta wn (as in TestContinuous), zeta = 0.001
+        zeta, wn = 0.001, 10.0
+        p = complex(-zeta * wn, wn * math.sqrt(1 - zeta**2))
+        factor = _BlockFactor(ZPK([], [p, p.conjugate()], wn**2))
+        L = OpenLoop(ZPK([], [0.0], ratio * 2 * zeta * wn), (factor,))
+        assert ccw_encirclements(L) == ccw

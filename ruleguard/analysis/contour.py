@@ -89,7 +89,9 @@ class RationalResponse:
     complex arithmetic for the root finders.
     """
 
-    def __init__(self, block: ZPK) -> None:
+    def __init__(self, block: ZPK, extras: tuple[RationalResponse, ...] = ()) -> None:
+        #: factored blocks inside response factors (their roots also bound the steps)
+        self.extras = extras
         if not block.is_proper:
             raise ValueError(
                 f"the open loop is improper ({block.zeros.size} zeros, {block.poles.size} "
@@ -158,6 +160,12 @@ class RationalResponse:
         bounded by ``sum 1/dist^2`` over the roots (distance from each root to
         the step). A transport delay adds ``tau`` to ``|D|``.
         """
+        own = self._own_step_bound(wa, wb)
+        for extra in self.extras:
+            own = own + extra.step_bound(wa, wb)
+        return own
+
+    def _own_step_bound(self, wa, wb) -> np.ndarray:
         wa = np.asarray(wa, dtype=float)
         wb = np.asarray(wb, dtype=float)
         mid = 0.5 * (wa + wb)
@@ -557,14 +565,16 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
         n = max(int(8 * math.log10(b / lo)) + 2, 2)
         pts.append(np.geomspace(lo, b, n))
     offsets = np.array([-10, -3, -1, -0.3, 0.0, 0.3, 1, 3, 10])
-    r = rational.roots
-    if r.size:
-        if rational.h is None:
+    for part in (rational, *rational.extras):
+        r = part.roots
+        if not r.size:
+            continue
+        if part.h is None:
             wr, dr = np.abs(r.imag), np.abs(r.real)
         else:
             nz = r[np.abs(r) > 1e-300]
-            wr = np.abs(np.angle(nz)) / rational.h
-            dr = np.abs(np.log(np.abs(nz))) / rational.h
+            wr = np.abs(np.angle(nz)) / part.h
+            dr = np.abs(np.log(np.abs(nz))) / part.h
         cand = (wr[:, None] + dr[:, None] * offsets[None, :]).ravel()
         pts.append(cand)
     for f in open_loop.factors:
@@ -613,7 +623,12 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
     ----------
     H. Nyquist, "Regeneration theory", Bell System Technical Journal 11(1), 1932.
     """
-    rational = RationalResponse(open_loop.rational)
+    extras = []
+    for f in open_loop.factors:
+        block = getattr(f, "block", None)  # a factored block seen through its response
+        if isinstance(block, ZPK) and block.is_proper:
+            extras.append(RationalResponse(block))
+    rational = RationalResponse(open_loop.rational, tuple(extras))
     notes: list[str] = []
     lo_scale, hi_scale = _scale_hint(rational, open_loop)
     top = open_loop.w_max  # Nyquist, end of data, or inf
