@@ -140,7 +140,7 @@ class TestSections:
         np.testing.assert_allclose(cascade.to_zpk().response([10.0, 3000.0]),
                                    blk.response([10.0, 3000.0]), rtol=1e-12)
 
-    @pytest.mark.parametrize("seed", range(20))
+    @pytest.mark.parametrize("seed", range(40))
     def test_realization_reproduces_block(self, seed):
         # sections in float64 rebuild the block exactly (up to rounding), also
         # for improper blocks (forward Euler of an unfiltered derivative)
@@ -148,8 +148,14 @@ class TestSections:
         n = int(rng.integers(1, 9))
         poles = rng.uniform(0.2, 0.97, n) * np.exp(1j * rng.uniform(0, math.pi, n))
         poles = np.concatenate([poles[: n // 2], poles[: n // 2].conj(), poles.real[n // 2 :]])
+        # integrators (z = 1) and Tustin derivative poles (z = -1) now and then
+        poles = np.concatenate([poles, [1.0] * int(rng.integers(0, 2)),
+                                [-1.0] * int(rng.integers(0, 2))])
         m = int(rng.integers(0, poles.size + 2))
         zeros = rng.uniform(-1.5, 1.5, m)
+        if m >= 2 and rng.random() < 0.5:  # a complex zero pair (PID zeros)
+            zc = 0.9 * np.exp(0.3j)
+            zeros = np.concatenate([zeros[:-2], [zc, np.conj(zc)]])
         blk = ZPK(zeros, poles, float(rng.uniform(0.1, 10)), sample_time_s=1e-3)
         cascade = second_order_sections(blk, "float64")
         w = np.linspace(1.0, math.pi / 1e-3, 50)
