@@ -597,3 +597,57 @@ class TestBuiltLoopsAnalysed:
         proj, stable = self.sampled_case(seed)
         analysis = analyse_open_loop(build_loop(proj, proj.loops[0], NOMINAL).open_loop)
         assert analysis.stability.stable == stable
+
+
+# ----------------------------------------------- closed loops, randomized
+def random_block(rng, n_poles, n_zeros, discrete):
+    """A random real block: conjugate pairs and real roots, stable or not."""
+    def roots(n):
+        out = []
+        while len(out) < n:
+            if n - len(out) >= 2 and rng.random() < 0.5:
+                r = rng.uniform(0.2, 1.1) if discrete else rng.uniform(0.5, 50.0)
+                ang = rng.uniform(0.1, 3.0) if discrete else rng.uniform(0.3, 2.8)
+                c = r * np.exp(1j * ang) if discrete else r * np.exp(1j * (math.pi / 2 + ang / 2))
+                out += [c, np.conj(c)]
+            else:
+                out.append(rng.uniform(-0.9, 0.9) if discrete else -rng.uniform(0.1, 50.0))
+        return np.array(out, dtype=complex)
+    return ZPK(roots(n_zeros), roots(n_poles), rng.uniform(0.2, 5.0) * rng.choice([-1, 1]),
+               0.0, 1e-3 if discrete else None)
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_closed_loop_zpk_against_mpmath_roots_and_direct_evaluation(seed):
+    # Reference 1: closed-loop poles = roots of den_F den_H + num_F num_H, found by
+    # mpmath.polyroots at 60 digits from the multiplied-out polynomials (exact products
+    # at that precision). Reference 2: T = F/(1 + F H) evaluated directly.
+    rng = np.random.default_rng(seed)
+    discrete = bool(seed % 2)
+    nf = int(rng.integers(1, 7))
+    fwd = random_block(rng, nf, int(rng.integers(0, nf + 1)), discrete)
+    nh = int(rng.integers(0, 3))
+    sensor = random_block(rng, nh, int(rng.integers(0, nh + 1)), discrete)
+    sensor = ZPK(sensor.zeros, sensor.poles, abs(sensor.gain), 0.0, sensor.sample_time_s)
+    t = closed_loop_zpk(fwd, fwd * sensor)
+    with mpmath.workdps(60):
+        def poly(roots, k=1):
+            p = [mpmath.mpf(k)]
+            for r in roots:
+                rr = mpmath.mpc(r.real, r.imag)
+                p = [a - rr * b for a, b in zip(p + [0], [0] + p, strict=True)]
+            return p
+        den = poly(np.concatenate([fwd.poles, sensor.poles]))
+        num = poly(np.concatenate([fwd.zeros, sensor.zeros]), fwd.gain * sensor.gain)
+        num = [0] * (len(den) - len(num)) + num
+        char = [a + b for a, b in zip(den, num, strict=True)]
+        while abs(char[0]) == 0:
+            char = char[1:]
+        ref = np.array([complex(r) for r in mpmath.polyroots(char, maxsteps=400, extraprec=400)])
+    ours = t.poles
+    assert ours.size == ref.size
+    for r in ref:  # every reference root has a match (tolerance relative to its size)
+        assert np.min(np.abs(ours - r)) <= 1e-10 * max(1.0, abs(r))
+    w = np.linspace(0.3, 0.97 * math.pi / 1e-3, 200) if discrete else np.logspace(-1, 3, 200)
+    direct = fwd.response(w) / (1 + fwd.response(w) * sensor.response(w))
+    assert rel_err(t.response(w), direct) < 1e-11
