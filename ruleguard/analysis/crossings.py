@@ -178,6 +178,10 @@ def _direction_near(L: np.ndarray, from_end: bool) -> float:
     return 0.0
 
 
+def _on_axis(v: complex) -> bool:
+    return abs(v.imag) <= 1e-12 * abs(v)
+
+
 def negative_axis_crossings(contour: SampledContour) -> list[AxisCrossing]:
     """Every crossing of the negative real axis by the closed curve.
 
@@ -193,9 +197,10 @@ def negative_axis_crossings(contour: SampledContour) -> list[AxisCrossing]:
     for bi, br in enumerate(contour.branches):
         w, L = br.w, br.L
         lo, hi = 0, w.size
-        if bi == 0 and contour.starts_at_zero:
+        # an end point on the real axis is an end crossing (below), not a bracket end
+        if bi == 0 and contour.starts_at_zero and _on_axis(complex(L[0])):
             lo = 1
-        if bi == nb - 1 and contour.end in ("nyquist", "data"):
+        if bi == nb - 1 and contour.end in ("nyquist", "data") and _on_axis(complex(L[-1])):
             hi = w.size - 1
         if hi - lo < 2:
             continue
