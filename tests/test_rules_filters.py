@@ -55,7 +55,8 @@ def sampled_ctx(filters, rate, methods):
         if c is None:
             d = zpk([-1.0], [0.5], 1.0, h=h)
         else:
-            prewarp = 2 * math.pi * spec.controller.filters[i].fields.get("center_hz", 0) or None
+            ffields = spec.controller.filters[i].fields
+            prewarp = 2 * math.pi * ffields.get("prewarp_hz", ffields.get("center_hz", 0)) or None
             d = discretize_block(c, method, h, prewarp if method == "tustin_prewarp" else None)
         fblocks.append(block("filter", f"velocity.filters.{i} ({kind})", kind, c, d, method,
                              spec.controller.filters[i].location))
@@ -92,6 +93,25 @@ def test_plain_tustin_notch_shift_fails_prewarp_passes():
     low, *_ = notch(500.0, 100.0, 20.0)
     spec, ctx = sampled_ctx([("notch", {"center_hz": 500.0}, low)], 20000.0, ["tustin"])
     assert list(below_nyquist(ctx, {"max_fraction": 0.8, "max_shift_percent": 2.0})) == []
+
+
+def test_notch_prewarped_elsewhere_shift_closed_form():
+    # prewarped at w0: c = w0/tan(w0 h/2), the centre lands at (2/h) atan(w/c)
+    rate, f0, fp = 20000.0, 1800.0, 500.0
+    h = 1 / rate
+    c_tustin = (2 * math.pi * fp) / math.tan(math.pi * fp * h)
+    landed_cf = (2 / h) * math.atan(2 * math.pi * f0 / c_tustin) / (2 * math.pi)
+    c, *_ = notch(f0, 300.0, 25.0)
+    d = discretize_block(c, "tustin_prewarp", h, 2 * math.pi * fp)
+    w = 2 * math.pi * np.linspace(1700, 1850, 150001)
+    assert landed_cf == pytest.approx(w[np.argmin(np.abs(d.response(w)))] / (2 * math.pi),
+                                      abs=2e-3)
+    fields = {"center_hz": f0, "width_hz": 300.0, "depth_db": 25.0, "prewarp_hz": fp}
+    spec, ctx = sampled_ctx([("notch", fields, c)], rate, ["tustin_prewarp"])
+    (v,) = below_nyquist(ctx, {"max_fraction": 0.8, "max_shift_percent": 2.0})
+    assert v.measured == pytest.approx(100 * (1 - landed_cf / f0), rel=1e-9)  # 2.36 %
+    assert v.frequency_hz == pytest.approx(landed_cf, rel=1e-12)
+    assert "prewarped at 500 Hz" in v.message
 
 
 def test_filter_frequency_near_nyquist_fails_biquad_skipped():

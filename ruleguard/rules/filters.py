@@ -29,7 +29,7 @@ from typing import Any
 
 import numpy as np
 
-from ruleguard.models.discretize import prewarp_shift
+from ruleguard.models.discretize import prewarp_shift, tustin_constant
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     as_number,
@@ -57,14 +57,23 @@ FREQUENCY_FIELDS = ("center_hz", "cutoff_hz", "zero_hz", "pole_hz", "prewarp_hz"
 GIVEN_IN_Z = ("biquad",)
 
 
-def tustin_shift_percent(design_hz: float, sample_rate_hz: float) -> tuple[float, float]:
-    """``(landed_hz, shift_percent)`` of a feature at ``design_hz`` under plain Tustin.
+def tustin_shift_percent(
+    design_hz: float, sample_rate_hz: float, prewarp_hz: float | None = None
+) -> tuple[float, float]:
+    """``(landed_hz, shift_percent)`` of a feature at ``design_hz`` under Tustin.
 
-    ``landed_hz = (f_s/pi) atan(pi f / f_s)``
-    (:func:`ruleguard.models.discretize.prewarp_shift`); the shift is
-    ``100 (f - landed) / f``.
+    Plain Tustin: ``landed_hz = (f_s/pi) atan(pi f / f_s)``
+    (:func:`ruleguard.models.discretize.prewarp_shift`). Tustin prewarped at
+    ``w0``, ``s = c (z - 1)/(z + 1)`` with ``c = w0 / tan(w0 h/2)``: on the unit
+    circle ``s = j c tan(w_d h/2)``, so ``w_d = (2/h) atan(w / c)``, exact at
+    ``w = w0``. The shift is ``100 (f - landed) / f`` (positive: lower).
     """
-    landed = prewarp_shift(design_hz, sample_rate_hz)
+    if prewarp_hz is None:
+        landed = prewarp_shift(design_hz, sample_rate_hz)
+    else:
+        h = 1.0 / sample_rate_hz
+        c = tustin_constant(h, 2.0 * math.pi * prewarp_hz)
+        landed = (2.0 / h) * math.atan(2.0 * math.pi * design_hz / c) / (2.0 * math.pi)
     return landed, 100.0 * (design_hz - landed) / design_hz
 
 
@@ -130,18 +139,26 @@ def below_nyquist(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
             )
         method = str(getattr(block, "method", "") or "")
         center = as_number(entry.fields.get("center_hz"))
-        if entry.kind == "notch" and method == "tustin" and center and center < nyq:
-            landed, shift = tustin_shift_percent(center, rate)
-            if shift > max_shift:
+        prewarp = as_number(entry.fields.get("prewarp_hz"))
+        if method == "tustin_prewarp" and prewarp is not None and 0 < prewarp < nyq:
+            how = f"Tustin prewarped at {fmt(prewarp)} Hz"
+        elif method == "tustin":
+            how, prewarp = "plain Tustin", None
+        else:
+            how = None  # prewarped at the centre (exact there), Euler, or given in z
+        if entry.kind == "notch" and how and center and center < nyq:
+            landed, shift = tustin_shift_percent(center, rate, prewarp)
+            if abs(shift) > max_shift:
                 out.append(
                     Violation(
                         variant=None,
                         message=(
                             f"notch {i} designed at {fmt(center)} Hz lands at {fmt(landed)} Hz "
-                            f"under plain Tustin ({shift:.3g} % low, limit {fmt(max_shift)} %): "
-                            "use `discretization = \"tustin_prewarp\"` for this filter"
+                            f"under {how} ({abs(shift):.3g} % {'low' if shift > 0 else 'high'}, "
+                            f"limit {fmt(max_shift)} %): use `discretization = "
+                            "\"tustin_prewarp\"` prewarped at the notch centre"
                         ),
-                        measured=shift,
+                        measured=abs(shift),
                         limit=max_shift,
                         unit="%",
                         frequency_hz=landed,
@@ -304,12 +321,12 @@ RULES: tuple[RuleSpec, ...] = (
             "lead-lag, s-domain transfer function): every frequency that places it "
             "(`center_hz`, `cutoff_hz`, `zero_hz`, `pole_hz`, `prewarp_hz`, or the roots of "
             "a transfer function) must lie below `max_fraction` (0.8) of the Nyquist "
-            "frequency. A notch discretized by plain `tustin` must not move by more than "
-            "`max_shift_percent` (2 %): Tustin maps the analog frequency w to "
-            "w_d = (2/h) atan(w h/2), so a notch designed at f lands at "
-            "(f_s/pi) atan(pi f/f_s), always lower. Biquads and z-domain blocks are "
-            "designed in the sampled domain and are not checked. Continuous loops are not "
-            "checked.\n\n"
+            "frequency. A notch discretized by plain `tustin` (or prewarped at a `prewarp_hz` "
+            "other than its centre) must not move by more than `max_shift_percent` (2 %): "
+            "Tustin maps the analog frequency w to w_d = (2/h) atan(w h/2), so a notch "
+            "designed at f lands at (f_s/pi) atan(pi f/f_s), always lower. Biquads and "
+            "z-domain blocks are designed in the sampled domain and are not checked. "
+            "Continuous loops are not checked.\n\n"
             "Why it matters: near the Nyquist frequency the sampled filter no longer has "
             "the response it was designed with; a notch that lands a few per cent low "
             "misses a lightly damped resonance entirely, because the notch is narrow.\n\n"
