@@ -405,11 +405,16 @@ def zoh_state_space(
 
     and ``y[k] = C x[k] + D u(kh - tau) = C x[k] + D u[k-1-d]`` when
     ``f > 0`` (``D u[k-d]`` when ``f = 0``). The integrals come from one
-    block-matrix exponential each ([VL]):
-    ``expm([[A, B], [0, 0]] t) = [[e^{A t}, int_0^t e^{A s} ds B], [0, 1]]``.
-    For ``f > 0`` the state is augmented with ``u[k-1]``, which adds a pole
-    at ``z = 0``; the ``d`` whole samples are kept as ``delay_samples``.
-    Nothing is rounded and no rational approximation of the delay is used.
+    block-matrix exponential per interval ([VL]):
+    ``expm([[A, I, B], [0, 0, 0], [0, 0, 0]] t)`` holds ``e^{A t}``,
+    ``Psi(t) = int_0^t e^{A s} ds`` and ``Psi(t) B``; ``Phi - I = A Psi(h)``
+    is kept as well (``a_minus_identity``), free of the cancellation of
+    ``e^{A h} - I`` for slow modes. For ``f > 0`` the state is augmented with
+    ``u[k-1]``, which adds a pole at ``z = 0``; the ``d`` whole samples are
+    kept as ``delay_samples``. Nothing is rounded and no rational
+    approximation of the delay is used. A ZPK block is realised by
+    :func:`scaled_cascade_realization`; a StateSpace block is balanced by a
+    diagonal similarity first.
 
     Parameters
     ----------
@@ -488,9 +493,11 @@ def zoh_equivalent(
     * gain: fitted (real, least squares) to the realization's response at
       points on the unit circle away from every root.
 
-    The realization itself is a cascade of first- and second-order sections
-    (:func:`ruleguard.models.lti.zpk_to_state_space`), which keeps blocks of
-    order 50 accurate.
+    The realization is a well-scaled modal cascade
+    (:func:`scaled_cascade_realization`) and the zeros are computed in the
+    delta form (:func:`discrete_zeros`); measured against a 50-digit modal
+    computation the response of plants of order 50 agrees to about 1e-11
+    relative (tests/test_discretize.py).
 
     Parameters
     ----------
