@@ -255,3 +255,23 @@ def test_fingerprints_survive_unrelated_edits_of_the_demo(tmp_path):
     moved = [k for k, line in lines(before).items()
              if line is not None and lines(after)[k] != line]
     assert moved, "the edits were meant to move the findings' lines"
+
+
+class TestRepositoryPrefix:
+    def test_found_from_the_git_work_tree(self, tmp_path):
+        (tmp_path / ".git").mkdir()
+        project = tmp_path / "controls" / "drive"
+        project.mkdir(parents=True)
+        assert sarif.repository_prefix(project) == "controls/drive"
+        assert sarif.repository_prefix(tmp_path) == ""
+        report = sample_report(root=str(project))
+        uri = _log(report)["runs"][0]["results"][0]["locations"][0]["physicalLocation"][
+            "artifactLocation"]["uri"]
+        assert uri == "controls/drive/firmware/tilt.toml"
+        # an explicit prefix wins
+        uri = _log(report, uri_prefix="")["runs"][0]["results"][0]["locations"][0][
+            "physicalLocation"]["artifactLocation"]["uri"]
+        assert uri == "firmware/tilt.toml"
+
+    def test_no_work_tree(self, tmp_path):
+        assert sarif.repository_prefix(tmp_path / "nowhere") == ""

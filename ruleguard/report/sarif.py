@@ -9,8 +9,8 @@ findings as results with an external suppression carrying the reason.
 What scanners rely on (INTEGRATION.md):
 
 * ``ruleId`` is our dotted rule id, stable across runs and versions;
-* artifact URIs are relative (from the manifest's folder, optionally under
-  ``uri_prefix``, the manifest folder's path within the repository) with
+* artifact URIs are relative to the repository root (the manifest's folder
+  prefixed with its path in the git work tree, ``uri_prefix``) with
   ``uriBaseId`` ``PROJECTROOT``; no absolute machine path appears unless
   the caller passes ``root_uri`` for ``originalUriBaseIds``;
 * ``partialFingerprints`` come from the rule id, the loop name and the key
@@ -22,6 +22,8 @@ from __future__ import annotations
 
 import hashlib
 import json
+import os
+from pathlib import Path
 
 from ruleguard.location import Location
 from ruleguard.report.model import Report, RuleInfo
@@ -51,6 +53,25 @@ def finding_fingerprint(finding: Finding) -> str:
         parts.append(finding.location.file)
     digest = hashlib.sha256("\x1f".join(parts).encode("utf-8")).hexdigest()
     return digest[:32]
+
+
+def repository_prefix(root: str | os.PathLike) -> str:
+    """The manifest folder's path inside its git work tree (``/`` separated),
+    or ``""`` when it is the work tree's top or lies in none.
+
+    Scanners resolve SARIF paths against the repository root; a manifest in a
+    subfolder needs this prefix. Found by looking for ``.git`` in the folder
+    and its parents (no git command is run).
+    """
+    try:
+        start = Path(root).resolve()
+    except OSError:
+        return ""
+    for folder in (start, *start.parents):
+        if (folder / ".git").exists():
+            rel = start.relative_to(folder).as_posix()
+            return "" if rel == "." else rel
+    return ""
 
 
 def _uri(file: str, uri_prefix: str) -> str:
@@ -111,7 +132,7 @@ def _message(finding: Finding) -> str:
 def render(
     report: Report,
     *,
-    uri_prefix: str = "",
+    uri_prefix: str | None = None,
     root_uri: str | None = None,
     indent: int | None = 2,
     **_options,
@@ -125,11 +146,14 @@ def render(
     uri_prefix:
         Path of the manifest's folder relative to the repository root (``/``
         separators), prepended to every artifact URI so that scanners find
-        the files; empty when the manifest sits at the repository root.
+        the files; ``""`` when the manifest sits at the repository root.
+        ``None`` (the default): found with :func:`repository_prefix`.
     root_uri:
         An absolute ``file://`` URI for ``PROJECTROOT`` in
         ``originalUriBaseIds``; omitted by default (no machine paths).
     """
+    if uri_prefix is None:
+        uri_prefix = repository_prefix(report.root)
     return json.dumps(sarif_log(report, uri_prefix=uri_prefix, root_uri=root_uri),
                       indent=indent, ensure_ascii=False, allow_nan=False) + "\n"
 
