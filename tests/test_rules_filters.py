@@ -276,3 +276,33 @@ def test_filter_rules_on_a_loaded_sampled_project(tmp_path):
     peak = 20 * np.log10(np.max(np.abs(loop)))
     assert cov.measured == pytest.approx(peak, abs=1e-3)
     assert cov.frequency_hz == pytest.approx(f[np.argmax(np.abs(loop))], abs=2e-3)
+
+
+def test_resonance_above_nyquist_is_measured_where_it_aliases():
+    # a 700 Hz mode sampled at 1 kHz shows at |700 - 1000| = 300 Hz (ZOH pole e^{p h})
+    import warnings
+
+    from scipy import signal
+
+    from ruleguard.models.discretize import zoh_equivalent
+
+    rate, h = 1000.0, 1e-3
+    w_r = 2 * math.pi * 700.0
+    g = zpk([], [0.0, *pair(700.0, 0.01)], 2 * math.pi * 20.0 * w_r * w_r)
+    spec = loop_spec(controller_entry(fields={"kp": 1.0}), sample_rate_hz=rate)
+    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], 1.0), zpk([], [], 1.0, h=h),
+                 "tustin", spec.controller.location)
+    plant = block("plant", "mechanics", "zero_pole_gain", g, zoh_equivalent(g, h), "zoh",
+                  PLANT_LOC)
+    m = model(spec, ctrl, plant)
+    ctx = context(spec, [evaluation("nominal", m, analysis(crossovers_hz=[20.0]))])
+    (v,) = resonance_coverage(ctx, {"min_attenuation_db": 6.0, "max_damping": 0.2})
+    assert "aliasing" in v.message and v.frequency_hz == pytest.approx(300.0, rel=1e-2)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        num, den, _ = signal.cont2discrete(([g.gain], np.real(np.poly(g.poles))), h, "zoh")
+    f = np.linspace(290.0, 310.0, 40001)
+    z = np.exp(1j * 2 * math.pi * f * h)
+    mag = 20 * np.log10(np.abs(np.polyval(np.ravel(num), z) / np.polyval(den, z)))
+    assert v.measured == pytest.approx(np.max(mag), abs=1e-3)
+    assert v.frequency_hz == pytest.approx(f[np.argmax(mag)], abs=2e-3)
