@@ -229,7 +229,8 @@ def _translate(
         missing = [k for k in error.validator_value if k not in instance]
         key = missing[0] if missing else "?"
         hint = ""
-        near = did_you_mean(key, [k for k in instance if isinstance(k, str)])
+        known = schema.get("properties", {})
+        near = did_you_mean(key, [k for k in instance if isinstance(k, str) and k not in known])
         what = f"; expected {expected}" if expected else ""
         if near:
             return InputError.at(
