@@ -245,7 +245,8 @@ def _figure_row(row: FigureRow, several: bool):
     cells = [Text(label), Text(_cell(row.nominal, row.unit))]
     if several:
         cells.append(Text(_cell(row.worst, row.unit)))
-        cells.append(Text(row.worst.variant or "" if row.worst.state != NOT_APPLICABLE else ""))
+        shown = row.worst.variant if row.worst.state != NOT_APPLICABLE else None
+        cells.append(Text(shown or ""))
     return cells
 
 
