@@ -77,20 +77,6 @@ def variant_id(evaluation: Evaluation) -> str:
     return str(getattr(variant, "id", variant))
 
 
-def analysed(ctx: LoopContext) -> bool:
-    """True when the loop has analysed variants.
-
-    A loop that could not be analysed already carries a finding that says
-    why (the pipeline reports the :class:`~ruleguard.errors.LoopNotAnalysable`
-    reason); model-based rules then add nothing of their own.
-    """
-    return bool(ctx.evaluations)
-
-
-def is_discrete(ctx: LoopContext) -> bool:
-    return ctx.spec.sample_rate_hz is not None
-
-
 def nyquist_hz(ctx: LoopContext) -> float | None:
     rate = ctx.spec.sample_rate_hz
     return None if rate is None else 0.5 * float(rate)
