@@ -144,3 +144,18 @@ def test_margin_rule_turned_off_is_not_rechecked():
     _, ctx = lowpass_loop("q1.15")
     off = replace(ctx, extras={"rule_severities": {"margin.gain": Severity.OFF}})
     assert [v for v in quantization_robust(off, {}) if "margin.gain" in v.message] == []
+
+
+def test_controller_path_with_zero_gain_is_a_note():
+    from ruleguard.rules.base import Severity
+
+    fields = {"kp": 0.0, "numeric_format": "q1.15"}
+    spec = loop_spec(controller_entry(fields=fields), sample_rate_hz=RATE)
+    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], 0.0), zpk([], [], 0.0, h=H),
+                 "tustin", spec.controller.location)
+    plant = block("plant", "m", "zpk", zpk([], [-1.0], 1.0), zpk([], [0.5], 1.0, h=H), "zoh")
+    m = model(spec, ctrl, plant)
+    ctx = context(spec, [evaluation("nominal", m, analyse_open_loop(m.open_loop))])
+    (n,) = quantization_robust(ctx, {})
+    assert n.severity is Severity.NOTE and n.location == spec.controller.field_locations[
+        "numeric_format"]

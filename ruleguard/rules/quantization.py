@@ -35,6 +35,7 @@ from ruleguard.rules.evidence import (
     block_location,
     controller_field_location,
     key,
+    note,
     unanalysed_notes,
     variant_id,
 )
@@ -109,7 +110,17 @@ def quantization_robust(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
     unstable_blocks: dict[str, tuple] = {}
     lost_stability: list[tuple] = []
     for ev in ctx.evaluations:
-        q_model, report = quantized_model(ev.model, fmt_name)
+        try:
+            q_model, report = quantized_model(ev.model, fmt_name)
+        except ValueError as exc:  # documented: a loop whose controller path cannot be split
+            return [
+                note(
+                    f"quantization to {fmt_name} not checked: {exc}",
+                    format_loc,
+                    key_path=key(base, "unsupported"),
+                    variant=variant_id(ev),
+                )
+            ]
         vid = variant_id(ev)
         reports[vid] = (q_model, report)
         rounded_blocks = {b.label: b for b in (q_model.controller, *q_model.filters)}
