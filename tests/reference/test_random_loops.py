@@ -363,3 +363,56 @@ def test_loops_with_response_factors_match_the_rational_verdict():
             block.zeros, block.poles, block.gain, block.sample_time_s)
         compared += 1
     assert compared > 150
+
+
+def test_delay_margin_is_the_destabilising_delay():
+    # The delay margin is the smallest extra delay that destabilises the loop
+    # (FORMATS.md section 5). With one gain crossover where |L| falls, the
+    # pair of closed-loop roots on j w_c crosses to the right as the delay
+    # grows (Cooke & van den Driessche, J. Math. Anal. Appl. 86, 1982): the
+    # loop with 0.98 DM must be stable, with 1.02 DM unstable.
+    rng = np.random.default_rng(4242)
+    checked = 0
+    for _ in range(400):
+        n = int(rng.integers(1, 11))
+        poles = -np.exp(rng.uniform(np.log(0.1), np.log(30.0), n))
+        pairs = rng.random(n // 2) < 0.5
+        for i in np.nonzero(pairs)[0]:  # some well damped pairs
+            wn, zeta = -poles[2 * i], rng.uniform(0.1, 0.9)
+            p = complex(-zeta * wn, wn * np.sqrt(1 - zeta**2))
+            poles = poles.astype(complex)
+            poles[2 * i], poles[2 * i + 1] = p, p.conjugate()
+        if rng.random() < 0.5:
+            poles[0] = 0.0
+        zeros = -np.exp(rng.uniform(np.log(0.1), np.log(30.0), int(rng.integers(0, n))))
+        shape = ZPK(zeros, poles, 1.0)
+        w0 = float(np.exp(rng.uniform(np.log(0.03), np.log(3.0))))
+        block = shape.scaled(1.0 / abs(shape.response(np.array([w0]))[0]))
+        a = analyse_open_loop(OpenLoop(block))
+        m = a.margins
+        if not a.stability.stable or len(m.crossovers) != 1 or m.delay_margin_s is None:
+            continue
+        wc = 2 * np.pi * m.crossovers[0].hz
+        slope = np.abs(block.response(np.array([wc * 1.0001]))[0]) - 1.0
+        if slope >= 0 or m.delay_margin_s > 1e3:
+            continue
+        for factor, stable in ((0.98, True), (1.02, False)):
+            delayed = ZPK(block.zeros, block.poles, block.gain, factor * m.delay_margin_s)
+            assert analyse_open_loop(OpenLoop(delayed)).stability.stable == stable
+        checked += 1
+        if checked >= 40:
+            break
+    assert checked >= 25
+
+
+def test_delay_margin_in_samples_is_exact_for_whole_samples():
+    # K/(z-1), K = 0.5: delay_margin_samples = 2.608 (see tests/test_margins.py);
+    # z^-2 more keeps it stable, z^-3 more destabilises it (|z^-n| = 1 leaves the
+    # crossover where it is and takes n theta_c of phase)
+    h = 0.01
+    m = analyse_open_loop(OpenLoop(ZPK([], [1.0], 0.5, sample_time_s=h))).margins
+    n = m.delay_margin_samples
+    assert 2 < n < 3
+    for extra, stable in ((2, True), (3, False)):
+        block = ZPK([], [1.0] + [0.0] * extra, 0.5, sample_time_s=h)
+        assert analyse_open_loop(OpenLoop(block)).stability.stable == stable
