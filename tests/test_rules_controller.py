@@ -223,3 +223,13 @@ def test_unfiltered_derivative_reported_once_continuous_and_sampled(tmp_path):
         write_project(tmp_path / "e", "sample_rate_hz = 1000.0", "backward_euler")
     )
     assert len(euler) == 1 and "z = -1" not in euler[0].message
+
+
+def test_undamped_filter_pair_is_on_the_boundary():
+    # a resonant filter 1/(s^2 + w^2): poles at +-j w, marginal (not an integrator)
+    spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=[("transfer_function", {})]))
+    w = 2 * math.pi * 50
+    res = zpk([], [1j * w, -1j * w], w * w)
+    (v,) = controller_stable(ctx_with(spec, zpk([], [], 1.0), [(res, None)]), {})
+    assert "on the stability boundary" in v.message
+    assert v.frequency_hz == pytest.approx(50.0)

@@ -80,7 +80,7 @@ def controller_stable(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
     if not ctx.evaluations:
         return unanalysed_notes(ctx, "controller stability", key_path=base)
     discrete = ctx.spec.sample_rate_hz is not None
-    worst: dict[str, tuple[float, Any, Any, complex]] = {}
+    worst: dict[str, tuple[float, Any, Any, complex, bool]] = {}
     missing: dict[str, Any] = {}
     for ev in ctx.evaluations:
         model = ev.model
@@ -103,7 +103,7 @@ def controller_stable(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
                     continue
                 best = worst.get(block.label)
                 if best is None or badness > best[0]:
-                    worst[block.label] = (badness, ev, block, p)
+                    worst[block.label] = (badness, ev, block, p, boundary)
     out: list[Violation] = []
     for label, block in missing.items():
         out.append(
@@ -114,7 +114,7 @@ def controller_stable(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
             )
         )
     for label in sorted(worst):
-        _, ev, block, p = worst[label]
+        _, ev, block, p, boundary = worst[label]
         h = 1.0 / float(ctx.spec.sample_rate_hz) if discrete else None
         if discrete:
             measured, limit, unit = abs(p), 1.0, "|z|"
@@ -122,11 +122,11 @@ def controller_stable(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
         else:
             measured, limit, unit = p.real, 0.0, "rad/s"
             where = f"s = {p.real:.6g}{p.imag:+.6g}j rad/s"
-        state = "on the stability boundary" if abs(measured - limit) <= 1e-9 else "unstable"
+        state = "a pole on the stability boundary" if boundary else "an unstable pole"
         out.append(
             Violation(
                 variant=variant_id(ev),
-                message=f"{label} has an {state} pole at {where}",
+                message=f"{label} has {state} at {where}",
                 measured=float(measured),
                 limit=limit,
                 unit=unit,
