@@ -128,3 +128,57 @@ def test_worst_point_matches_brute_force_on_random_loops():
                              {"signal": "loop", "upper": [[1.0, level], [1000.0, level]]})
         assert v.measured >= worst - 1e-6  # never misses the peak the brute force sees
         assert v.measured == pytest.approx(worst, abs=1e-3)  # and refines to it
+
+
+def test_mask_from_a_ruleset_file_through_the_pipeline(tmp_path):
+    """A ruleset's mask reaches the rule; the finding names the ruleset line as related.
+
+    Controller C = kp + kd s/(s/wd + 1) with kp = 1, kd = 0.001, wd = 2 pi 2000 in a
+    continuous loop: |C| at 10 kHz = |1 + 0.001 j w/(j w/wd + 1)| (closed form below).
+    """
+    from ruleguard.api import check
+
+    files = {
+        "ruleguard.toml": """[project]
+name = "mask-e2e"
+ruleset = "policy/house.toml"
+plants = ["models/plants.toml"]
+
+[[loops]]
+name = "axis.velocity"
+plant = "mechanics"
+controller = { file = "firmware/axis.toml", path = "velocity" }
+""",
+        "policy/house.toml": """[ruleset]
+name = "house"
+extends = "baseline"
+
+[rules."response.mask"]
+signal = "controller"
+upper = [[1000.0, 20.0], [10000.0, 20.0]]
+""",
+        "models/plants.toml": """[plants.mechanics]
+kind = "zero_pole_gain"
+gain = 500.0
+poles = [-5.0, -800.0]
+""",
+        "firmware/axis.toml": """[velocity]
+kind = "pid"
+kp = 1.0
+ki = 0.0
+kd = 0.001
+derivative_filter_hz = 2000.0
+""",
+    }
+    for rel, text in files.items():
+        (tmp_path / rel).parent.mkdir(parents=True, exist_ok=True)
+        (tmp_path / rel).write_text(text)
+    report = check(tmp_path / "ruleguard.toml")
+    (f,) = [f for f in report.findings if f.rule == "response.mask"]
+    wd = 2 * math.pi * 2000.0
+    w = 2 * math.pi * 10000.0
+    c_db = 20 * math.log10(abs(1 + 0.001 * 1j * w / (1j * w / wd + 1)))  # 22.1 dB
+    assert f.frequency_hz == pytest.approx(10000.0, rel=1e-9)
+    assert f.measured == pytest.approx(c_db, abs=1e-9) and f.limit == pytest.approx(20.0)
+    assert f.location.file == "firmware/axis.toml"
+    assert any(loc.file == "policy/house.toml" for loc in f.related)
