@@ -176,7 +176,7 @@ class TestDelaySpiral:
         # winding about points nearer 0 drops by 2 at each): closed form.
         from ruleguard.analysis.crossings import negative_axis_crossings
 
-        c = sample_contour(loop([], [0.0], 1.0, 1.0))
+        c = sample_contour(loop([], [0.0], 1.0, 1.0), tail_level=1e-3)
         cr = sorted(negative_axis_crossings(c), key=lambda x: x.w)
         assert len(cr) > 100  # enough to take the vectorized (Illinois) path
         k = np.arange(len(cr))

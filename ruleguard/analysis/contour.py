@@ -70,7 +70,7 @@ ARC_LEVEL = 1e4
 #: ``|L|`` at the top of a continuous strictly proper contour (no delay).
 TAIL_LEVEL = 1e-5
 #: ``|L|`` at the top of a continuous strictly proper contour with a delay.
-DELAY_TAIL_LEVEL = 1e-3
+DELAY_TAIL_LEVEL = 1e-2
 #: Zeros closer than this (relative) to a boundary pole cancel it.
 CANCEL_RTOL = 1e-8
 _MAX_PASSES = 80
