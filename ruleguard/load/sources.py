@@ -354,22 +354,33 @@ def _toml_key_by_text(
     """
     if line is None:
         return None
-    header: list[str] = []
+    header: list = []
     found: tuple[str, int] | None = None
+    counts: dict[str, int] = {}
     for number, raw in enumerate(text.split("\n")[:line], start=1):
         head = _TOML_HEADER.match(raw)
         if head:
-            parts = [part.strip() for part in head.group(1).split(".")]
+            names = [part.strip().strip("\"'") for part in head.group(1).split(".")]
+            is_array = raw.lstrip().startswith("[[")
+            parts: list = []
+            for index, name in enumerate(names):
+                parts.append(name)
+                joined = ".".join(str(p) for p in parts)
+                if index == len(names) - 1 and is_array:
+                    counts[joined] = counts.get(joined, 0) + 1
+                    parts.append(counts[joined] - 1)
+                elif joined in counts:
+                    parts.append(counts[joined] - 1)
             if number < line:
                 header, found = parts, None
             elif (column or 1) > 1 or found is None:
                 # an error at the start of a header line belongs to what came before
-                found = (".".join(parts), number)
+                found = (".".join(str(p) for p in parts), number)
             continue
         pair = _TOML_PAIR.match(raw)
         if pair:
             keys = [part.strip() for part in pair.group(1).split(".")]
-            found = (".".join(header + keys), number)
+            found = (".".join(str(p) for p in header + keys), number)
     return found
 
 
