@@ -511,3 +511,15 @@ class TestCancelledBoundaryPole:
         assert not a.stability.stable
         assert a.margins.stable_gain_ranges_db == ()
         assert any("cancelled" in n for n in a.notes)
+
+
+class TestLargeGainMarginWithDelay:
+    def test_spiral_examined_until_the_first_crossing(self):
+        # 1e-3 e^{-0.1 s}/(s + 1): phase crossover atan(w) + 0.1 w = pi (mpmath),
+        # GM = sqrt(1 + w^2)/1e-3 = +84.3 dB, far below the default tail level
+        mpmath.mp.dps = 30
+        w180 = float(mpmath.findroot(lambda w: mpmath.atan(w) + 0.1 * w - mpmath.pi, 20))
+        m = analyse_open_loop(loop([], [-1.0], 1e-3, 0.1)).margins
+        assert close(m.gain_margin_db, db(math.sqrt(1 + w180**2) / 1e-3))
+        assert close(m.gain_margin_hz * TWO_PI, w180)
+        assert len(m.stable_gain_ranges_db) == 1
