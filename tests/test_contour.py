@@ -215,3 +215,13 @@ class TestBlockFactor:
         factor = _BlockFactor(ZPK([], [p, p.conjugate()], wn**2))
         L = OpenLoop(ZPK([], [0.0], ratio * 2 * zeta * wn), (factor,))
         assert ccw_encirclements(L) == ccw
+
+
+class TestRoundingOnTheBoundary:
+    def test_real_boundary_poles_with_rounding_imaginary_parts(self):
+        # z = -1 and z = 1 given with -0.0 / 1e-17 imaginary parts (as rounding
+        # leaves them) are the same boundary poles: 0.5/((z-1)(z+1)) has
+        # z^2 - 1 + 0.5 = 0, roots +-sqrt(0.5): stable, P = 0
+        clean = loop([], [1.0, -1.0], 0.5, h=0.1)
+        rounded = loop([], [1.0 - 1e-17j, -1.0 - 1e-17j], 0.5, h=0.1)
+        assert ccw_encirclements(clean) == ccw_encirclements(rounded) == 0

@@ -154,10 +154,14 @@ class ZPK:
         boundary tolerance are merged.
         """
         bp = self.boundary_poles()
+        # a real pole with a rounding-level imaginary part (s = 0, z = 1, z = -1)
+        # sits exactly at frequency 0 or pi/h, whichever sign its imaginary part has
+        real = np.abs(bp.imag) <= BOUNDARY_RTOL * np.maximum(np.abs(bp), 1.0)
         if self.sample_time_s is None:
-            freqs = bp.imag
+            freqs = np.where(real, 0.0, bp.imag)
         else:
-            freqs = np.angle(bp) / self.sample_time_s
+            freqs = np.where(real, np.where(bp.real < 0, np.pi, 0.0), np.angle(bp))
+            freqs = freqs / self.sample_time_s
         freqs = freqs[freqs >= -1e-300]
         merged: list[tuple[float, int]] = []
         for f in np.sort(np.abs(freqs)):
