@@ -265,12 +265,14 @@ def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | 
 
 
 def peak(contour: SampledContour, fun_vec, fun_scalar=None,
-         candidates: int = 3) -> tuple[float, float]:
+         candidates: int = 4) -> tuple[float, float]:
     """Maximum of ``fun_vec(L)`` over the frequency axis, refined (Brent minimization).
 
-    Returns ``(value, w)``. The largest grid maxima (those within 10 % of the
-    grid's largest value) are refined on the exact response between their
-    neighbours; ``fun_scalar`` is the same function of a complex scalar.
+    Returns ``(value, w)``. The largest grid maxima (those above a fifth of
+    the grid's largest value: between samples ``|1 + L|`` changes by less than
+    a factor 5, see ``SampledContour.refine_for_point``) are refined on the
+    exact response between their neighbours; ``fun_scalar`` is the same
+    function of a complex scalar.
     """
     if fun_scalar is None:
         def fun_scalar(L):
@@ -291,7 +293,7 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
     top = found[0][0]
     best, best_w = -math.inf, math.nan
     for val, bi, i in found[:candidates]:
-        if val < 0.9 * top:
+        if val < 0.2 * top:
             break
         br = contour.branches[bi]
         wv = float(br.w[i])

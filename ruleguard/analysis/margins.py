@@ -13,6 +13,15 @@ about -1 (Z = P - ccw), and derives from the same curve:
 * delay margin, sensitivity and complementary sensitivity peaks, balanced
   disk margin and closed-loop bandwidth.
 
+Ends of the gain range: an interval reaching an indentation arc (k -> 0) or
+the ``w -> inf`` end of a strictly proper loop (k -> inf) is unbounded on
+that side (``None``). With a transport delay the curve spirals into the
+origin with infinitely many crossings; it is followed down to ``|L| = 1e-2``
+(``contour.DELAY_TAIL_LEVEL``) and further, in steps of 40 dB, while the last
+interval found is still stable; beyond that the gains are not examined
+(a note says so), which is safe because a strictly proper loop with a delay
+is unstable for large enough gain.
+
 References
 ----------
 H. Nyquist, "Regeneration theory", Bell System Technical Journal 11(1), 1932.
