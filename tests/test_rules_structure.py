@@ -120,3 +120,24 @@ def test_one_zero_cancels_one_pole_of_a_double_integrator():
     # plant 1/s^2, controller zero at s = 0: one integrator is hidden, the other stays in L
     spec, ctx = ctx_for(zpk([0.0, -5.0], [-50.0, -60.0], 1.0), zpk([], [0.0, 0.0], 1.0))
     assert len(list(hidden_cancellation(ctx, {"tolerance": 1e-6}))) == 1
+
+
+def test_sampled_loop_with_plant_known_by_response_compares_s_designs():
+    # the assembler keeps a plant path it cannot discretize exactly (a hold factor times the
+    # continuous response) out of the factored loop: plant.discrete is None; the s-plane
+    # designs still show the cancelled unstable pole
+    from ruleguard.models.discretize import HoldFactor
+
+    h = 1e-3
+    spec = loop_spec(controller_entry(kind="transfer_function"), sample_rate_hz=1000.0)
+    c_s = zpk([1.0], [-10.0], 5.0)
+    from ruleguard.models.discretize import discretize_block
+
+    ctrl = block("controller", "velocity (transfer_function)", "transfer_function", c_s,
+                 discretize_block(c_s, "tustin", h), "tustin", spec.controller.location)
+    plant = block("plant", "mechanics (zero_pole_gain)", "zero_pole_gain",
+                  zpk([], [1.0], 1.0), None, "hold", PLANT_LOC)
+    m = model(spec, ctrl, plant, factors=(HoldFactor(h),))
+    (v,) = hidden_cancellation(context(spec, [evaluation("nominal", m, analysis())]),
+                               {"tolerance": 1e-6})
+    assert "unstable plant pole at s = 1" in v.message

@@ -93,16 +93,21 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
         return unanalysed_notes(ctx, "pole-zero cancellation", key_path=base)
     discrete = ctx.spec.sample_rate_hz is not None
     out: list[Violation] = []
-    # key -> (distance, evaluation, pole side block, zero side block, pole, zero)
+    # key -> (distance, evaluation, side, pole block, zero block, pole, zero, h, z-plane?)
     found: dict[str, tuple] = {}
     unknown_plant = None
     for ev in ctx.evaluations:
         model = ev.model
-        ctrl_blocks = [(b, domain_block(b, discrete)) for b in (model.controller, *model.filters)]
+        dom = discrete
+        if discrete and model.plant.discrete is None and model.plant.continuous is not None:
+            # the sampled plant path is known only by its response (hold factor times the
+            # continuous model): compare the s-plane designs of both sides instead
+            dom = False
+        ctrl_blocks = [(b, domain_block(b, dom)) for b in (model.controller, *model.filters)]
         ctrl_blocks = [(b, z) for b, z in ctrl_blocks if z is not None]
-        plant_side = [(b, domain_block(b, discrete)) for b in (model.plant, model.sensor)]
+        plant_side = [(b, domain_block(b, dom)) for b in (model.plant, model.sensor)]
         plant_side = [(b, z) for b, z in plant_side if b is not None and z is not None]
-        if domain_block(model.plant, discrete) is None:
+        if domain_block(model.plant, dom) is None:
             unknown_plant = unknown_plant or ev
         all_zpk = [z for _, z in ctrl_blocks + plant_side]
         if not all_zpk:
@@ -125,7 +130,7 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
                             [
                                 np.inf
                                 if (id(zz), j) in used
-                                else _distance(pole, complex(z), discrete, floor)
+                                else _distance(pole, complex(z), dom, floor)
                                 for j, z in enumerate(zz.zeros)
                             ]
                         )
@@ -138,7 +143,7 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
                         if best is None or dist[i] < best[0]:
                             found[ident] = (
                                 float(dist[i]), ev, side, pb, zb, pole, complex(zz.zeros[i]),
-                                pz.sample_time_s,
+                                pz.sample_time_s, dom,
                             )
     if unknown_plant is not None:
         out.append(
@@ -152,12 +157,12 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
             )
         )
     for ident in sorted(found):
-        dist, ev, side, pb, zb, pole, zero, h = found[ident]
-        kind = "unstable" if _is_unstable(pb, discrete, pole) else "marginal"
+        dist, ev, side, pb, zb, pole, zero, h, dom = found[ident]
+        kind = "unstable" if _is_unstable(pb, dom, pole) else "marginal"
         if side == "plant":
             message = (
-                f"{kind} plant pole at {_describe(pole, discrete)} is cancelled by a zero of "
-                f"{zb.label} at {_describe(zero, discrete)}: L looks fine but the closed loop "
+                f"{kind} plant pole at {_describe(pole, dom)} is cancelled by a zero of "
+                f"{zb.label} at {_describe(zero, dom)}: L looks fine but the closed loop "
                 "is not internally stable (the mode stays in the response to load "
                 "disturbances)"
             )
@@ -165,8 +170,8 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
             related = (block_location(ctx, pb),)
         else:
             message = (
-                f"{kind} pole of {pb.label} at {_describe(pole, discrete)} is cancelled by a "
-                f"plant zero at {_describe(zero, discrete)}: L looks fine but the closed loop "
+                f"{kind} pole of {pb.label} at {_describe(pole, dom)} is cancelled by a "
+                f"plant zero at {_describe(zero, dom)}: L looks fine but the closed loop "
                 "is not internally stable (the controller output grows)"
             )
             location = block_location(ctx, pb)
