@@ -135,6 +135,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         stats.extra["cache_misses"] = cache.misses
 
     findings = _ordered_findings(specs, fresh, cached_findings)
+    active = _active_rules(ruleset, specs, loop_results, options)
     rules = tuple(
         RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
         for r in RULES.values()
@@ -150,7 +151,26 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         ruleset_name=getattr(ruleset, "name", ""),
         texts=dict(project.texts),
         fail_at=options.fail_at,
+        active_rules=active,
     )
+
+
+def _active_rules(ruleset, specs, loop_results, options: CheckOptions) -> tuple[str, ...]:
+    """Rules evaluated on at least one loop: selected by --only/--skip and not off."""
+    from ruleguard.rules.base import Severity as _Severity
+    from ruleguard.rules.catalog import selected_rules
+    from ruleguard.rules.engine import effective_rules
+
+    selected = selected_rules(options.only, options.skip)
+    on: set[str] = set()
+    for spec in specs:
+        result = loop_results[spec.name]
+        crossover = None
+        if result.variants:
+            crossover = result.variants[0].analysis.margins.crossover_hz
+        rules = effective_rules(ruleset, spec.name, spec.tags, crossover)
+        on.update(r for r, eff in rules.items() if eff.severity is not _Severity.OFF)
+    return tuple(r for r in selected if r in on)
 
 
 def _ordered_findings(specs, fresh: Sequence[Finding], cached: dict[str, tuple[Finding, ...]]):
