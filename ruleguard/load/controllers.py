@@ -26,7 +26,7 @@ from typing import Any
 from ruleguard.errors import InputError
 from ruleguard.load.sources import Document, KeyPath, format_key, read_document
 from ruleguard.load.spec import ControllerEntry, FilterEntry
-from ruleguard.load.validation import suggestion, validate
+from ruleguard.load.validation import show_value, suggestion, validate
 from ruleguard.location import Location
 
 #: Canonical fields of each controller kind.
@@ -166,6 +166,13 @@ def load_controller(
             )
         kind = table_kind
         kind_path = table_path + ("kind",)
+        if not isinstance(kind, str) or kind not in CONTROLLER_FIELDS:
+            hint = suggestion(kind, CONTROLLER_FIELDS) if isinstance(kind, str) else ""
+            raise document.error(
+                kind_path,
+                f"{show_value(kind)} is not a controller kind; expected one of "
+                f"{', '.join(repr(k) for k in CONTROLLER_FIELDS)}{hint}",
+            )
 
     # canonical table
     canonical: dict[str, Any] = {"kind": kind}
