@@ -78,6 +78,7 @@ _MAX_PASSES = 80
 #: runs along a point, e.g. L = -1 identically, would otherwise never stop).
 _MAX_SAMPLES = 60_000
 _WIDTH_FLOOR = 1e-13
+_SMALL_L = 1e-4
 
 
 # --------------------------------------------------------------------------- rational
@@ -108,6 +109,13 @@ class RationalResponse:
         self._pp = self.poles[:n]
         self._extra = self.poles[n:]
         self.roots = np.concatenate([self.zeros, self.poles])
+        # Zeros on the contour itself (notches with infinite depth, z = -1 of a
+        # Tustin block) make log L singular without making L change fast: L
+        # passes through 0, far from any point of interest. They are left out
+        # of the step bound, which would otherwise bisect towards them forever.
+        off = ~block.on_boundary(self.zeros)
+        self._bound_zeros = int(np.count_nonzero(off))
+        self._bound_roots = np.concatenate([self.zeros[off], self.poles])
         self._zl = [complex(z) for z in self.zeros]
         self._pl = [complex(p) for p in self.poles]
 
@@ -170,13 +178,13 @@ class RationalResponse:
         wb = np.asarray(wb, dtype=float)
         mid = 0.5 * (wa + wb)
         half = 0.5 * (wb - wa)
-        if self.roots.size == 0:
+        if self._bound_roots.size == 0:
             return 2 * half * self.delay
         x = self.variable(mid)
-        diff = x[:, None] - self.roots[None, :]
+        diff = x[:, None] - self._bound_roots[None, :]
         with np.errstate(divide="ignore", invalid="ignore"):
             inv = 1.0 / diff
-            nz = self.zeros.size
+            nz = self._bound_zeros
             s1 = inv[:, :nz].sum(axis=1) - inv[:, nz:].sum(axis=1)
             if self.h is None:
                 reach = half
@@ -314,7 +322,8 @@ class SampledContour:
                     dlog = np.abs(np.log(np.abs(br.L[1:]) / np.maximum(L0, 1e-300)))
                 split = (reach >= 0.8 * np.minimum(a0, a1)) | (ang > ANGLE_BOUND)
                 if self.open_loop.factors:
-                    split |= dlog > STEP_BOUND
+                    big = np.maximum(np.abs(br.L[1:]), L0) > _SMALL_L
+                    split |= (dlog > STEP_BOUND) & big
                 width = np.diff(br.w)
                 split &= width > _WIDTH_FLOOR * np.maximum(br.w[1:], 1.0)
                 if not split.any() or br.w.size + np.count_nonzero(split) > _MAX_SAMPLES:
@@ -347,7 +356,10 @@ class SampledContour:
                 with np.errstate(divide="ignore", invalid="ignore"):
                     r = br.L[1:] / br.L[:-1]
                     change = np.abs(np.log(np.abs(r))) + np.abs(np.angle(r))
-                split = (change > STEP_BOUND) & (
+                # where |L| is tiny (a factor's zero on the contour) the log
+                # changes fast but L stays far from every point of interest
+                big = np.maximum(np.abs(br.L[1:]), np.abs(br.L[:-1])) > _SMALL_L
+                split = (change > STEP_BOUND) & big & (
                     np.diff(br.w) > _WIDTH_FLOOR * np.maximum(br.w[1:], 1.0))
                 if not split.any() or br.w.size + np.count_nonzero(split) > _MAX_SAMPLES:
                     break

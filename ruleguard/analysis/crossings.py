@@ -131,7 +131,8 @@ def _refine_roots(contour: SampledContour, kind: str, a: np.ndarray, b: np.ndarr
     def fvec(x):
         return _gvalues(contour.evaluate(x), kind)
 
-    if a.size > _BRENT_LIMIT:
+    if a.size > _BRENT_LIMIT or contour.open_loop.factors:
+        # vectorized: many roots, or a response whose per-call cost is high
         return _illinois(fvec, a, b, ga, gb)
 
     def fs(x):
@@ -291,10 +292,11 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
         return -math.inf, math.nan
     found.sort(reverse=True)
     top = found[0][0]
+    chosen = [f for f in found[:candidates] if f[0] >= 0.2 * top]
+    if contour.open_loop.factors:
+        return _peak_zoom(contour, fun_vec, chosen)
     best, best_w = -math.inf, math.nan
-    for val, bi, i in found[:candidates]:
-        if val < 0.2 * top:
-            break
+    for val, bi, i in chosen:
         br = contour.branches[bi]
         wv = float(br.w[i])
         lo, hi = br.w[max(i - 1, 0)], br.w[min(i + 1, br.w.size - 1)]
@@ -308,3 +310,42 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
         if val > best:
             best, best_w = val, wv
     return best, best_w
+
+
+def _peak_zoom(contour: SampledContour, fun_vec, chosen) -> tuple[float, float]:
+    """Vectorized zoom search of several peaks at once (responses given by factors).
+
+    Each bracket ``[w_{i-1}, w_{i+1}]`` is sampled at 33 points, narrowed to
+    the neighbours of the best one and sampled again, until its width is
+    below ``1e-9 w``: one vectorized evaluation per step for all brackets,
+    where a scalar search would pay the factors' per-call cost many times.
+    For a peak that is smooth and unimodal inside its bracket this converges
+    to the maximum like a golden-section search (Kiefer, "Sequential minimax
+    search for a maximum", Proc. AMS 4, 1953), sixteen times narrower per step.
+    """
+    lo, hi, best, best_w = [], [], [], []
+    for val, bi, i in chosen:
+        br = contour.branches[bi]
+        lo.append(float(br.w[max(i - 1, 0)]))
+        hi.append(float(br.w[min(i + 1, br.w.size - 1)]))
+        best.append(val)
+        best_w.append(float(br.w[i]))
+    lo, hi = np.array(lo), np.array(hi)
+    best, best_w = np.array(best), np.array(best_w)
+    t = np.linspace(0.0, 1.0, 33)
+    for _ in range(20):
+        width = hi - lo
+        if np.all(width <= 1e-9 * np.maximum(hi, 1e-300)):
+            break
+        x = lo[:, None] + width[:, None] * t[None, :]
+        v = fun_vec(contour.evaluate(x.ravel())).reshape(x.shape)
+        v = np.where(np.isfinite(v), v, -np.inf)
+        j = np.argmax(v, axis=1)
+        rows = np.arange(x.shape[0])
+        better = v[rows, j] > best
+        best = np.where(better, v[rows, j], best)
+        best_w = np.where(better, x[rows, j], best_w)
+        lo = x[rows, np.maximum(j - 1, 0)]
+        hi = x[rows, np.minimum(j + 1, t.size - 1)]
+    k = int(np.argmax(best))
+    return float(best[k]), float(best_w[k])
