@@ -523,3 +523,22 @@ class TestLargeGainMarginWithDelay:
         assert close(m.gain_margin_db, db(math.sqrt(1 + w180**2) / 1e-3))
         assert close(m.gain_margin_hz * TWO_PI, w180)
         assert len(m.stable_gain_ranges_db) == 1
+
+
+class TestZerosOnTheContour:
+    def test_tustin_zero_at_minus_one(self):
+        # K (z + 1)/((z - 1)(z - 0.5)): z^2 + (K - 1.5) z + 0.5 + K; Jury: stable
+        # iff |0.5 + K| < 1, i.e. 0 < K < 0.5; at K = 0.5, z^2 - z + 1 = 0 puts the
+        # roots at e^{+-j pi/3}: GM = 0.5/K at theta = pi/3
+        h, k = 1e-3, 0.2
+        m = analyse_open_loop(loop([-1.0], [1.0, 0.5], k, h=h)).margins
+        assert close(m.gain_margin_db, db(0.5 / k))
+        assert close(m.gain_margin_hz * TWO_PI * h, math.pi / 3)
+
+    def test_infinitely_deep_notch(self):
+        # k/s * (s^2 + 25)/(s^2 + 2 s + 25): s^3 + (2 + k) s^2 + 25 s + 25 k,
+        # Routh: 25 (2 + k) > 25 k always: stable for every k > 0
+        a = analyse_open_loop(loop([5j, -5j], [0.0, -1 + 2 * math.sqrt(6) * 1j,
+                                               -1 - 2 * math.sqrt(6) * 1j], 3.0))
+        assert a.stability.stable
+        assert a.margins.stable_gain_ranges_db == ((None, None),)
