@@ -15,8 +15,13 @@ and ``inf`` literals, and no input of ruleguard has a use for them.
 Schemas may carry ``"x-expected"``: a short description of the allowed
 value, used in messages instead of the raw keyword.
 
-``jsonschema`` costs about 0.3 s to import (ARCHITECTURE.md); it is imported
-on the first validation only, and each compiled validator is cached.
+``jsonschema`` is a listed dependency; measured here (fresh process, 2
+cores) its import costs 0.08 s, and loading the whole demo project costs
+0.10 s the first time (import and schema compilation included) and 0.02 s
+after. It is imported on the first validation only, and each compiled
+validator is cached. A hand-written validator would save those 0.08 s but
+lose the standard's semantics that editors share with us through
+``ruleguard schema NAME``.
 """
 
 from __future__ import annotations
