@@ -509,6 +509,7 @@ class TestCancelledBoundaryPole:
         # a cancelled boundary pole is a hidden marginal mode)
         a = analyse_open_loop(loop([0.0], [0.0, -1.0], 1.0))
         assert not a.stability.stable
+        assert a.stability.closed_loop_unstable_poles is None
         assert a.margins.stable_gain_ranges_db == ()
         assert any("cancelled" in n for n in a.notes)
 

@@ -170,7 +170,9 @@ def analyse_open_loop(open_loop: OpenLoop) -> LoopAnalysis:
         stable=bool(stable),
         open_loop_unstable_poles=int(p_count),
         ccw_encirclements=ccw,
-        closed_loop_unstable_poles=None if through else int(p_count - ccw),
+        # a boundary pole cancelled by a zero stays a closed-loop pole on the
+        # boundary: marginal, reported like a curve through -1 (null count, note)
+        closed_loop_unstable_poles=None if (through or hidden) else int(p_count - ccw),
         through_critical_point=through,
     )
     notes = []
