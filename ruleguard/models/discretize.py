@@ -337,11 +337,21 @@ class DiscreteStateSpace:
     def evaluate(self, z) -> np.ndarray:
         """Transfer function at complex points ``z`` (whole-sample delay included)."""
         z = np.atleast_1d(np.asarray(z, dtype=complex))
+        return self._evaluate(z, z - 1.0)
+
+    def response(self, w) -> np.ndarray:
+        """Frequency response at ``w`` rad/s (``z = exp(j w h)``)."""
+        x = 1j * np.atleast_1d(np.asarray(w, dtype=float)) * self.sample_time_s
+        return self._evaluate(np.exp(x), np.expm1(x))
+
+    def _evaluate(self, z: np.ndarray, z_minus_1: np.ndarray) -> np.ndarray:
+        """``C ((z - 1) I - (A - I))^-1 B + D``: accurate near ``z = 1`` too."""
         flat = z.reshape(-1)
+        shift = z_minus_1.reshape(-1)
         n = self.order
         if n:
-            # one batched solve of (z_k I - A) x_k = B for all points
-            mats = flat[:, None, None] * np.eye(n) - self.a[None, :, :]
+            # one batched solve of ((z_k - 1) I - (A - I)) x_k = B for all points
+            mats = shift[:, None, None] * np.eye(n) - self.shifted_a()[None, :, :]
             rhs = np.broadcast_to(self.b.astype(complex), (flat.size, n, 1))
             x = np.linalg.solve(mats, rhs)
             vals = (self.c.astype(complex) @ x)[:, 0, 0]
@@ -349,10 +359,6 @@ class DiscreteStateSpace:
             vals = np.zeros(flat.size, dtype=complex)
         out = (vals + self.d[0, 0]) * flat ** (-self.delay_samples)
         return out.reshape(z.shape)
-
-    def response(self, w) -> np.ndarray:
-        """Frequency response at ``w`` rad/s (``z = exp(j w h)``)."""
-        return self.evaluate(np.exp(1j * np.asarray(w, dtype=float) * self.sample_time_s))
 
     def pulse_response(self, samples: int) -> np.ndarray:
         """Output samples ``y[0..samples-1]`` for the unit pulse ``u[0] = 1``."""
@@ -517,7 +523,7 @@ def zoh_equivalent(
     -----
     NumericalWarning
         When the factored form does not reproduce the realization's response
-        to within 1e-6 relative at the fitting points.
+        to within 1e-5 relative at the fitting points.
 
     References
     ----------
@@ -573,6 +579,9 @@ def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
     f = dss.shifted_a() / h
     g = dss.b / h
     pencil = np.block([[f, g], [dss.c, dss.d]])
+    # a diagonal similarity leaves E = diag(I, 0) as it is: balance the
+    # pencil (Parlett-Reinsch) so that fast and slow modes have like scales
+    pencil, _ = scipy.linalg.matrix_balance(pencil, permute=False, separate=True)
     e = np.zeros((n + 1, n + 1))
     e[:n, :n] = np.eye(n)
     alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
@@ -600,23 +609,32 @@ def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
 
 
 def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> float:
-    """Real gain matching ``dss`` by least squares at unit-circle points away from roots."""
-    roots = np.concatenate([zeros, poles])
-    candidates = np.exp(1j * np.linspace(0.05, math.pi - 0.05, 64))
-    if roots.size:
-        dist = np.min(np.abs(candidates[:, None] - roots[None, :]), axis=1)
-        probes = candidates[np.argsort(dist)[::-1][:12]]
-    else:
-        probes = candidates[:12]
-    target = dss.evaluate(probes)
+    """Real gain matching ``dss`` on the unit circle, in the relative sense.
+
+    Candidate points run over the whole circle (geometrically spaced from
+    near ``z = 1`` up to the Nyquist point); points where the realization's
+    response is below 1e-6 of its largest value (deep roll-off, where double
+    precision holds no digits) or that sit on a root are left out, and the
+    gain minimises the relative misfit ``sum |g s_k / t_k - 1|^2`` over the
+    rest (``s`` the factored shape, ``t`` the realization).
+    """
+    h = dss.sample_time_s
+    theta = np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+    x = 1j * theta
+    target = dss._evaluate(np.exp(x), np.expm1(x))
     with np.errstate(all="ignore"):
-        shape = ZPK(zeros, poles, 1.0, 0.0, dss.sample_time_s).evaluate(probes)
-    denom = float(np.sum(np.abs(shape) ** 2))
-    if not np.any(target) or denom == 0.0:
+        shape = ZPK(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
+    mag = np.abs(target)
+    top = float(np.max(mag, initial=0.0))
+    if top == 0.0:
         return 0.0
-    gain = float(np.real(np.sum(np.conj(shape) * target)) / denom)
-    resid = np.max(np.abs(gain * shape - target)) / max(np.max(np.abs(target)), 1e-300)
-    if not resid <= 1e-6:
+    keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
+    if not np.any(keep):
+        keep = mag >= 0.5 * top
+    ratio = shape[keep] / target[keep]
+    gain = float(np.real(np.sum(np.conj(ratio))) / np.sum(np.abs(ratio) ** 2))
+    resid = float(np.max(np.abs(gain * ratio - 1.0)))
+    if not resid <= 1e-5:
         warnings.warn(
             f"zero-order-hold equivalent: the factored form reproduces the state-space "
             f"response only to {resid:.1e} relative",
@@ -688,10 +706,12 @@ def section_groups(
     boundary, forms a first-order section). Real poles on the boundary
     (``s = 0``; ``z = 1`` or ``z = -1``) form first-order sections of their
     own, as firmware accumulators do, unless complex zero pairs need them in
-    a second-order section. Each section then receives the
-    zeros nearest to its poles (a conjugate pair, two real zeros or one),
-    filling its capacity while the zeros left over still fit the remaining
-    sections. Pairing each pole with its nearest zeros keeps every section's
+    a second-order section. Zeros (conjugate pairs, real zeros) are then
+    placed one by one, each time the zero and section closest to each other
+    (distance ``|z - p|`` in the z-plane, ``|z - p| / max(|z|, |p|)`` in the
+    s-plane, so that a slow zero is not put with a fast pole), among the
+    moves that leave the remaining zeros placeable; sections may keep fewer
+    zeros than poles. Pairing each pole with its nearest zeros keeps every section's
     gain close to flat, which minimises the sensitivity of the realization to
     coefficient rounding and keeps the states of a cascade well scaled.
 
@@ -742,51 +762,49 @@ def section_groups(
         groups.append(first + second)
     groups = groups + singles
     groups.sort(key=lambda g: min(boundary_distance(r, discrete) for r in g))
-    # ---- zero assignment
-    zc_left = list(zc)
-    zr_left = list(zr)
-    out: list[tuple[tuple[complex, ...], tuple[complex, ...]]] = []
-    for i, g in enumerate(groups):
-        rest = groups[i + 1 :]
-        doubles = sum(1 for r in rest if len(r) == 2)
-        singles = len(rest) - doubles
+    # ---- zero assignment: repeatedly the closest (zero, section) pair that
+    # fits and leaves the remaining zeros placeable
+    units: list[tuple[complex, ...]] = [(z, z.conjugate()) for z in zc] + [
+        (complex(z),) for z in zr
+    ]
+    assigned: list[list[complex]] = [[] for _ in groups]
 
-        def feasible(n_c: int, n_r: int, doubles=doubles, singles=singles) -> bool:
-            return n_c <= doubles and 2 * n_c + n_r <= 2 * doubles + singles
+    def capacity(k: int) -> int:
+        return len(groups[k]) - len(assigned[k])
 
-        ref = [r for r in g if r.imag >= 0]
+    def distance(u: tuple[complex, ...], k: int) -> float:
+        z = u[0]
+        if discrete:
+            return min(abs(z - p) for p in groups[k])
+        return min(abs(z - p) / max(abs(z), abs(p), 1e-300) for p in groups[k])
 
-        def dist(z: complex, ref=ref) -> float:
-            return min(abs(z - r) for r in ref)
-
-        options: list[tuple[int, float, list[complex], list[float]]] = []
-        if len(g) == 2:
-            for z in zc_left:
-                options.append((2, dist(z), [z], []))
-            if len(zr_left) >= 2:
-                order = sorted(zr_left, key=lambda z: dist(complex(z)))
-                pair_dist = dist(complex(order[0])) + dist(complex(order[1]))
-                options.append((2, pair_dist, [], order[:2]))
-        for z in zr_left:
-            options.append((1, dist(complex(z)), [], [z]))
-        options.append((0, 0.0, [], []))
-        options.sort(key=lambda o: (-o[0], o[1]))
-        for _, _, take_c, take_r in options:
-            n_c = len(zc_left) - len(take_c)
-            n_r = len(zr_left) - len(take_r)
-            if feasible(n_c, n_r):
-                break
-        else:  # pragma: no cover - the counts above guarantee a feasible option
+    while units:
+        best = None
+        for ui, u in enumerate(units):
+            for k in range(len(groups)):
+                if capacity(k) < len(u):
+                    continue
+                # feasibility after the move: complex pairs need an untouched
+                # second-order section, and all zeros need room
+                pairs_left = sum(1 for v in units if len(v) == 2) - (len(u) == 2)
+                free_doubles = sum(
+                    1 for m in range(len(groups)) if capacity(m) == 2 and m != k
+                ) + (capacity(k) - len(u) == 2)
+                zeros_left = sum(len(v) for v in units) - len(u)
+                room = sum(capacity(m) for m in range(len(groups))) - len(u)
+                if pairs_left > free_doubles or zeros_left > room:
+                    continue
+                cost = distance(u, k)
+                if best is None or cost < best[0]:
+                    best = (cost, ui, k)
+        if best is None:  # pragma: no cover - counts above guarantee a move
             raise ValueError("could not pair zeros with poles")
-        for z in take_c:
-            zc_left.remove(z)
-        for z in take_r:
-            zr_left.remove(z)
-        zg = tuple(x for z in take_c for x in (z, z.conjugate())) + tuple(
-            complex(z) for z in take_r
-        )
-        out.append((zg, g))
-    return out
+        _, ui, k = best
+        assigned[k].extend(units.pop(ui))
+    order = sorted(
+        range(len(groups)), key=lambda k: min(boundary_distance(r, discrete) for r in groups[k])
+    )
+    return [(tuple(assigned[k]), groups[k]) for k in order]
 
 
 def scaled_cascade_realization(block: ZPK) -> StateSpace:
