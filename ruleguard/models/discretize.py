@@ -768,39 +768,34 @@ def section_groups(
         (complex(z),) for z in zr
     ]
     assigned: list[list[complex]] = [[] for _ in groups]
-
-    def capacity(k: int) -> int:
-        return len(groups[k]) - len(assigned[k])
-
-    def distance(u: tuple[complex, ...], k: int) -> float:
+    cap = np.array([len(g) for g in groups])
+    size = np.array([len(u) for u in units])
+    cost = np.zeros((len(units), len(groups)))
+    for ui, u in enumerate(units):
         z = u[0]
-        if discrete:
-            return min(abs(z - p) for p in groups[k])
-        return min(abs(z - p) / max(abs(z), abs(p), 1e-300) for p in groups[k])
-
-    while units:
-        best = None
-        for ui, u in enumerate(units):
-            for k in range(len(groups)):
-                if capacity(k) < len(u):
-                    continue
-                # feasibility after the move: complex pairs need an untouched
-                # second-order section, and all zeros need room
-                pairs_left = sum(1 for v in units if len(v) == 2) - (len(u) == 2)
-                free_doubles = sum(
-                    1 for m in range(len(groups)) if capacity(m) == 2 and m != k
-                ) + (capacity(k) - len(u) == 2)
-                zeros_left = sum(len(v) for v in units) - len(u)
-                room = sum(capacity(m) for m in range(len(groups))) - len(u)
-                if pairs_left > free_doubles or zeros_left > room:
-                    continue
-                cost = distance(u, k)
-                if best is None or cost < best[0]:
-                    best = (cost, ui, k)
-        if best is None:  # pragma: no cover - counts above guarantee a move
+        for k, g in enumerate(groups):
+            if discrete:
+                cost[ui, k] = min(abs(z - p) for p in g)
+            else:
+                cost[ui, k] = min(abs(z - p) / max(abs(z), abs(p), 1e-300) for p in g)
+    left = np.ones(len(units), dtype=bool)
+    while left.any():
+        # a move (unit u -> section k) must leave an untouched second-order
+        # section for every conjugate zero pair still to place (the total
+        # room always suffices: zeros never outnumber poles)
+        pairs = int(np.count_nonzero(left & (size == 2)))
+        free_doubles = int(np.count_nonzero(cap == 2))
+        fits = (cap[None, :] >= size[:, None]) & left[:, None]
+        pairs_after = pairs - (size == 2)[:, None]
+        doubles_after = free_doubles - (cap == 2)[None, :]
+        allowed = fits & (pairs_after <= doubles_after)
+        if not allowed.any():  # pragma: no cover - the counts guarantee a move
             raise ValueError("could not pair zeros with poles")
-        _, ui, k = best
-        assigned[k].extend(units.pop(ui))
+        masked = np.where(allowed, cost, np.inf)
+        ui, k = np.unravel_index(int(np.argmin(masked)), masked.shape)
+        assigned[k].extend(units[ui])
+        cap[k] -= size[ui]
+        left[ui] = False
     order = sorted(
         range(len(groups)), key=lambda k: min(boundary_distance(r, discrete) for r in groups[k])
     )
