@@ -180,8 +180,10 @@ def resolve_inside(root: str | Path, rel_path: str, origin: Location | None = No
     candidate = root_path / rel_path
     try:
         resolved = candidate.resolve(strict=False)
-    except (OSError, RuntimeError) as exc:  # symlink loops
-        raise _origin_error(origin, shown, f"cannot resolve '{rel_path}': {exc}") from None
+    except (OSError, RuntimeError):  # symlink loops
+        raise _origin_error(
+            origin, shown, f"cannot resolve '{rel_path}': it is a loop of symbolic links"
+        ) from None
     if not resolved.is_relative_to(root_path):
         raise _origin_error(
             origin,
@@ -337,7 +339,10 @@ def _parse_toml(name: str, text: str) -> Any:
                 message += f" (the value of '{key}' opened at line {by_text[1]})"
         raise InputError(name, line, column, key, f"TOML syntax error: {message}") from None
     except RecursionError:
-        raise InputError(name, 1, 1, "", "TOML nesting is too deep") from None
+        line, column = _deep_nesting(text)
+        found = _toml_key_by_text(text, line, column)
+        key = found[0] if found else ""
+        raise InputError(name, line, column, key, "TOML nesting is too deep") from None
 
 
 _TOML_HEADER = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
@@ -429,7 +434,25 @@ def _parse_json(name: str, text: str) -> Any:
         key = _key_at(patched, "json", line, column)
         raise InputError(name, line, column, key, str(exc)) from None
     except RecursionError:
-        raise InputError(name, 1, 1, "", "JSON nesting is too deep") from None
+        line, column = _deep_nesting(text)
+        offset = _offset(text, line, column)
+        before = re.search(r'"((?:[^"\\]|\\.)*)"\s*:\s*$', text[:offset])
+        key = before.group(1) if before else ""
+        raise InputError(name, line, column, key, "JSON nesting is too deep") from None
+
+
+def _deep_nesting(text: str) -> tuple[int, int]:
+    """Line and column where a run of 32 or more opening brackets starts (else 1, 1)."""
+    hit = re.search(r"[\[{](?:\s*[\[{]){31,}", text)
+    if not hit:
+        return 1, 1
+    before = text[: hit.start()]
+    return before.count("\n") + 1, hit.start() - (before.rfind("\n") + 1) + 1
+
+
+def _offset(text: str, line: int, column: int) -> int:
+    lines = text.split("\n")
+    return sum(len(item) + 1 for item in lines[: line - 1]) + column - 1
 
 
 def _find_token(text: str, token: str) -> tuple[int | None, int | None]:
