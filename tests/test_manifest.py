@@ -244,3 +244,53 @@ sample_rate_hz = 1000.0
 
     errors = list(Draft202012Validator(load_schema("manifest")).iter_errors(tomllib.loads(example)))
     assert errors == []
+
+
+def test_inner_did_you_mean_among_other_loops(tmp_path):
+    tail = ('\n[[loops]]\nname = "axis.velocity"\nplant = "winding"\ninner = "axis.curent"\n'
+            'controller = { file = "firmware.toml", path = "current" }\n'
+            "sample_rate_hz = 1000.0\n")
+    with pytest.raises(InputError, match="did you mean 'axis.current'") as info:
+        load_project(write_project(tmp_path, {"ruleguard.toml": MANIFEST + tail}))
+    assert (info.value.key, info.value.line) == ("loops.1.inner", 15)
+
+
+# ------------------------------------------------------------------ validate() messages
+
+
+def _validate(text: str, schema: str = "manifest"):
+    from ruleguard.load.sources import parse_text
+    from ruleguard.load.validation import validate
+
+    document = parse_text("m.toml", text, "toml")
+    with pytest.raises(InputError) as info:
+        validate(document, schema)
+    return info.value
+
+
+def test_validate_unknown_key_names_the_first_in_the_file():
+    error = _validate(MANIFEST.replace("[project]\n", "[project]\nzzz = 1\naaa = 2\n"))
+    assert (error.key, error.line) == ("project.zzz", 2)
+
+
+def test_validate_enum_and_type_messages():
+    error = _validate(MANIFEST.replace('path = "current" }', 'path = "current", kind = "PID" }'))
+    assert error.key == "loops.0.controller.kind"
+    assert "expected one of 'pid', 'lead_lag', 'transfer_function'" in error.message
+    assert "did you mean 'pid'" in error.message
+    error = _validate(MANIFEST.replace('name = "unit"', "name = 5"))
+    assert error.message == "expected a string for name, found integer 5"
+
+
+def test_validate_subtree_with_custom_locations():
+    from ruleguard.load.sources import parse_text
+    from ruleguard.load.validation import validate
+    from ruleguard.location import Location
+
+    document = parse_text("fw.toml", "[a]\nP = 1.0\n", "toml")
+    where = Location("fw.toml", 2, 1, "a.P")
+    with pytest.raises(InputError) as info:
+        validate(document, "controller", instance={"kind": "pid", "kp": "x"},
+                 locate=lambda path: where)
+    assert info.value.location == where and "a number" in info.value.message
+    validate(document, "controller", instance={"kind": "pid", "kp": 1.0, "unused": object()})

@@ -179,7 +179,7 @@ def _leaf(path: KeyPath) -> str:
 
 def _expected(schema: Any) -> str | None:
     if isinstance(schema, dict):
-        text = schema.get("x-expected") or schema.get("description")
+        text = schema.get("x-expected")
         if isinstance(text, str):
             return text
     return None
