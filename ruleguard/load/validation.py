@@ -214,6 +214,12 @@ def _translate(
     schema = error.schema if isinstance(error.schema, dict) else {}
     expected = _expected(schema)
 
+    if "propertyNames" in error.absolute_schema_path and isinstance(instance, str):
+        want = expected or f"a key matching {error.validator_value}"
+        return InputError.at(
+            locator(path + (instance,)),
+            f"'{instance}' is not allowed as a key in {_where(path)}; expected {want}",
+        )
     if kind == "additionalProperties" and isinstance(instance, dict):
         allowed = set(schema.get("properties", {}))
         patterns = schema.get("patternProperties", {})
