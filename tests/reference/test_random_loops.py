@@ -18,6 +18,8 @@ counts them and asserts they are rare.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 import pytest
 
@@ -416,3 +418,73 @@ def test_delay_margin_in_samples_is_exact_for_whole_samples():
     for extra, stable in ((2, True), (3, False)):
         block = ZPK([], [1.0] + [0.0] * extra, 0.5, sample_time_s=h)
         assert analyse_open_loop(OpenLoop(block)).stability.stable == stable
+
+
+@functools.cache
+def _unit_pade(order: int):
+    """Roots and gain of the [order/order] Pade approximant of e^{-x} (mpmath, 40 digits)."""
+    import mpmath
+
+    with mpmath.workdps(40):
+        taylor = [mpmath.mpf(-1) ** k / mpmath.factorial(k) for k in range(2 * order + 1)]
+        p, q = mpmath.pade(taylor, order, order)  # coefficients, lowest power first
+        zeros = [complex(r) for r in mpmath.polyroots(p[::-1], maxsteps=400, extraprec=200)]
+        poles = [complex(r) for r in mpmath.polyroots(q[::-1], maxsteps=400, extraprec=200)]
+        gain = float(p[-1] / q[-1])
+    return np.array(zeros), np.array(poles), gain
+
+
+def _pade_delay(tau: float, order: int = 10) -> ZPK:
+    """[order/order] Pade approximant of e^{-s tau} (x = s tau scaled from the unit one)."""
+    zeros, poles, gain = _unit_pade(order)
+    return ZPK(zeros / tau, poles / tau, gain)
+
+
+def test_random_delay_loops_against_pade_eigenvalues():
+    # Reference: eigenvalues of the closed loop with the delay replaced by its
+    # [10/10] Pade approximant (the approximant's phase error stays below
+    # 1e-6 rad for w tau < 6; cases where |L| > 0.2 at w tau >= 6 are skipped,
+    # since there the approximant could decide the encirclements).
+    rng = np.random.default_rng(1618)
+    compared = skipped = conflicts = 0
+    disagreements = []
+    for _ in range(400):
+        n = int(rng.integers(1, 9))
+        poles = _conjugate_roots(rng, n, unstable_fraction=rng.choice([0.0, 0.2]),
+                                 axis_prob=0.05, scale=(0.1, 10.0))
+        nz = int(rng.integers(0, n))
+        zeros = _conjugate_roots(rng, nz, unstable_fraction=0.2, axis_prob=0.0,
+                                 scale=(0.1, 10.0))
+        shape = ZPK(zeros, poles, 1.0)
+        k = float(np.exp(rng.uniform(np.log(0.1), np.log(10.0)))) / abs(
+            shape.response(np.array([1.0]))[0])
+        tau = float(np.exp(rng.uniform(np.log(0.01), np.log(2.0))))
+        rational = shape.scaled(k)
+        w = np.geomspace(6.0 / tau, 1e4 / tau, 400)
+        if np.max(np.abs(rational.response(w))) > 0.2:
+            skipped += 1
+            continue
+        approx = rational * _pade_delay(tau)
+        poles_cl = _closed_loop_poles(approx)
+        scale = max(1.0, float(np.max(np.abs(poles_cl))))
+        if np.min(np.abs(poles_cl.real)) < 1e-6 * scale:
+            skipped += 1
+            continue
+        z_ref = int(np.count_nonzero(poles_cl.real > 0))
+        delayed = ZPK(rational.zeros, rational.poles, rational.gain, tau)
+        result = analyse_open_loop(OpenLoop(delayed)).stability
+        if result.closed_loop_unstable_poles != z_ref:
+            # arbitrate an ill-conditioned eigenvalue problem with mpmath (80 digits)
+            mp_roots = _mp_closed_loop_roots(approx)
+            if np.min(np.abs(mp_roots.real)) < 1e-6 * scale:
+                skipped += 1
+                continue
+            z_ref = int(np.count_nonzero(mp_roots.real > 0))
+            conflicts += 1
+        compared += 1
+        if result.closed_loop_unstable_poles != z_ref:
+            disagreements.append((rational.zeros, rational.poles, rational.gain, tau, z_ref))
+    assert not disagreements, disagreements[:2]
+    assert compared >= 200, (compared, skipped)
+    print(f"delay loops: {compared} compared with Pade eigenvalues, {skipped} skipped, "
+          f"{conflicts} eigenvalue/mpmath conflicts, 0 disagreements")
