@@ -493,12 +493,11 @@ def _local_minima(values: np.ndarray) -> np.ndarray:
 
 
 def _minimize(fun, lo: float, hi: float) -> tuple[float, float]:
-    """Bounded scalar minimization (Brent's method, scipy.optimize.minimize_scalar)."""
-    from scipy.optimize import minimize_scalar  # lazy import
+    """Bounded scalar minimization (Brent's localmin, :mod:`ruleguard.analysis.scalar`)."""
+    from ruleguard.analysis.scalar import brent_minimize
 
-    res = minimize_scalar(fun, bounds=(lo, hi), method="bounded",
-                          options={"xatol": 1e-10 * max(abs(hi), 1e-300)})
-    return float(res.x), float(res.fun)
+    x, fx = brent_minimize(fun, lo, hi, xatol=1e-10 * max(abs(hi), 1e-300))
+    return float(x), float(fx)
 
 
 def _boundary_location(rational: RationalResponse, w0: float) -> complex:

@@ -48,10 +48,10 @@ class AxisCrossing:
 
 
 def _brent(fun: Callable[[float], float], a: float, b: float) -> float:
-    from scipy.optimize import brentq  # lazy import
+    from ruleguard.analysis.scalar import brent_root
 
-    return float(brentq(fun, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15,
-                        maxiter=200))
+    return brent_root(fun, a, b, xtol=1e-15 * max(abs(a), abs(b), 1e-300), rtol=1e-15,
+                      maxiter=200)
 
 
 def _illinois(fun_vec: Callable[[np.ndarray], np.ndarray], a: np.ndarray,
