@@ -230,6 +230,13 @@ def analyse_loop(project, spec) -> AnalysedLoop:
                 reason_location = spec.field_locations.get("inner", spec.location)
                 evaluations = []
                 break
+            if not model.open_loop.rational.is_proper:
+                raise LoopNotAnalysable(
+                    "the open loop has more zeros than poles (improper): its frequency "
+                    "response grows without bound and the Nyquist contour cannot be closed",
+                    "stability.closed-loop",
+                    spec.controller.location,
+                )
             evaluations.append(Evaluation(variant, model, analyse_open_loop(model.open_loop)))
     except LoopNotAnalysable as exc:
         evaluations = []

@@ -50,11 +50,15 @@ def closed_loop(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
     st = worst.analysis.stability
     margins = worst.analysis.margins
     phrase = variants_phrase(len(failing), len(ctx.evaluations))
-    if st.closed_loop_unstable_poles is None:
+    if st.closed_loop_unstable_poles is None and st.through_critical_point:
         message = (
             "closed loop not stable: the Nyquist curve passes through -1 "
             f"(within tolerance), so the loop is at the stability boundary{phrase}"
         )
+        measured = None
+    elif st.closed_loop_unstable_poles is None:
+        detail = "; ".join(worst.analysis.notes) or "the encirclement count is undetermined"
+        message = f"closed loop not shown stable: {detail}{phrase}"
         measured = None
     else:
         z = st.closed_loop_unstable_poles
