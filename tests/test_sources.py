@@ -262,3 +262,10 @@ def test_source_map_is_built_lazily():
     assert "map" not in document._cache
     document.locate(("a",))
     assert "map" in document._cache
+
+
+def test_windows_line_endings_keep_positions():
+    text = '[a]\r\nx = 1\r\ny = [\r\n  2,\r\n]\r\n'
+    document = parse_text("crlf.toml", text, "toml")
+    assert document.data == {"a": {"x": 1, "y": [2]}}
+    assert (document.locate(("a", "y", 0)).line, document.locate(("a", "y", 0)).column) == (4, 3)
