@@ -26,7 +26,7 @@ from typing import Any
 from ruleguard.errors import InputError
 from ruleguard.load.sources import Document, KeyPath, format_key, read_document
 from ruleguard.load.spec import ControllerEntry, FilterEntry
-from ruleguard.load.validation import show_value, suggestion, validate
+from ruleguard.load.validation import number_problem, show_value, suggestion, validate
 from ruleguard.location import Location
 
 #: Canonical fields of each controller kind.
@@ -200,8 +200,13 @@ def load_controller(
                     f"expected a number at '{format_key(full)}' (mapped to {field_name}), found "
                     f"{value!r}",
                 )
+            _check_finite(document, value, full)
             scales[field_name] = float(scale)
-            value = value * float(scale)
+            value = float(value) * float(scale)
+            if not math.isfinite(value):
+                raise document.error(
+                    full, f"{format_key(full)} x scale {scale:g} is not a finite number"
+                )
         canonical[field_name] = value
         sources[field_name] = full
     for field_name in known:
@@ -252,8 +257,9 @@ def load_controller(
 
 
 def _check_finite(document: Document, value: Any, path: KeyPath) -> None:
-    if isinstance(value, float) and not math.isfinite(value):
-        raise document.error(path, f"{value} is not a finite number; finite numbers only")
+    problem = number_problem(value)
+    if problem:
+        raise document.error(path, problem)
     if isinstance(value, dict):
         for key, item in value.items():
             _check_finite(document, item, path + (key,))

@@ -95,13 +95,31 @@ def _found(value: Any) -> str:
     return f"{type_name(value)} {show_value(value)}"
 
 
+def number_problem(value: Any) -> str | None:
+    """Why a number cannot be used (NaN, infinite, too large for a float), or None."""
+    if isinstance(value, bool):
+        return None
+    if isinstance(value, float) and not math.isfinite(value):
+        return f"{value} is not a finite number; finite numbers only"
+    if isinstance(value, int):
+        try:
+            float(value)
+        except OverflowError:
+            return (
+                f"the integer of {len(str(abs(value)))} digits is too large "
+                "(numbers must fit a 64-bit float)"
+            )
+    return None
+
+
 def check_finite(document: Document, data: Any = None, base: KeyPath = ()) -> None:
     """Raise at the first NaN or infinite number in ``data`` (default: the document)."""
     stack: list[tuple[KeyPath, Any]] = [(base, document.data if data is None else data)]
     while stack:
         path, node = stack.pop()
-        if isinstance(node, float) and not math.isfinite(node):
-            raise document.error(path, f"{node} is not a finite number; finite numbers only")
+        problem = number_problem(node)
+        if problem:
+            raise document.error(path, problem)
         if isinstance(node, dict):
             stack.extend((path + (k,), v) for k, v in reversed(list(node.items())))
         elif isinstance(node, list):
