@@ -12,7 +12,7 @@ from __future__ import annotations
 import re
 
 from ruleguard.report.model import LoopResult, Report
-from ruleguard.report.summary import NOT_APPLICABLE, UNBOUNDED, Figure, loop_summary, loop_verdict
+from ruleguard.report.summary import UNBOUNDED, VALUE, Figure, loop_summary, loop_verdict
 from ruleguard.report.text import CAUTION
 from ruleguard.report.units import hertz, quantity
 from ruleguard.rules.base import Finding, Severity
@@ -41,8 +41,8 @@ def _code(text: str) -> str:
 def _figure(figure: Figure, unit: str | None, nominal_id: str = "nominal") -> str:
     if figure.state == UNBOUNDED:
         text = "unbounded"
-    elif figure.state == NOT_APPLICABLE:
-        return "n/a"
+    elif figure.state != VALUE:
+        return figure.state
     else:
         text = quantity(figure.value, unit)
         if figure.hz is not None:

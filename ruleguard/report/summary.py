@@ -19,6 +19,8 @@ from ruleguard.rules.base import Severity
 
 UNBOUNDED = "unbounded"
 NOT_APPLICABLE = "n/a"
+#: |L| never crosses 1: no phase margin to speak of (stable or not).
+NO_CROSSOVER = "no crossover"
 VALUE = "value"
 
 
@@ -78,7 +80,7 @@ def _worst(figures: list[Figure], *, lower_is_worse: bool, unbounded_is: float) 
         return Figure(NOT_APPLICABLE)
 
     def rank(f: Figure) -> float:
-        v = unbounded_is if f.state == UNBOUNDED else f.value
+        v = unbounded_is if f.state in (UNBOUNDED, NO_CROSSOVER) else f.value
         return v if lower_is_worse else -v
 
     return min(candidates, key=rank)  # first of equals: nominal wins ties
@@ -121,7 +123,8 @@ def loop_summary(loop: LoopResult) -> LoopSummary:
              needs_stable=True, lower_is_worse=False, unbounded_is=-INF),
         _row("phase margin", "deg", variants,
              lambda v: (m(v).phase_margin_deg, m(v).crossover_hz),
-             needs_stable=False, lower_is_worse=True, unbounded_is=INF),
+             needs_stable=False, lower_is_worse=True, unbounded_is=INF,
+             none_means=NO_CROSSOVER),
         _row("delay margin", "s", variants,
              lambda v: (m(v).delay_margin_s, None),
              needs_stable=True, lower_is_worse=True, unbounded_is=INF),

@@ -29,7 +29,14 @@ from typing import TextIO
 
 from ruleguard.location import Location
 from ruleguard.report.model import LoopResult, Report
-from ruleguard.report.summary import NOT_APPLICABLE, UNBOUNDED, Figure, FigureRow, loop_summary
+from ruleguard.report.summary import (
+    NOT_APPLICABLE,
+    UNBOUNDED,
+    VALUE,
+    Figure,
+    FigureRow,
+    loop_summary,
+)
 from ruleguard.report.units import hertz, number, quantity
 from ruleguard.rules.base import Finding, Severity
 
@@ -151,8 +158,8 @@ def _loop_header(loop: LoopResult) -> str:
 def _cell(figure: Figure, unit: str | None) -> str:
     if figure.state == UNBOUNDED:
         return "unbounded"
-    if figure.state == NOT_APPLICABLE:
-        return "n/a"
+    if figure.state != VALUE:
+        return figure.state
     text = number(figure.value) if unit == "samples" else quantity(figure.value, unit)
     if figure.hz is not None:
         text += f" at {hertz(figure.hz)}"
