@@ -61,11 +61,21 @@ _NUMERIC_FORMAT = re.compile(r"^q(\d+)\.(\d+)$")
 
 
 def resolve_path(
-    data: Any, path: str, document: Document, origin: Location, what: str
+    data: Any,
+    path: str,
+    document: Document,
+    origin: Location,
+    what: str,
+    base: KeyPath = (),
 ) -> tuple[Any, KeyPath]:
-    """The value at a dotted ``path`` (array items as ``.0``) and its key path."""
+    """The value at a dotted ``path`` (array items as ``.0``) and its key path.
+
+    ``data`` stands at ``base`` in ``document``; the returned key path is
+    relative to ``data``. Errors are raised at ``origin`` (the manifest key
+    that named the path) and say where in the document the walk stopped.
+    """
     node = data
-    walked: KeyPath = ()
+    walked: KeyPath = base
     if path.strip() == "":
         return node, walked
     for part in path.split("."):
@@ -74,7 +84,7 @@ def resolve_path(
                 keys = [k for k in node if isinstance(k, str)]
                 hint = suggestion(part, keys)
                 place = f"table '{format_key(walked)}'" if walked else "the top level"
-                line = document.locate(walked).line
+                line = document.locate(walked).line if walked else None
                 at_line = f" (line {line})" if line else ""
                 raise InputError.at(
                     origin,
@@ -97,7 +107,7 @@ def resolve_path(
                 f"{what}: '{format_key(walked)}' in {document.file} is a value, not a table; "
                 f"cannot go on to '{part}'",
             )
-    return node, walked
+    return node, walked[len(base):]
 
 
 def load_controller(
@@ -177,7 +187,6 @@ def load_controller(
     # canonical table
     canonical: dict[str, Any] = {"kind": kind}
     sources: dict[str, KeyPath] = {}
-    scales: dict[str, float] = {}
     known = CONTROLLER_FIELDS.get(kind, ()) + COMMON_FIELDS + ("numeric_format", "filters")
     mapping = binding.get("map", {})
     for field_name, spec in mapping.items():
@@ -189,7 +198,9 @@ def load_controller(
                 f"{suggestion(field_name, known)} (fields: {', '.join(known)})",
             )
         key, scale = (spec, None) if isinstance(spec, str) else (spec["key"], spec.get("scale"))
-        value, rel = resolve_path(table, key, document, where, f"map {field_name}")
+        value, rel = resolve_path(
+            table, key, document, where, f"map {field_name}", base=table_path
+        )
         full = table_path + rel
         if scale is not None:
             if field_name in _STRING_FIELDS or field_name == "filters":
@@ -201,7 +212,6 @@ def load_controller(
                     f"{value!r}",
                 )
             _check_finite(document, value, full)
-            scales[field_name] = float(scale)
             value = float(value) * float(scale)
             if not math.isfinite(value):
                 raise document.error(
