@@ -25,7 +25,7 @@ EXIT_FINDINGS = 1
 EXIT_INPUT = 2
 EXIT_INTERNAL = 3
 
-FORMATS = ("text", "json", "sarif", "junit", "markdown")
+FORMATS = ("text", "json", "sarif", "junit", "markdown", "html")
 
 
 class _UsageError(Exception):
@@ -187,6 +187,7 @@ def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
         changed_files=tuple(args.files),
         cwd=os.getcwd(),
         use_cache=not args.no_cache,
+        want_curves=args.output_format == "html",
     )
     manifest = _manifest_path(args.manifest)
     progress = _progress_for(stderr, quiet=args.quiet or args.output_format != "text")
@@ -232,6 +233,10 @@ def _render(report, fmt: str, *, stream: TextIO | None, quiet: bool) -> str:
         from ruleguard.report import markdown
 
         return markdown.render(report)
+    if fmt == "html":
+        from ruleguard.report import html
+
+        return html.render(report)
     from ruleguard.report import text
 
     return text.render(report, color=_wants_color(stream), quiet=quiet)

@@ -32,6 +32,8 @@ class CheckOptions:
     changed_files: tuple[str, ...] = ()
     cwd: str | None = None
     use_cache: bool = False
+    #: Sample L over frequency for plots (``--format html``); never cached.
+    want_curves: bool = False
 
 
 @dataclass(frozen=True, eq=False)
@@ -97,6 +99,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     cached_findings: dict[str, tuple[Finding, ...]] = {}
     contexts: list[LoopContext] = []
     keys: dict[str, str] = {}
+    built_models: dict[str, dict] = {}  # loop -> variant id -> LoopModel (for curves)
     for i, spec in enumerate(specs):
         if progress is not None:
             progress(i, len(specs), spec.name)
@@ -113,6 +116,10 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         stats.evaluations += len(analysed.context.evaluations)
         loop_results[spec.name] = analysed.result
         contexts.append(analysed.context)
+        if options.want_curves:
+            built_models[spec.name] = {
+                ev.variant.id: ev.model for ev in analysed.context.evaluations
+            }
     if progress is not None:
         progress(len(specs), len(specs), "")
 
@@ -134,6 +141,12 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         stats.extra["cache_hits"] = cache.hits
         stats.extra["cache_misses"] = cache.misses
 
+    if options.want_curves:  # after the cache is written: curves never enter it
+        for spec in specs:
+            loop_results[spec.name] = with_response_curves(
+                project, spec, loop_results[spec.name], built_models.get(spec.name, {})
+            )
+
     findings = _ordered_findings(specs, fresh, cached_findings)
     active = _active_rules(ruleset, specs, loop_results, options)
     rules = tuple(
@@ -152,6 +165,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         texts=dict(project.texts),
         fail_at=options.fail_at,
         active_rules=active,
+        waivers_as_of=today.isoformat(),
     )
 
 
@@ -293,6 +307,94 @@ def analyse_loop(project, spec) -> AnalysedLoop:
         extras=extras,
     )
     return AnalysedLoop(context, result)
+
+
+# ---------------------------------------------------------------- curves for plots
+CURVE_POINTS = 400
+
+
+def with_response_curves(project, spec, result, models: dict):
+    """``result`` with L sampled for the nominal and the worst variant (plots only).
+
+    Which variants: :func:`ruleguard.report.html.plotted_variants`.
+    ``models`` maps variant ids to the built LoopModel; a missing one (a
+    cached loop) is built again (models only, no analysis).
+    """
+    import dataclasses
+
+    from ruleguard.report.html import plotted_variants
+    from ruleguard.report.model import ResponseCurve
+
+    if not result.analysed or not result.variants:
+        return result
+    chosen = plotted_variants(result.variants)
+    curves = []
+    for variant_result, role in chosen:
+        model = models.get(variant_result.id)
+        if model is None:
+            model = _rebuild_model(project, spec, variant_result.id)
+            if model is None:
+                continue
+        hz, values = sample_open_loop(model.open_loop, variant_result.analysis)
+        curves.append(ResponseCurve(variant_result.id, role, hz, values))
+    return dataclasses.replace(result, curves=tuple(curves))
+
+
+def _rebuild_model(project, spec, variant_id: str):
+    from ruleguard.models.assemble import build_loop
+    from ruleguard.models.families import loop_variants
+
+    for variant in loop_variants(project, spec):
+        if variant.id == variant_id:
+            try:
+                return build_loop(project, spec, variant)
+            except LoopNotAnalysable:
+                return None
+    return None
+
+
+def sample_open_loop(open_loop, analysis, points: int = CURVE_POINTS):
+    """L on a log grid for plots: ``(frequency_hz, L)`` as tuples.
+
+    From a decade below the lowest corner or reported frequency to the
+    Nyquist frequency (discrete loops) or a decade above the highest reported
+    frequency (continuous), inside the range where every factor is known, with
+    the reported crossover, phase-crossover and peak frequencies added so the
+    markers sit on samples.
+    """
+    import numpy as np
+
+    two_pi = 2.0 * np.pi
+    margins = analysis.margins
+    reported_hz = [
+        margins.gain_margin_hz, margins.lower_gain_margin_hz, margins.crossover_hz,
+        margins.sensitivity_peak_hz, margins.complementary_peak_hz, margins.bandwidth_hz,
+        None if margins.disk_margin is None else margins.disk_margin.hz,
+    ] + [c.hz for c in margins.crossovers]
+    reported = np.array([two_pi * f for f in reported_hz if f is not None and f > 0], float)
+    reported = reported[np.isfinite(reported)]
+    corners = open_loop.corner_frequencies()
+    known = np.concatenate([reported, corners])
+    w_floor = max([0.0] + [float(f.w_min) for f in open_loop.factors])
+    w_top = open_loop.w_max
+    if known.size == 0:
+        low, high = 1e-2, 1e2
+    else:
+        low = float(known.min()) / 10.0
+        high = float(reported.max() if reported.size else known.max()) * 10.0
+    if open_loop.nyquist_rad_s is not None:
+        high = open_loop.nyquist_rad_s
+    if np.isfinite(w_top):
+        high = min(high, w_top)
+    low = max(low, w_floor)
+    if not low < high:
+        low = high / 1e3
+    w = np.geomspace(low, high, points)
+    extra = reported[(reported > low) & (reported < high)]
+    w = np.unique(np.concatenate([w, extra]))
+    with np.errstate(all="ignore"):
+        values = np.asarray(open_loop.response(w), dtype=complex)
+    return tuple(float(x) for x in w / two_pi), tuple(complex(v) for v in values)
 
 
 def _inner_loop_problem(model, variant, analyse):

@@ -2,7 +2,7 @@
 
 Built once by :mod:`ruleguard.pipeline` from the analysed loops and the
 findings; each reporter (:mod:`ruleguard.report.json_report`, ``text``,
-``sarif``, ``junit``, ``markdown``) renders it and nothing else.
+``sarif``, ``junit``, ``markdown``, ``html``) renders it and nothing else.
 """
 
 from __future__ import annotations
@@ -20,6 +20,33 @@ class VariantResult:
     analysis: LoopAnalysis
 
 
+@dataclass(frozen=True, eq=False)
+class ResponseCurve:
+    """Samples of the open-loop frequency response L of one variant, for plots.
+
+    Filled only when asked (``CheckOptions.want_curves``, set by
+    ``--format html``); never cached and never in the JSON report.
+
+    Attributes
+    ----------
+    variant:
+        The variant id.
+    role:
+        Why it is plotted: ``"nominal"``, ``"unstable"`` (the first unstable
+        variant) or ``"closest to -1"`` (the largest sensitivity peak).
+    frequency_hz:
+        Increasing frequencies (Hz).
+    open_loop:
+        L at those frequencies (complex; may hold non-finite values at
+        boundary poles).
+    """
+
+    variant: str
+    role: str
+    frequency_hz: tuple[float, ...]
+    open_loop: tuple[complex, ...]
+
+
 @dataclass(frozen=True)
 class LoopResult:
     """FORMATS.md section 5, ``loops[]``."""
@@ -34,6 +61,8 @@ class LoopResult:
     variants: tuple[VariantResult, ...]
     not_analysed_reason: str | None = None
     tags: tuple[str, ...] = ()
+    #: Frequency-response samples for plots (empty unless asked for).
+    curves: tuple[ResponseCurve, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -62,6 +91,8 @@ class Report:
     #: ``--only``/``--skip``); ``None``: every rule of ``rules``. JUnit makes
     #: one test case per loop and active rule.
     active_rules: tuple[str, ...] | None = None
+    #: The date waiver expiry was judged at (ISO ``YYYY-MM-DD``), when known.
+    waivers_as_of: str | None = None
 
     @property
     def evaluations(self) -> int:
