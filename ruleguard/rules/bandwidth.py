@@ -18,15 +18,14 @@ from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
-    controller_location,
-    fmt,
-    key,
+    format_number,
     note,
     split_stable,
     unanalysed_notes,
     unstable_note,
     variant_id,
 )
+from ruleguard.rules.locations import controller_location, key
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -63,8 +62,8 @@ def bandwidth_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
             out.append(
                 Violation(
                     variant=variant_id(ev),
-                    message=f"closed-loop bandwidth {fmt(bw)} Hz is below the minimum "
-                    f"{fmt(min_hz)} Hz",
+                    message=f"closed-loop bandwidth {format_number(bw)} Hz is below the minimum "
+                    f"{format_number(min_hz)} Hz",
                     measured=bw,
                     limit=float(min_hz),
                     unit="Hz",
@@ -80,8 +79,8 @@ def bandwidth_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
             out.append(
                 Violation(
                     variant=variant_id(ev),
-                    message=f"closed-loop bandwidth {fmt(bw)} Hz is above the maximum "
-                    f"{fmt(max_hz)} Hz",
+                    message=f"closed-loop bandwidth {format_number(bw)} Hz is above the maximum "
+                    f"{format_number(max_hz)} Hz",
                     measured=bw,
                     limit=float(max_hz),
                     unit="Hz",

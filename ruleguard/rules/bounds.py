@@ -14,15 +14,8 @@ from typing import Any
 
 from ruleguard.location import Location
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    as_number,
-    controller_field_location,
-    fmt,
-    key,
-    loop_location,
-    note,
-    unit_of_field,
-)
+from ruleguard.rules.evidence import as_number, format_number, note, unit_of_field
+from ruleguard.rules.locations import controller_field_location, key, loop_location
 from ruleguard.rules.spec import RuleSpec
 
 
@@ -94,8 +87,9 @@ def config_bounds(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
             Violation(
                 variant=None,
                 message=(
-                    f"`{name}` = {fmt(value, 6)}{suffix} is {side} {fmt(limit, 6)}{suffix} "
-                    f"(bounds [{fmt(low, 6)}, {fmt(high, 6)}] declared for loop {ctx.spec.name})"
+                    f"`{name}` = {format_number(value, 6)}{suffix} is {side} "
+                    f"{format_number(limit, 6)}{suffix} (bounds [{format_number(low, 6)}, "
+                    f"{format_number(high, 6)}] declared for loop {ctx.spec.name})"
                 ),
                 measured=value,
                 limit=limit,

@@ -25,16 +25,8 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    controller_location,
-    fmt,
-    key,
-    loop_location,
-    note,
-    param,
-    unanalysed_notes,
-    variant_id,
-)
+from ruleguard.rules.evidence import format_number, note, param, unanalysed_notes, variant_id
+from ruleguard.rules.locations import controller_location, key, loop_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -132,8 +124,9 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
                 variant=variant_id(ev),
                 message=(
                     f"inner loop {inner_name} bandwidth {'at least ' if lower else ''}"
-                    f"{fmt(bw)} Hz is only {ratio:.3g} times the outer crossover "
-                    f"{fmt(f_c)} Hz; at least {fmt(min_ratio)} times is required"
+                    f"{format_number(bw)} Hz is only {ratio:.3g} times the outer crossover "
+                    f"{format_number(f_c)} Hz; at least {format_number(min_ratio)} times is "
+                    "required"
                 ),
                 measured=ratio,
                 limit=min_ratio,

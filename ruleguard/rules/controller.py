@@ -31,18 +31,20 @@ import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     as_number,
-    block_location,
-    controller_field_location,
-    controller_location,
     db,
     domain_block,
-    fmt,
-    key,
+    format_number,
     note,
     nyquist_hz,
     param,
     unanalysed_notes,
     variant_id,
+)
+from ruleguard.rules.locations import (
+    block_location,
+    controller_field_location,
+    controller_location,
+    key,
 )
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -190,7 +192,8 @@ def derivative_filter(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
             message = (
                 f"the derivative term (`{d_field}`) has no filter and {method or 'Tustin'} "
                 "puts its pole at z = -1: the controller output rings at the Nyquist "
-                f"frequency{f' ({fmt(nyq)} Hz)' if nyq else ''}; set `derivative_filter_hz`"
+                f"frequency{f' ({format_number(nyq)} Hz)' if nyq else ''}; "
+                "set `derivative_filter_hz`"
             )
         elif discrete:
             message = (
@@ -221,8 +224,9 @@ def derivative_filter(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
             Violation(
                 variant=None,
                 message=(
-                    f"the derivative filter at {fmt(filter_hz)} Hz is not below the Nyquist "
-                    f"frequency {fmt(nyq)} Hz: in the sampled controller it does not filter"
+                    f"the derivative filter at {format_number(filter_hz)} Hz is not below the "
+                    f"Nyquist frequency {format_number(nyq)} Hz: in the sampled controller it "
+                    "does not filter"
                 ),
                 measured=filter_hz,
                 limit=nyq,
@@ -286,7 +290,8 @@ def noise_gain(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
         Violation(
             variant=variant_id(ev),
             message=(
-                f"controller gain {where} is {fmt(value)} dB, above {fmt(max_db)} dB: "
+                f"controller gain {where} is {format_number(value)} dB, above "
+                f"{format_number(max_db)} dB: "
                 "sensor noise reaches the actuator amplified"
             ),
             measured=value if math.isfinite(value) else None,

@@ -21,16 +21,8 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    controller_location,
-    fmt,
-    key,
-    loop_location,
-    note,
-    param,
-    unanalysed_notes,
-    variant_id,
-)
+from ruleguard.rules.evidence import format_number, note, param, unanalysed_notes, variant_id
+from ruleguard.rules.locations import controller_location, key, loop_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -79,7 +71,8 @@ def crossover_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
                 Violation(
                     variant=variant_id(ev),
                     message=(
-                        f"gain crossover {fmt(low)} Hz is below the minimum {fmt(min_hz)} Hz"
+                        f"gain crossover {format_number(low)} Hz is below the minimum "
+                        f"{format_number(min_hz)} Hz"
                     ),
                     measured=low,
                     limit=float(min_hz),
@@ -97,7 +90,8 @@ def crossover_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
                 Violation(
                     variant=variant_id(ev),
                     message=(
-                        f"gain crossover {fmt(high)} Hz is above the maximum {fmt(max_hz)} Hz"
+                        f"gain crossover {format_number(high)} Hz is above the maximum "
+                        f"{format_number(max_hz)} Hz"
                     ),
                     measured=high,
                     limit=float(max_hz),
@@ -117,8 +111,9 @@ def crossover_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
                 Violation(
                     variant=variant_id(ev),
                     message=(
-                        f"gain crossover {fmt(high)} Hz is above {fmt(fraction)} of the "
-                        f"sample rate {fmt(rate)} Hz ({fmt(limit)} Hz): h*w_c = {h_wc:.3g}, "
+                        f"gain crossover {format_number(high)} Hz is above "
+                        f"{format_number(fraction)} of the sample rate {format_number(rate)} Hz "
+                        f"({format_number(limit)} Hz): h*w_c = {h_wc:.3g}, "
                         f"limit {2.0 * math.pi * float(fraction):.3g}"
                     ),
                     measured=high,

@@ -1,15 +1,15 @@
-"""Evidence for findings of the H4b rule families: locations, notes, numbers.
+"""What a finding says: variant ids, numbers in messages, notes, values read.
 
-Every finding must point at the config element most responsible for it
-(RULES.md): a filter entry for filter rules, the controller table or one of
-its fields for controller rules, the manifest's loop entry for sample-rate
-rules. These helpers find those locations in the loaded records
-(:mod:`ruleguard.load.spec`) and fall back to the enclosing table when a
-field has no recorded position.
+A rule never passes silently: what it cannot judge it reports as a
+NOTE-severity violation (RULES.md). These helpers build those notes, name
+variants, write numbers for messages, and read the plain values rules
+compare (parameters, controller fields, dB magnitudes). Where findings point
+is :mod:`ruleguard.rules.locations`.
 """
 
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
@@ -17,76 +17,65 @@ import numpy as np
 
 from ruleguard.location import Location
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
+from ruleguard.rules.locations import controller_location, key_path, related_locations
+
+# ------------------------------------------------------------------- variants
 
 
-def controller_location(ctx: LoopContext) -> Location:
-    """The controller table of the loop."""
-    return ctx.spec.controller.location
-
-
-def controller_field_location(ctx: LoopContext, name: str) -> Location:
-    """A field of the controller table (its own key in the firmware file)."""
-    controller = ctx.spec.controller
-    return controller.field_locations.get(name, controller.location)
-
-
-def filter_location(ctx: LoopContext, index: int) -> Location:
-    """The ``index``-th filter entry of the controller, or the controller table."""
-    filters = ctx.spec.controller.filters
-    if 0 <= index < len(filters):
-        return filters[index].location
-    return ctx.spec.controller.location
-
-
-def filter_field_location(ctx: LoopContext, index: int, name: str) -> Location:
-    filters = ctx.spec.controller.filters
-    if 0 <= index < len(filters):
-        entry = filters[index]
-        return entry.field_locations.get(name, entry.location)
-    return ctx.spec.controller.location
-
-
-def loop_location(ctx: LoopContext, field: str | None = None) -> Location:
-    """The manifest's loop entry, or one of its fields (``sample_rate_hz``, ``bounds``)."""
-    if field is not None:
-        loc = ctx.spec.field_locations.get(field)
-        if loc is not None:
-            return loc
-    return ctx.spec.location
-
-
-def plant_location(ctx: LoopContext) -> Location | None:
-    """The plant registry entry of the loop, when the project knows it."""
-    plants = getattr(ctx.project, "plants", None) or {}
-    entry = plants.get(ctx.spec.plant)
-    return None if entry is None else entry.location
-
-
-def block_location(ctx: LoopContext, block: Any) -> Location:
-    """Location of a :class:`~ruleguard.analysis.loop.BlockModel` (its table)."""
-    loc = getattr(block, "location", None)
-    if isinstance(loc, Location) and loc.file:
-        return loc
-    if getattr(block, "role", None) == "plant":
-        return plant_location(ctx) or ctx.spec.location
-    return ctx.spec.controller.location
-
-
-def variant_id(evaluation: Evaluation) -> str:
+def variant_id(evaluation: Evaluation) -> str | None:
+    """The id of an evaluation's variant (``"nominal"``, ``"corner-3"``, ...)."""
     variant = evaluation.variant
+    if variant is None:
+        return None
     return str(getattr(variant, "id", variant))
 
 
-def nyquist_hz(ctx: LoopContext) -> float | None:
-    rate = ctx.spec.sample_rate_hz
-    return None if rate is None else 0.5 * float(rate)
+def variants_phrase(failing: int, total: int) -> str:
+    """``" (worst variant; 3 of 9 variants fail)"``, or ``""`` for a single variant."""
+    if total <= 1:
+        return ""
+    return f" (worst variant; {failing} of {total} variants fail)"
 
 
-def domain_block(block: Any, discrete: bool):
-    """The block's factored form in the loop's domain (``None`` when it has none)."""
-    if block is None:
-        return None
-    return block.discrete if discrete else block.continuous
+def split_stable(ctx: LoopContext) -> tuple[list[Evaluation], list[Evaluation]]:
+    """The loop's evaluations split into closed-loop stable and not stable."""
+    stable = [ev for ev in ctx.evaluations if ev.analysis.stability.stable]
+    unstable = [ev for ev in ctx.evaluations if not ev.analysis.stability.stable]
+    return stable, unstable
+
+
+# -------------------------------------------------------------------- numbers
+
+
+def format_number(value: float | None, digits: int = 4) -> str:
+    """A number as messages show it: ``digits`` significant digits, no trailing noise.
+
+    ``"n/a"`` for ``None``, ``"infinite"``/``"-infinite"`` for what is not
+    finite, a short exponent (``"1.2e-5"``) for very small or large values.
+    """
+    if value is None:
+        return "n/a"
+    if not math.isfinite(value):
+        return "infinite" if value > 0 else "-infinite"
+    if value == 0:
+        return "0"
+    text = f"{value:.{digits}g}"
+    if "e" in text:
+        mantissa, exponent = text.split("e")
+        return f"{mantissa}e{int(exponent)}"
+    return text
+
+
+def db(magnitude) -> np.ndarray | float:
+    """20 log10 |x|, with -inf for zero (no warning)."""
+    with np.errstate(divide="ignore"):
+        return 20.0 * np.log10(np.abs(magnitude))
+
+
+def param(params: Mapping[str, Any], name: str, default: Any) -> Any:
+    """A rule parameter, ``default`` when absent or null."""
+    value = params.get(name, default) if params is not None else default
+    return default if value is None else value
 
 
 def as_number(value: Any) -> float | None:
@@ -123,6 +112,22 @@ def unit_of_field(name: str) -> str | None:
     return None
 
 
+def nyquist_hz(ctx: LoopContext) -> float | None:
+    """Half the loop's sample rate (``None`` for a continuous loop)."""
+    rate = ctx.spec.sample_rate_hz
+    return None if rate is None else 0.5 * float(rate)
+
+
+def domain_block(block: Any, discrete: bool):
+    """The block's factored form in the loop's domain (``None`` when it has none)."""
+    if block is None:
+        return None
+    return block.discrete if discrete else block.continuous
+
+
+# ---------------------------------------------------------------------- notes
+
+
 def note(
     message: str,
     location: Location,
@@ -131,7 +136,7 @@ def note(
     variant: str | None = None,
     related: Iterable[Location] = (),
 ) -> Violation:
-    """A "could not be computed here" observation (never a silent pass)."""
+    """A NOTE-severity violation: the rule could not judge this, and says why."""
     return Violation(
         variant=variant,
         message=message,
@@ -146,25 +151,30 @@ def note(
     )
 
 
-def param(params: Mapping[str, Any], name: str, default: Any) -> Any:
-    """A rule parameter, ``default`` when absent or null."""
-    value = params.get(name, default) if params is not None else default
-    return default if value is None else value
+def loop_note(
+    ctx: LoopContext, message: str, aspect: str = "", variant: str | None = None
+) -> Violation:
+    """A :func:`note` on the loop's controller table, the plant entry related.
+
+    Keyed by :func:`~ruleguard.rules.locations.key_path` (``aspect`` appended).
+    """
+    return note(
+        message,
+        controller_location(ctx),
+        key_path=key_path(ctx, aspect),
+        variant=variant,
+        related=related_locations(ctx, {}),
+    )
 
 
-def db(magnitude) -> np.ndarray | float:
-    """20 log10 |x|, with -inf for zero (no warning)."""
-    with np.errstate(divide="ignore"):
-        return 20.0 * np.log10(np.abs(magnitude))
+def not_analysed(ctx: LoopContext) -> bool:
+    """True when the loop has no analysis; the engine reports the reason once.
 
-
-def fmt(value: float | None, digits: int = 4) -> str:
-    """A number for a message (significant digits, no trailing noise)."""
-    if value is None:
-        return "n/a"
-    if not np.isfinite(value):
-        return "infinite" if value > 0 else "-infinite"
-    return f"{value:.{digits}g}"
+    Rules that need the analysis yield nothing for such a loop (the engine's
+    not-analysed finding covers it); rules that only read the configuration
+    may still run.
+    """
+    return not ctx.evaluations and ctx.not_analysed_reason is not None
 
 
 def unanalysed_notes(ctx: LoopContext, what: str, *, key_path: str) -> list[Violation]:
@@ -184,13 +194,6 @@ def unanalysed_notes(ctx: LoopContext, what: str, *, key_path: str) -> list[Viol
     ]
 
 
-def split_stable(ctx: LoopContext) -> tuple[list[Evaluation], list[Evaluation]]:
-    """The loop's evaluations split into closed-loop stable and not stable."""
-    stable = [ev for ev in ctx.evaluations if ev.analysis.stability.stable]
-    unstable = [ev for ev in ctx.evaluations if not ev.analysis.stability.stable]
-    return stable, unstable
-
-
 def unstable_note(
     unstable: list[Evaluation], what: str, location: Location, *, key_path: str
 ) -> list[Violation]:
@@ -208,8 +211,3 @@ def unstable_note(
             variant=variant_id(unstable[0]),
         )
     ]
-
-
-def key(*parts: str) -> str:
-    """A key path for fingerprints from non-empty parts."""
-    return ".".join(p for p in parts if p)

@@ -33,19 +33,21 @@ from ruleguard.models.discretize import prewarp_shift, tustin_constant
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     as_number,
-    controller_location,
     db,
     domain_block,
-    filter_field_location,
-    filter_location,
-    fmt,
-    key,
+    format_number,
     note,
     nyquist_hz,
     param,
-    plant_location,
     unanalysed_notes,
     variant_id,
+)
+from ruleguard.rules.locations import (
+    controller_location,
+    filter_field_location,
+    filter_location,
+    key,
+    plant_location,
 )
 from ruleguard.rules.responses import refine_maximum
 from ruleguard.rules.spec import Parameter, RuleSpec
@@ -124,9 +126,10 @@ def below_nyquist(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
                 Violation(
                     variant=None,
                     message=(
-                        f"filter {i} ({entry.kind}) `{name}` = {fmt(f_hz)} Hz is not below "
-                        f"{fmt(max_fraction)} of the Nyquist frequency {fmt(nyq)} Hz "
-                        f"({fmt(limit_hz)} Hz): the sampled filter cannot act there as designed"
+                        f"filter {i} ({entry.kind}) `{name}` = {format_number(f_hz)} Hz is not "
+                        f"below {format_number(max_fraction)} of the Nyquist frequency "
+                        f"{format_number(nyq)} Hz ({format_number(limit_hz)} Hz): the sampled "
+                        "filter cannot act there as designed"
                     ),
                     measured=f_hz,
                     limit=limit_hz,
@@ -141,7 +144,7 @@ def below_nyquist(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
         center = as_number(entry.fields.get("center_hz"))
         prewarp = as_number(entry.fields.get("prewarp_hz"))
         if method == "tustin_prewarp" and prewarp is not None and 0 < prewarp < nyq:
-            how = f"Tustin prewarped at {fmt(prewarp)} Hz"
+            how = f"Tustin prewarped at {format_number(prewarp)} Hz"
         elif method == "tustin":
             how, prewarp = "plain Tustin", None
         else:
@@ -153,9 +156,10 @@ def below_nyquist(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
                     Violation(
                         variant=None,
                         message=(
-                            f"notch {i} designed at {fmt(center)} Hz lands at {fmt(landed)} Hz "
+                            f"notch {i} designed at {format_number(center)} Hz lands at "
+                            f"{format_number(landed)} Hz "
                             f"under {how} ({abs(shift):.3g} % {'low' if shift > 0 else 'high'}, "
-                            f"limit {fmt(max_shift)} %): use `discretization = "
+                            f"limit {format_number(max_shift)} %): use `discretization = "
                             "\"tustin_prewarp\"` prewarped at the notch centre"
                         ),
                         measured=abs(shift),
@@ -288,16 +292,17 @@ def resonance_coverage(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[
         f_at = w_at / (2.0 * math.pi)
         location, index = _responsible_filter(ctx, f_mode)
         aliased = abs(f_at - f_mode) > 0.05 * f_mode
-        where = f" (seen at {fmt(f_at)} Hz after aliasing)" if aliased else ""
+        where = f" (seen at {format_number(f_at)} Hz after aliasing)" if aliased else ""
         related = tuple(loc for loc in (plant_location(ctx),) if loc is not None)
         fix = "" if index is not None else "; no notch or low-pass filter in the controller"
         out.append(
             Violation(
                 variant=variant_id(ev),
                 message=(
-                    f"plant resonance at {fmt(f_mode)} Hz (damping {zeta:.3g}) above the "
-                    f"crossover {fmt(f_c)} Hz{where} has |L| = {fmt(peak_db)} dB at its peak; "
-                    f"at most {fmt(-min_att)} dB required{fix}"
+                    f"plant resonance at {format_number(f_mode)} Hz (damping {zeta:.3g}) above the "
+                    f"crossover {format_number(f_c)} Hz{where} has |L| = "
+                    f"{format_number(peak_db)} dB at its peak; "
+                    f"at most {format_number(-min_att)} dB required{fix}"
                 ),
                 measured=float(peak_db) if math.isfinite(peak_db) else None,
                 limit=-min_att,

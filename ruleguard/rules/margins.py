@@ -20,16 +20,14 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
-from ruleguard.rules.locate import (
-    controller_location,
+from ruleguard.rules.evidence import (
     format_number,
-    key_path,
+    loop_note,
     not_analysed,
-    note,
-    related_locations,
     variant_id,
     variants_phrase,
 )
+from ruleguard.rules.locations import controller_location, key_path, related_locations
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -44,10 +42,10 @@ def judged_variants(
     if not_analysed(ctx):
         return [], None
     if not ctx.evaluations:
-        return [], note(ctx, f"{what} not judged: no variant of the loop was analysed")
+        return [], loop_note(ctx, f"{what} not judged: no variant of the loop was analysed")
     stable = [ev for ev in ctx.evaluations if ev.analysis.stability.stable]
     if not stable:
-        return [], note(
+        return [], loop_note(
             ctx,
             f"{what} not judged: the closed loop is unstable in every variant "
             "(see stability.closed-loop)",
@@ -215,7 +213,7 @@ def delay_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violat
     sample_rate_hz = getattr(ctx.spec, "sample_rate_hz", None)
     if min_samples is not None and sample_rate_hz is None and min_s is None:
         if not not_analysed(ctx):
-            yield note(
+            yield loop_note(
                 ctx,
                 "delay margin not judged: min_samples applies to sampled loops and this "
                 "loop is continuous; set min_s for it",
@@ -347,7 +345,7 @@ def disk_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
             (binding,),
         )
     elif missing:
-        yield note(
+        yield loop_note(
             ctx,
             f"disk margin not computed for {len(missing)} of {len(stable)} stable variants",
             variant=variant_id(missing[0]),

@@ -20,15 +20,8 @@ from typing import Any
 import numpy as np
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    controller_location,
-    db,
-    fmt,
-    key,
-    note,
-    unanalysed_notes,
-    variant_id,
-)
+from ruleguard.rules.evidence import db, format_number, note, unanalysed_notes, variant_id
+from ruleguard.rules.locations import controller_location, key
 from ruleguard.rules.responses import SIGNALS, dense_grid, refine_maximum, signal_response
 from ruleguard.rules.spec import Parameter, RuleSpec, threshold_location
 
@@ -157,7 +150,8 @@ def response_mask(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
     if clipped is not None:
         out.append(
             note(
-                f"response mask `{clipped[0]}` reaches above {fmt(clipped[1])} Hz, the top of "
+                f"response mask `{clipped[0]}` reaches above {format_number(clipped[1])} Hz, "
+                "the top of "
                 "the analysed frequency range (Nyquist frequency or end of measured data): "
                 "that part is not checked",
                 where,
@@ -176,8 +170,9 @@ def response_mask(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
             Violation(
                 variant=variant_id(ev),
                 message=(
-                    f"{symbol} = {fmt(value)} dB at {fmt(f_hz)} Hz is {relation} mask "
-                    f"({fmt(limit)} dB) by {fmt(excess, 3)} dB"
+                    f"{symbol} = {format_number(value)} dB at {format_number(f_hz)} Hz is "
+                    f"{relation} mask "
+                    f"({format_number(limit)} dB) by {format_number(excess, 3)} dB"
                 ),
                 measured=value if math.isfinite(value) else None,
                 limit=limit,

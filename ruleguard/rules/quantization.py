@@ -31,14 +31,8 @@ from typing import Any
 import numpy as np
 
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    block_location,
-    controller_field_location,
-    key,
-    note,
-    unanalysed_notes,
-    variant_id,
-)
+from ruleguard.rules.evidence import note, unanalysed_notes, variant_id
+from ruleguard.rules.locations import block_location, controller_field_location, key
 from ruleguard.rules.spec import RuleSpec
 
 EXACT_FORMATS = ("float64", "", None)

@@ -23,10 +23,7 @@ from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
-    controller_location,
-    fmt,
-    key,
-    loop_location,
+    format_number,
     note,
     param,
     split_stable,
@@ -34,6 +31,7 @@ from ruleguard.rules.evidence import (
     unstable_note,
     variant_id,
 )
+from ruleguard.rules.locations import controller_location, key, loop_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -90,10 +88,11 @@ def sampling_rate(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
             Violation(
                 variant=variant_id(ev),
                 message=(
-                    f"sample rate {fmt(rate)} Hz is {'at most ' if lower_bound else ''}"
-                    f"{ratio:.3g} times the closed-loop bandwidth ({at_least}{fmt(bw)} Hz); "
-                    f"at least {fmt(min_ratio)} times is required "
-                    f"({fmt(min_ratio * bw)} Hz)"
+                    f"sample rate {format_number(rate)} Hz is {'at most ' if lower_bound else ''}"
+                    f"{ratio:.3g} times the closed-loop bandwidth "
+                    f"({at_least}{format_number(bw)} Hz); "
+                    f"at least {format_number(min_ratio)} times is required "
+                    f"({format_number(min_ratio * bw)} Hz)"
                 ),
                 measured=ratio,
                 limit=min_ratio,

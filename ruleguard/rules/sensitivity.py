@@ -22,15 +22,8 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.locate import (
-    controller_location,
-    format_number,
-    key_path,
-    note,
-    related_locations,
-    variant_id,
-    variants_phrase,
-)
+from ruleguard.rules.evidence import format_number, loop_note, variant_id, variants_phrase
+from ruleguard.rules.locations import controller_location, key_path, related_locations
 from ruleguard.rules.margins import judged_variants
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -92,7 +85,7 @@ def _peak_rule(
             key_path=key_path(ctx),
         )
     elif missing:
-        yield note(
+        yield loop_note(
             ctx,
             f"{what} not computed for {len(missing)} of {len(stable)} stable variants",
             variant=variant_id(missing[0]),

@@ -17,15 +17,8 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.locate import (
-    controller_location,
-    key_path,
-    not_analysed,
-    note,
-    related_locations,
-    variant_id,
-    variants_phrase,
-)
+from ruleguard.rules.evidence import loop_note, not_analysed, variant_id, variants_phrase
+from ruleguard.rules.locations import controller_location, key_path, related_locations
 from ruleguard.rules.spec import RuleSpec
 
 
@@ -41,7 +34,7 @@ def closed_loop(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
     if not_analysed(ctx):
         return
     if not ctx.evaluations:
-        yield note(ctx, "stability not judged: no variant of the loop was analysed")
+        yield loop_note(ctx, "stability not judged: no variant of the loop was analysed")
         return
     failing = [ev for ev in ctx.evaluations if not ev.analysis.stability.stable]
     if not failing:
@@ -94,7 +87,7 @@ def encirclements(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
     if not_analysed(ctx):
         return
     if not ctx.evaluations:
-        yield note(ctx, "encirclements not counted: no variant of the loop was analysed")
+        yield loop_note(ctx, "encirclements not counted: no variant of the loop was analysed")
         return
     if getattr(ctx.spec, "required_ccw", None) is None:
         # The required count is then P, and ccw != P is exactly Z != 0: the
@@ -134,7 +127,7 @@ def encirclements(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
             key_path=key_path(ctx),
         )
     elif uncounted:
-        yield note(
+        yield loop_note(
             ctx,
             "encirclements not counted: the Nyquist curve passes through -1 "
             f"in {len(uncounted)} of {len(ctx.evaluations)} variants",

@@ -20,14 +20,8 @@ from typing import Any
 import numpy as np
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    controller_field_location,
-    controller_location,
-    key,
-    param,
-    unanalysed_notes,
-    variant_id,
-)
+from ruleguard.rules.evidence import param, unanalysed_notes, variant_id
+from ruleguard.rules.locations import controller_field_location, controller_location, key
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 #: Relative distance from s = 0 (z = 1) within which a root counts as there;

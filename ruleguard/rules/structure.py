@@ -30,16 +30,8 @@ from typing import Any
 import numpy as np
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import (
-    block_location,
-    domain_block,
-    key,
-    note,
-    param,
-    plant_location,
-    unanalysed_notes,
-    variant_id,
-)
+from ruleguard.rules.evidence import domain_block, note, param, unanalysed_notes, variant_id
+from ruleguard.rules.locations import block_location, key, plant_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
