@@ -18,13 +18,13 @@ from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
-    format_number,
     note,
     split_stable,
     unanalysed_notes,
     unstable_note,
     variant_id,
 )
+from ruleguard.rules.limits import frequency_range
 from ruleguard.rules.locations import controller_location, key
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -55,40 +55,13 @@ def bandwidth_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
         )
     if not known:
         return out
-    if min_hz is not None:
-        ev = min(known, key=lambda e: e.analysis.margins.bandwidth_hz)
-        bw = ev.analysis.margins.bandwidth_hz
-        if bw < float(min_hz):
-            out.append(
-                Violation(
-                    variant=variant_id(ev),
-                    message=f"closed-loop bandwidth {format_number(bw)} Hz is below the minimum "
-                    f"{format_number(min_hz)} Hz",
-                    measured=bw,
-                    limit=float(min_hz),
-                    unit="Hz",
-                    frequency_hz=bw,
-                    location=controller_location(ctx),
-                    key_path=key(base, "min"),
-                )
-            )
-    if max_hz is not None:
-        ev = max(known, key=lambda e: e.analysis.margins.bandwidth_hz)
-        bw = ev.analysis.margins.bandwidth_hz
-        if bw > float(max_hz):
-            out.append(
-                Violation(
-                    variant=variant_id(ev),
-                    message=f"closed-loop bandwidth {format_number(bw)} Hz is above the maximum "
-                    f"{format_number(max_hz)} Hz",
-                    measured=bw,
-                    limit=float(max_hz),
-                    unit="Hz",
-                    frequency_hz=bw,
-                    location=controller_location(ctx),
-                    key_path=key(base, "max"),
-                )
-            )
+    spans = [(ev, ev.analysis.margins.bandwidth_hz, ev.analysis.margins.bandwidth_hz)
+             for ev in known]
+    out.extend(
+        frequency_range(
+            ctx, spans, what="closed-loop bandwidth", min_hz=min_hz, max_hz=max_hz, key_path=base
+        )
+    )
     return out
 
 

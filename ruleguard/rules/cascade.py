@@ -22,10 +22,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping
+from operator import itemgetter
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import format_number, note, param, unanalysed_notes, variant_id
+from ruleguard.rules.limits import beyond_limit
 from ruleguard.rules.locations import controller_location, key, loop_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -76,7 +78,7 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
     if not ctx.evaluations:
         return unanalysed_notes(ctx, "cascade separation", key_path=base)
     cache: dict = {}
-    worst = None  # (ratio, ev, inner_bw, f_c, lower_bound)
+    readings = []  # (ratio, ev, inner_bw, f_c, lower_bound)
     skipped: list[tuple[Any, str]] = []
     for ev in ctx.evaluations:
         crossings = [c.hz for c in ev.analysis.margins.crossovers if c.hz is not None]
@@ -100,8 +102,7 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
         ratio = bw / f_c
         if lower and ratio >= min_ratio:
             continue  # even the lower bound of the inner bandwidth is fast enough
-        if worst is None or ratio < worst[0]:
-            worst = (ratio, ev, bw, f_c, lower)
+        readings.append((ratio, ev, bw, f_c, lower))
     out: list[Violation] = []
     if skipped:
         ev, why = skipped[0]
@@ -113,7 +114,8 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
                 variant=variant_id(ev),
             )
         )
-    if worst is not None and worst[0] < min_ratio:
+    _, worst = beyond_limit(readings, itemgetter(0), min_ratio, side="below")
+    if worst is not None:
         ratio, ev, bw, f_c, lower = worst
         inner_name = ctx.spec.inner
         related = [loop_location(ctx, "inner")]

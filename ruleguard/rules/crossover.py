@@ -22,6 +22,7 @@ from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import format_number, note, param, unanalysed_notes, variant_id
+from ruleguard.rules.limits import beyond_limit, frequency_range
 from ruleguard.rules.locations import controller_location, key, loop_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -63,49 +64,17 @@ def crossover_range(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Vio
         )
     if not with_cross:
         return out
-    if min_hz is not None:
-        ev, lows = min(with_cross, key=lambda item: min(item[1]))
-        low = min(lows)
-        if low < float(min_hz):
-            out.append(
-                Violation(
-                    variant=variant_id(ev),
-                    message=(
-                        f"gain crossover {format_number(low)} Hz is below the minimum "
-                        f"{format_number(min_hz)} Hz"
-                    ),
-                    measured=low,
-                    limit=float(min_hz),
-                    unit="Hz",
-                    frequency_hz=low,
-                    location=controller_location(ctx),
-                    key_path=key(base, "min"),
-                )
-            )
-    if max_hz is not None:
-        ev, highs = max(with_cross, key=lambda item: max(item[1]))
-        high = max(highs)
-        if high > float(max_hz):
-            out.append(
-                Violation(
-                    variant=variant_id(ev),
-                    message=(
-                        f"gain crossover {format_number(high)} Hz is above the maximum "
-                        f"{format_number(max_hz)} Hz"
-                    ),
-                    measured=high,
-                    limit=float(max_hz),
-                    unit="Hz",
-                    frequency_hz=high,
-                    location=controller_location(ctx),
-                    key_path=key(base, "max"),
-                )
-            )
+    spans = [(ev, min(hz), max(hz)) for ev, hz in with_cross]
+    out.extend(
+        frequency_range(
+            ctx, spans, what="gain crossover", min_hz=min_hz, max_hz=max_hz, key_path=base
+        )
+    )
     if checks_rate:
         limit = float(fraction) * float(rate)
-        ev, highs = max(with_cross, key=lambda item: max(item[1]))
-        high = max(highs)
-        if high > limit:
+        _, worst = beyond_limit(spans, lambda span: span[2], limit, side="above")
+        if worst is not None:
+            ev, _, high = worst
             h_wc = 2.0 * math.pi * high / float(rate)
             out.append(
                 Violation(

@@ -167,6 +167,36 @@ def loop_note(
     )
 
 
+def loop_violation(
+    ctx: LoopContext,
+    params: Mapping[str, Any],
+    evaluation: Evaluation,
+    message: str,
+    measured: float | None,
+    limit: float | None,
+    unit: str | None,
+    frequency_hz: float | None,
+    threshold: Iterable[str] = (),
+    aspect: str = "",
+) -> Violation:
+    """A violation of ``evaluation``'s variant on the loop's controller table.
+
+    Related: the plant entry and the ruleset lines of the parameters named in
+    ``threshold``; keyed by :func:`~ruleguard.rules.locations.key_path`.
+    """
+    return Violation(
+        variant=variant_id(evaluation),
+        message=message,
+        measured=measured,
+        limit=limit,
+        unit=unit,
+        frequency_hz=frequency_hz,
+        location=controller_location(ctx),
+        related=related_locations(ctx, params, threshold),
+        key_path=key_path(ctx, aspect),
+    )
+
+
 def not_analysed(ctx: LoopContext) -> bool:
     """True when the loop has no analysis; the engine reports the reason once.
 

@@ -23,11 +23,12 @@ from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     format_number,
     loop_note,
+    loop_violation,
     not_analysed,
     variant_id,
     variants_phrase,
 )
-from ruleguard.rules.locations import controller_location, key_path, related_locations
+from ruleguard.rules.limits import beyond_limit
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -54,31 +55,6 @@ def judged_variants(
     return stable, None
 
 
-def _violation(
-    ctx: LoopContext,
-    params: Mapping[str, Any],
-    evaluation: Evaluation,
-    message: str,
-    measured: float | None,
-    limit: float | None,
-    unit: str | None,
-    frequency_hz: float | None,
-    threshold: Iterable[str],
-    aspect: str = "",
-) -> Violation:
-    return Violation(
-        variant=variant_id(evaluation),
-        message=message,
-        measured=measured,
-        limit=limit,
-        unit=unit,
-        frequency_hz=frequency_hz,
-        location=controller_location(ctx),
-        related=related_locations(ctx, params, threshold),
-        key_path=key_path(ctx, aspect),
-    )
-
-
 # --------------------------------------------------------------------------- gain
 
 
@@ -92,16 +68,12 @@ def gain_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
     total = len(ctx.evaluations)
     min_db = params.get("min_db")
     if min_db is not None:
-        failing = [
-            ev
-            for ev in stable
-            if ev.analysis.margins.gain_margin_db is not None
-            and ev.analysis.margins.gain_margin_db < min_db
-        ]
-        if failing:
-            worst = min(failing, key=lambda ev: ev.analysis.margins.gain_margin_db)
+        failing, worst = beyond_limit(
+            stable, lambda ev: ev.analysis.margins.gain_margin_db, min_db, side="below"
+        )
+        if worst is not None:
             m = worst.analysis.margins
-            yield _violation(
+            yield loop_violation(
                 ctx,
                 params,
                 worst,
@@ -117,16 +89,12 @@ def gain_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
     min_lower_db = params.get("min_lower_db")
     if min_lower_db is not None:
         limit = -float(min_lower_db)
-        failing = [
-            ev
-            for ev in stable
-            if ev.analysis.margins.lower_gain_margin_db is not None
-            and ev.analysis.margins.lower_gain_margin_db > limit
-        ]
-        if failing:
-            worst = max(failing, key=lambda ev: ev.analysis.margins.lower_gain_margin_db)
+        failing, worst = beyond_limit(
+            stable, lambda ev: ev.analysis.margins.lower_gain_margin_db, limit, side="above"
+        )
+        if worst is not None:
             m = worst.analysis.margins
-            yield _violation(
+            yield loop_violation(
                 ctx,
                 params,
                 worst,
@@ -155,19 +123,15 @@ def phase_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violat
     min_deg = params.get("min_deg")
     if not stable or min_deg is None:
         return
-    failing = [
-        ev
-        for ev in stable
-        if ev.analysis.margins.phase_margin_deg is not None
-        and ev.analysis.margins.phase_margin_deg < min_deg
-    ]
-    if not failing:
+    failing, worst = beyond_limit(
+        stable, lambda ev: ev.analysis.margins.phase_margin_deg, min_deg, side="below"
+    )
+    if worst is None:
         return
-    worst = min(failing, key=lambda ev: ev.analysis.margins.phase_margin_deg)
     m = worst.analysis.margins
     crossings = len(m.crossovers)
     where = f" (smallest of {crossings} crossovers)" if crossings > 1 else ""
-    yield _violation(
+    yield loop_violation(
         ctx,
         params,
         worst,
@@ -240,12 +204,11 @@ def delay_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violat
         measure, limit, unit, name = samples, float(min_samples), "samples", "min_samples"
     else:
         measure, limit, unit, name = seconds, float(min_s), "s", "min_s"
-    failing = [ev for ev in stable if measure(ev) is not None and measure(ev) < limit]
-    if not failing:
+    failing, worst = beyond_limit(stable, measure, limit, side="below")
+    if worst is None:
         return
-    worst = min(failing, key=measure)
     value = measure(worst)
-    yield _violation(
+    yield loop_violation(
         ctx,
         params,
         worst,
@@ -311,9 +274,10 @@ def disk_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
         return
     missing = [ev for ev in stable if ev.analysis.margins.disk_margin is None]
     judged = [ev for ev in stable if ev.analysis.margins.disk_margin is not None]
-    failing = [ev for ev in judged if ev.analysis.margins.disk_margin.alpha < required_alpha]
-    if failing:
-        worst = min(failing, key=lambda ev: ev.analysis.margins.disk_margin.alpha)
+    failing, worst = beyond_limit(
+        judged, lambda ev: ev.analysis.margins.disk_margin.alpha, required_alpha, side="below"
+    )
+    if worst is not None:
         disk = worst.analysis.margins.disk_margin
         alpha = disk.alpha
         gain_db = disk_gain_db(alpha)
@@ -331,7 +295,7 @@ def disk_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
         else:
             measured, limit, unit = alpha, required_alpha, None
             wanted = f"alpha {format_number(required_alpha)}"
-        yield _violation(
+        yield loop_violation(
             ctx,
             params,
             worst,

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable, Mapping
+from operator import itemgetter
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
@@ -31,6 +32,7 @@ from ruleguard.rules.evidence import (
     unstable_note,
     variant_id,
 )
+from ruleguard.rules.limits import beyond_limit
 from ruleguard.rules.locations import controller_location, key, loop_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -48,7 +50,7 @@ def sampling_rate(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
         return unanalysed_notes(ctx, "sample rate against bandwidth", key_path=base)
     stable, unstable = split_stable(ctx)
     out = unstable_note(unstable, "sample rate against bandwidth", where, key_path=base)
-    worst = None  # (ratio, evaluation, bandwidth_hz, is_lower_bound)
+    readings = []  # (ratio, evaluation, bandwidth_hz, is_lower_bound)
     undetermined = []
     for ev in stable:
         bw = ev.analysis.margins.bandwidth_hz
@@ -69,8 +71,7 @@ def sampling_rate(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
         if lower_bound and ratio >= min_ratio:
             undetermined.append(ev)  # an upper bound on the ratio that passes proves nothing
             continue
-        if worst is None or ratio < worst[0]:
-            worst = (ratio, ev, bw, lower_bound)
+        readings.append((ratio, ev, bw, lower_bound))
     if undetermined:
         out.append(
             note(
@@ -81,7 +82,8 @@ def sampling_rate(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
                 variant=variant_id(undetermined[0]),
             )
         )
-    if worst is not None and worst[0] < min_ratio:
+    _, worst = beyond_limit(readings, itemgetter(0), min_ratio, side="below")
+    if worst is not None:
         ratio, ev, bw, lower_bound = worst
         at_least = "at least " if lower_bound else ""
         out.append(

@@ -22,8 +22,14 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import format_number, loop_note, variant_id, variants_phrase
-from ruleguard.rules.locations import controller_location, key_path, related_locations
+from ruleguard.rules.evidence import (
+    format_number,
+    loop_note,
+    loop_violation,
+    variant_id,
+    variants_phrase,
+)
+from ruleguard.rules.limits import beyond_limit
 from ruleguard.rules.margins import judged_variants
 from ruleguard.rules.spec import Parameter, RuleSpec
 
@@ -65,24 +71,21 @@ def _peak_rule(
     if not stable or max_db is None:
         return
     missing = [ev for ev in stable if value_of(ev) is None]
-    failing = [ev for ev in stable if value_of(ev) is not None and value_of(ev) > max_db]
-    if failing:
-        worst = max(failing, key=value_of)
+    failing, worst = beyond_limit(stable, value_of, max_db, side="above")
+    if worst is not None:
         peak_db = value_of(worst)
-        yield Violation(
-            variant=variant_id(worst),
-            message=(
-                f"{what} {format_number(peak_db)} dB ({symbol} = "
-                f"{format_number(10 ** (peak_db / 20))}{explain_value(peak_db)}) exceeds "
-                f"{format_number(max_db)} dB{variants_phrase(len(failing), len(ctx.evaluations))}"
-            ),
-            measured=peak_db,
-            limit=float(max_db),
-            unit="dB",
-            frequency_hz=hz_of(worst),
-            location=controller_location(ctx),
-            related=related_locations(ctx, params, ("max_db",)),
-            key_path=key_path(ctx),
+        yield loop_violation(
+            ctx,
+            params,
+            worst,
+            f"{what} {format_number(peak_db)} dB ({symbol} = "
+            f"{format_number(10 ** (peak_db / 20))}{explain_value(peak_db)}) exceeds "
+            f"{format_number(max_db)} dB{variants_phrase(len(failing), len(ctx.evaluations))}",
+            peak_db,
+            float(max_db),
+            "dB",
+            hz_of(worst),
+            ("max_db",),
         )
     elif missing:
         yield loop_note(

@@ -17,7 +17,13 @@ from collections.abc import Iterable, Mapping
 from typing import Any
 
 from ruleguard.rules.base import LoopContext, Severity, Violation
-from ruleguard.rules.evidence import loop_note, not_analysed, variant_id, variants_phrase
+from ruleguard.rules.evidence import (
+    loop_note,
+    loop_violation,
+    not_analysed,
+    variant_id,
+    variants_phrase,
+)
 from ruleguard.rules.locations import controller_location, key_path, related_locations
 from ruleguard.rules.spec import RuleSpec
 
@@ -62,16 +68,15 @@ def closed_loop(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
             f"{st.open_loop_unstable_poles} unstable open-loop poles){phrase}"
         )
         measured = float(z)
-    yield Violation(
-        variant=variant_id(worst),
-        message=message,
-        measured=measured,
-        limit=0.0,
-        unit="poles",
-        frequency_hz=margins.crossover_hz if margins is not None else None,
-        location=controller_location(ctx),
-        related=related_locations(ctx, params),
-        key_path=key_path(ctx),
+    yield loop_violation(
+        ctx,
+        params,
+        worst,
+        message,
+        measured,
+        0.0,
+        "poles",
+        margins.crossover_hz if margins is not None else None,
     )
 
 
