@@ -20,7 +20,7 @@ import re
 import xml.etree.ElementTree as ET
 
 from ruleguard.report.model import Report
-from ruleguard.report.units import hertz, quantity
+from ruleguard.report.units import finding_figures
 from ruleguard.rules.base import Finding, Severity
 
 PROJECT_SUITE = "(project)"
@@ -42,12 +42,7 @@ def _describe(finding: Finding) -> str:
     facts = []
     if finding.variant:
         facts.append(f"variant {finding.variant}")
-    if finding.measured is not None:
-        facts.append(f"measured {quantity(finding.measured, finding.unit)}")
-    if finding.limit is not None:
-        facts.append(f"limit {quantity(finding.limit, finding.unit)}")
-    if finding.frequency_hz is not None:
-        facts.append(f"at {hertz(finding.frequency_hz)}")
+    facts.extend(finding_figures(finding))
     if facts:
         lines.append(", ".join(facts))
     return "\n".join(lines)

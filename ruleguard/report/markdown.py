@@ -14,7 +14,7 @@ import re
 from ruleguard.report.model import LoopResult, Report
 from ruleguard.report.summary import UNBOUNDED, VALUE, Figure, loop_summary, loop_verdict
 from ruleguard.report.text import CAUTION
-from ruleguard.report.units import hertz, quantity
+from ruleguard.report.units import finding_figures, hertz, quantity
 from ruleguard.rules.base import Finding, Severity
 
 _VERDICT = {
@@ -87,13 +87,7 @@ def _finding_item(finding: Finding) -> str:
     scope = f"{_code(finding.loop)}" if finding.loop else "project"
     if finding.variant:
         scope += f" ({escape(finding.variant)})"
-    facts = []
-    if finding.measured is not None:
-        facts.append(f"measured {quantity(finding.measured, finding.unit)}")
-    if finding.limit is not None:
-        facts.append(f"limit {quantity(finding.limit, finding.unit)}")
-    if finding.frequency_hz is not None:
-        facts.append(f"at {hertz(finding.frequency_hz)}")
+    facts = finding_figures(finding)
     tail = f" — {', '.join(facts)}" if facts else ""
     item = (
         f"- {mark} **{severity}** {_code(finding.rule)} {scope}: {escape(finding.message)}"

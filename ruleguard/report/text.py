@@ -37,7 +37,7 @@ from ruleguard.report.summary import (
     FigureRow,
     loop_summary,
 )
-from ruleguard.report.units import hertz, number, quantity
+from ruleguard.report.units import finding_figures, hertz, number, quantity
 from ruleguard.rules.base import Finding, Severity
 
 CAUTION = (
@@ -275,12 +275,7 @@ def _detail(finding: Finding) -> str:
         parts.append(loop)
     else:
         parts.append("project-wide")
-    if finding.measured is not None:
-        parts.append(f"measured {quantity(finding.measured, finding.unit)}")
-    if finding.limit is not None:
-        parts.append(f"limit {quantity(finding.limit, finding.unit)}")
-    if finding.frequency_hz is not None:
-        parts.append(f"at {hertz(finding.frequency_hz)}")
+    parts.extend(finding_figures(finding))
     if finding.location.key:
         parts.append(f"key {finding.location.key}")
     return " · ".join(parts)

@@ -7,6 +7,10 @@ to ms or µs. Machine formats (JSON, SARIF, JUnit properties) keep full floats.
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    from ruleguard.rules.base import Finding
 
 
 def number(value: float | None, digits: int = 4) -> str:
@@ -60,3 +64,15 @@ def quantity(value: float | None, unit: str | None) -> str:
 
 def hertz(value: float | None) -> str:
     return quantity(value, "Hz")
+
+
+def finding_figures(finding: Finding) -> list[str]:
+    """``["measured 3.52 dB", "limit 6 dB", "at 0.2251 Hz"]``: the figures a finding has."""
+    figures = []
+    if finding.measured is not None:
+        figures.append(f"measured {quantity(finding.measured, finding.unit)}")
+    if finding.limit is not None:
+        figures.append(f"limit {quantity(finding.limit, finding.unit)}")
+    if finding.frequency_hz is not None:
+        figures.append(f"at {hertz(finding.frequency_hz)}")
+    return figures
