@@ -921,8 +921,23 @@ def _check_sample_time(sample_time_s: float) -> float:
 # --------------------------------------------------------------------------
 # Frequency-response factors for blocks without a factored form
 # --------------------------------------------------------------------------
+class _KnownAtEveryFrequency:
+    """Range and detail of a factor given in closed form: every ``w``, no grid points."""
+
+    @property
+    def w_min(self) -> float:
+        return 0.0
+
+    @property
+    def w_max(self) -> float:
+        return math.inf
+
+    def grid(self) -> np.ndarray:
+        return np.zeros(0)
+
+
 @dataclass(frozen=True, eq=False)
-class HoldFactor:
+class HoldFactor(_KnownAtEveryFrequency):
     """The zero-order hold seen in the frequency domain, ``(1 - e^{-j w h})/(j w h)``.
 
     Equal to ``e^{-j w h/2} sin(w h/2)/(w h/2)`` (1 at ``w = 0``): a phase lag
@@ -942,25 +957,14 @@ class HoldFactor:
     def __post_init__(self) -> None:
         object.__setattr__(self, "sample_time_s", _check_sample_time(self.sample_time_s))
 
-    @property
-    def w_min(self) -> float:
-        return 0.0
-
-    @property
-    def w_max(self) -> float:
-        return math.inf
-
     def response(self, w) -> np.ndarray:
         x = np.asarray(w, dtype=float) * self.sample_time_s
         # numpy's sinc(t) = sin(pi t)/(pi t): sin(x/2)/(x/2) = sinc(x/(2 pi))
         return np.exp(-0.5j * x) * np.sinc(x / (2.0 * math.pi))
 
-    def grid(self) -> np.ndarray:
-        return np.zeros(0)
-
 
 @dataclass(frozen=True, eq=False)
-class DelayFactor:
+class DelayFactor(_KnownAtEveryFrequency):
     """An exact transport delay ``e^{-j w tau}`` as a frequency-response factor.
 
     For delays in series with a block known only by its frequency response
@@ -977,16 +981,5 @@ class DelayFactor:
             raise ValueError(f"delay_s must be finite and >= 0, got {self.delay_s}")
         object.__setattr__(self, "delay_s", tau)
 
-    @property
-    def w_min(self) -> float:
-        return 0.0
-
-    @property
-    def w_max(self) -> float:
-        return math.inf
-
     def response(self, w) -> np.ndarray:
         return np.exp(-1j * np.asarray(w, dtype=float) * self.delay_s)
-
-    def grid(self) -> np.ndarray:
-        return np.zeros(0)
