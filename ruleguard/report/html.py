@@ -142,7 +142,9 @@ def _place(location: Location, report: Report) -> str:
     return f"{file}:{location.line}:{location.column}"
 
 
-def _figure_cell(figure: Figure, unit: str | None, *, with_variant: bool = True) -> str:
+def _figure_cell(figure: Figure | None, unit: str | None, *, with_variant: bool = True) -> str:
+    if figure is None:
+        return "-"
     if figure.state != VALUE:
         text = figure.state
     else:
@@ -248,10 +250,10 @@ def _overview(report: Report, ids: Mapping[str, str]) -> list[str]:
         out.append(
             f"<tr><td>{link}</td><td>{badge}</td><td>{closed}</td>"
             f'<td class="num">{_e(p_values)}</td><td class="num">{_e(n_values)}</td>'
-            f'<td class="num">{_figure_cell(rows[("gain margin", "dB")], "dB")}</td>'
-            f'<td class="num">{_figure_cell(rows[("phase margin", "deg")], "deg")}</td>'
-            f'<td class="num">{_figure_cell(rows[("delay margin", "s")], "s")}</td>'
-            f'<td class="num">{_figure_cell(rows[("sensitivity peak Ms", "dB")], "dB")}</td>'
+            f'<td class="num">{_figure_cell(rows.get(("gain margin", "dB")), "dB")}</td>'
+            f'<td class="num">{_figure_cell(rows.get(("phase margin", "deg")), "deg")}</td>'
+            f'<td class="num">{_figure_cell(rows.get(("delay margin", "s")), "s")}</td>'
+            f'<td class="num">{_figure_cell(rows.get(("sensitivity peak Ms", "dB")), "dB")}</td>'
             f"<td>{_e(worst_text)}</td></tr>"
         )
     out += ["</tbody>", "</table>",

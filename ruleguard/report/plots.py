@@ -377,8 +377,7 @@ def nyquist_plot(
             _line(cx, cy - 7, cx, cy + 7, stroke="#c00000", width=2.2, css="critical-point"),
             _text(cx - 6, cy - 9, "−1", anchor="end", fill="#c00000", css="critical-label"))
     svg.add(*_legend(curves, left + 8, 20))
-    svg.add(_text(right, 20, "solid: ω > 0 · faint: ω < 0 · ◇ real-axis crossing · "
-                  "○ |L| = 1 · dotted circle: radius 1/Ms", anchor="end", css="note"))
+    svg.add(_text(right, 20, "faint: ω < 0", anchor="end", css="note"))
     return Plot(svg.done(), (Panel("nyquist", x, y),))
 
 
@@ -504,7 +503,17 @@ def loop_gain_plot(
                          if _finite(g)]
     db_low, db_high = _db_range(dbs, [0.0] + gm_marks, -100.0, 100.0)
     my = Scale(db_low, db_high, mag_bottom, mag_top)
-    finite_phase = [p for s in phases for p in s if p is not None] or [-180.0]
+    # the phase axis covers the samples up to a few times the highest marked
+    # frequency (a dead time's phase falls without bound above it; that part
+    # runs off the panel)
+    marked = [hz for c in curves if (a := analyses.get(c.variant)) is not None
+              for hz in [x.hz for x in a.margins.crossovers]
+              + [a.margins.gain_margin_hz, a.margins.lower_gain_margin_hz]
+              if hz is not None and math.isfinite(hz)]
+    top_hz = 4.0 * max(marked) if marked else math.inf
+    finite_phase = [p for c, s in zip(curves, phases, strict=True)
+                    for hz, p in zip(c.frequency_hz, s, strict=True)
+                    if p is not None and hz <= top_hz] or [-180.0]
     ph_low, ph_high = _padded(max(min(finite_phase + [-180.0]), -1080.0),
                               min(max(finite_phase + [-180.0]), 720.0), minimum=90.0)
     py = Scale(ph_low, ph_high, ph_bottom, ph_top)
