@@ -8,21 +8,13 @@ or with numpy), so each rule is checked on exactly the figures it judges.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+
+from rule_contexts import Variant
 
 from ruleguard.analysis.results import Crossover, DiskMargin, LoopAnalysis, Margins, Stability
 from ruleguard.load.spec import ControllerEntry, LoopSpec, PlantEntry, Project, VariantPolicy
 from ruleguard.location import Location
 from ruleguard.rules.base import Evaluation, LoopContext
-
-
-@dataclass(frozen=True)
-class Variant:
-    """A variant as the families module makes them: an id and parameter values."""
-
-    id: str
-    parameters: dict = field(default_factory=dict)
-
 
 CONTROLLER_FILE = "firmware/axis.toml"
 PLANT_FILE = "models/plants.toml"

@@ -11,6 +11,7 @@ states its loop in a few lines. Analysis results are given explicitly
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 
 import numpy as np
 
@@ -25,10 +26,14 @@ from ruleguard.rules.base import Evaluation, LoopContext
 FIRMWARE = "firmware/axis.toml"
 MANIFEST = "ruleguard.toml"
 PLANTS = "models/plants.toml"
+#: the registry entry of the default plant, ``mechanics``
+PLANT_LOCATION = Location(PLANTS, 1, 1, "plants.mechanics")
 
 
 @dataclass(frozen=True)
 class Variant:
+    """A variant as the families module makes them: an id and parameter values."""
+
     id: str
     parameters: dict = field(default_factory=dict)
 
@@ -135,6 +140,20 @@ def block(role, label, kind, continuous=None, discrete=None, method=None, locati
     )
 
 
+def controller_block(spec: LoopSpec, continuous=None, discrete=None, method=None) -> BlockModel:
+    """The loop's controller as a block, labelled and located as the assembler does."""
+    controller = spec.controller
+    return block(
+        "controller",
+        f"{controller.path} ({controller.kind})",
+        controller.kind,
+        continuous,
+        discrete,
+        method,
+        controller.location,
+    )
+
+
 def model(
     spec: LoopSpec,
     controller: BlockModel,
@@ -231,14 +250,11 @@ def pair(freq_hz, damping):
 def loop_evaluation(spec, loop_zpk: ZPK, loop_analysis, variant_id="nominal") -> Evaluation:
     """An evaluation whose whole open loop sits in the controller block (plant = 1)."""
     discrete = loop_zpk.sample_time_s is not None
-    ctrl = block(
-        "controller",
-        f"{spec.controller.path} ({spec.controller.kind})",
-        spec.controller.kind,
+    ctrl = controller_block(
+        spec,
         continuous=None if discrete else loop_zpk,
         discrete=loop_zpk if discrete else None,
         method="given" if discrete else None,
-        location=spec.controller.location,
     )
     unity = ZPK.unity(loop_zpk.sample_time_s)
     plant = block(
@@ -247,6 +263,29 @@ def loop_evaluation(spec, loop_zpk: ZPK, loop_analysis, variant_id="nominal") ->
         "zero_pole_gain",
         continuous=None if discrete else unity,
         discrete=unity if discrete else None,
-        location=Location(PLANTS, 1, 1, "plants.mechanics"),
+        location=PLANT_LOCATION,
     )
     return evaluation(variant_id, model(spec, ctrl, plant), loop_analysis)
+
+
+def velocity_manifest(name: str = "e2e", ruleset: str = "baseline", loop_lines: str = "") -> str:
+    """A manifest with the one loop ``axis.velocity`` (plant ``mechanics``, controller
+    ``firmware/axis.toml`` table ``velocity``); ``loop_lines`` end the loop entry."""
+    return f"""[project]
+name = "{name}"
+ruleset = "{ruleset}"
+plants = ["models/plants.toml"]
+
+[[loops]]
+name = "axis.velocity"
+plant = "mechanics"
+controller = {{ file = "firmware/axis.toml", path = "velocity" }}
+{loop_lines}"""
+
+
+def write_files(root: Path, files: dict[str, str]) -> Path:
+    """Write ``files`` (relative path -> text) below ``root``; returns the manifest path."""
+    for rel, text in files.items():
+        (root / rel).parent.mkdir(parents=True, exist_ok=True)
+        (root / rel).write_text(text)
+    return root / MANIFEST

@@ -20,10 +20,13 @@ from rule_contexts import (
     analysis,
     block,
     context,
+    controller_block,
     controller_entry,
     evaluation,
     loop_spec,
     model,
+    velocity_manifest,
+    write_files,
     zpk,
 )
 
@@ -49,8 +52,7 @@ def filtered_pid():
 def ctx_with(spec, ctrl_c, filters=(), method="tustin"):
     h = None if spec.sample_rate_hz is None else 1.0 / spec.sample_rate_hz
     disc = (lambda b: discretize_block(b, method, h)) if h else (lambda b: None)
-    ctrl = block("controller", f"velocity ({spec.controller.kind})", spec.controller.kind,
-                 ctrl_c, disc(ctrl_c), method if h else None, spec.controller.location)
+    ctrl = controller_block(spec, ctrl_c, disc(ctrl_c), method if h else None)
     fblocks = []
     for i, (c, d) in enumerate(filters):
         fblocks.append(block("filter", f"velocity.filters.{i}", spec.controller.filters[i].kind,
@@ -175,17 +177,7 @@ def test_unanalysed_without_reason_is_a_note():
 # ----------------------------------------------------- through the pipeline
 def write_project(root, sample_rate_line, discretization="tustin"):
     files = {
-        "ruleguard.toml": f"""[project]
-name = "e2e"
-ruleset = "baseline"
-plants = ["models/plants.toml"]
-
-[[loops]]
-name = "axis.velocity"
-plant = "mechanics"
-controller = {{ file = "firmware/axis.toml", path = "velocity" }}
-{sample_rate_line}
-""",
+        "ruleguard.toml": velocity_manifest(loop_lines=f"{sample_rate_line}\n"),
         "models/plants.toml": """[plants.mechanics]
 kind = "zero_pole_gain"
 gain = 50.0
@@ -199,10 +191,7 @@ kd = 0.01
 discretization = "{discretization}"
 """,
     }
-    for rel, text in files.items():
-        (root / rel).parent.mkdir(parents=True, exist_ok=True)
-        (root / rel).write_text(text)
-    return root / "ruleguard.toml"
+    return write_files(root, files)
 
 
 def _derivative_findings(manifest):

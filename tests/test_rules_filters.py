@@ -18,23 +18,24 @@ import math
 import numpy as np
 import pytest
 from rule_contexts import (
+    PLANT_LOCATION,
     analysis,
     block,
     context,
+    controller_block,
     controller_entry,
     evaluation,
     loop_spec,
     model,
     pair,
+    velocity_manifest,
+    write_files,
     zpk,
 )
 
-from ruleguard.location import Location
 from ruleguard.models.discretize import discretize_block
 from ruleguard.rules.base import Severity
 from ruleguard.rules.filters import below_nyquist, resonance_coverage, tustin_shift_percent
-
-PLANT_LOC = Location("models/plants.toml", 1, 1, "plants.mechanics")
 
 
 def notch(center_hz, width_hz, depth_db):
@@ -48,8 +49,7 @@ def sampled_ctx(filters, rate, methods):
     h = 1.0 / rate
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=[(k, f) for k, f, _ in filters]),
                      sample_rate_hz=rate)
-    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], 1.0), zpk([], [], 1.0, h=h),
-                 "tustin", spec.controller.location)
+    ctrl = controller_block(spec, zpk([], [], 1.0), zpk([], [], 1.0, h=h), "tustin")
     fblocks = []
     for i, ((kind, _, c), method) in enumerate(zip(filters, methods, strict=True)):
         if c is None:
@@ -61,7 +61,7 @@ def sampled_ctx(filters, rate, methods):
         fblocks.append(block("filter", f"velocity.filters.{i} ({kind})", kind, c, d, method,
                              spec.controller.filters[i].location))
     plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [-1.0], 1.0),
-                  zpk([], [0.5], 1.0, h=h), "zoh", PLANT_LOC)
+                  zpk([], [0.5], 1.0, h=h), "zoh", PLANT_LOCATION)
     return spec, context(spec, [evaluation("nominal", model(spec, ctrl, plant, fblocks),
                                            analysis())])
 
@@ -137,12 +137,11 @@ def resonant_ctx(filters=(), filter_zpks=(), f_r=F_R, crossover_hz=20.0):
     w_r = 2 * math.pi * f_r
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=list(filters)))
     g = zpk([], [0.0, *pair(f_r, Z_R)], K_LOOP * w_r * w_r)
-    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], 1.0),
-                 location=spec.controller.location)
+    ctrl = controller_block(spec, zpk([], [], 1.0))
     fblocks = [block("filter", f"velocity.filters.{i}", kind, c,
                      location=spec.controller.filters[i].location)
                for i, ((kind, _), c) in enumerate(zip(filters, filter_zpks, strict=True))]
-    plant = block("plant", "mechanics", "zero_pole_gain", g, location=PLANT_LOC)
+    plant = block("plant", "mechanics", "zero_pole_gain", g, location=PLANT_LOCATION)
     m = model(spec, ctrl, plant, fblocks)
     return spec, context(spec, [evaluation("nominal", m, analysis(crossovers_hz=[crossover_hz]))])
 
@@ -162,7 +161,7 @@ def test_uncovered_resonance_fails_with_true_peak():
     assert v.limit == -6.0 and v.unit == "dB"
     assert v.frequency_hz == pytest.approx(F_R * math.sqrt(1 - 2 * Z_R**2), rel=1e-3)
     assert v.location == spec.controller.location  # no filter at all
-    assert v.related == (PLANT_LOC,)
+    assert v.related == (PLANT_LOCATION,)
 
 
 def test_notch_on_resonance_passes_and_weak_notch_is_located():
@@ -187,7 +186,7 @@ def test_measured_plant_is_a_note():
     spec = loop_spec(controller_entry(fields={"kp": 1.0}))
     ctrl = block("controller", "velocity", "pid", zpk([], [], 1.0))
     plant = block("plant", "mechanics (measured_response)", "measured_response",
-                  location=PLANT_LOC)
+                  location=PLANT_LOCATION)
     m = model(spec, ctrl, plant)
     (n,) = resonance_coverage(context(spec, [evaluation("nominal", m, analysis())]), {})
     assert n.severity is Severity.NOTE
@@ -195,18 +194,9 @@ def test_measured_plant_is_a_note():
 
 # ----------------------------------------------------- through the pipeline
 E2E_FILES = {
-    "ruleguard.toml": """[project]
-name = "e2e"
-ruleset = "baseline"
-plants = ["models/plants.toml"]
-
-[[loops]]
-name = "axis.velocity"
-plant = "mechanics"
-controller = { file = "firmware/axis.toml", path = "velocity" }
-sample_rate_hz = 4000.0
-delay_samples = 1.0
-""",
+    "ruleguard.toml": velocity_manifest(
+        loop_lines="sample_rate_hz = 4000.0\ndelay_samples = 1.0\n"
+    ),
     "models/plants.toml": """[plants.mechanics]
 kind = "zero_pole_gain"
 gain = 1.26330e10
@@ -240,10 +230,7 @@ def test_filter_rules_on_a_loaded_sampled_project(tmp_path):
 
     from ruleguard.api import check
 
-    for rel, text in E2E_FILES.items():
-        (tmp_path / rel).parent.mkdir(parents=True, exist_ok=True)
-        (tmp_path / rel).write_text(text)
-    report = check(tmp_path / "ruleguard.toml")
+    report = check(write_files(tmp_path, E2E_FILES))
     found = {}
     for f in report.findings:
         found.setdefault(f.rule, []).append(f)
@@ -290,10 +277,9 @@ def test_resonance_above_nyquist_is_measured_where_it_aliases():
     w_r = 2 * math.pi * 700.0
     g = zpk([], [0.0, *pair(700.0, 0.01)], 2 * math.pi * 20.0 * w_r * w_r)
     spec = loop_spec(controller_entry(fields={"kp": 1.0}), sample_rate_hz=rate)
-    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], 1.0), zpk([], [], 1.0, h=h),
-                 "tustin", spec.controller.location)
+    ctrl = controller_block(spec, zpk([], [], 1.0), zpk([], [], 1.0, h=h), "tustin")
     plant = block("plant", "mechanics", "zero_pole_gain", g, zoh_equivalent(g, h), "zoh",
-                  PLANT_LOC)
+                  PLANT_LOCATION)
     m = model(spec, ctrl, plant)
     ctx = context(spec, [evaluation("nominal", m, analysis(crossovers_hz=[20.0]))])
     (v,) = resonance_coverage(ctx, {"min_attenuation_db": 6.0, "max_damping": 0.2})

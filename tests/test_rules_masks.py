@@ -16,7 +16,17 @@ import math
 
 import numpy as np
 import pytest
-from rule_contexts import analysis, context, controller_entry, loop_evaluation, loop_spec, pair, zpk
+from rule_contexts import (
+    analysis,
+    context,
+    controller_entry,
+    loop_evaluation,
+    loop_spec,
+    pair,
+    velocity_manifest,
+    write_files,
+    zpk,
+)
 
 from ruleguard.rules.base import Severity
 from ruleguard.rules.masks import mask_level, response_mask
@@ -139,16 +149,7 @@ def test_mask_from_a_ruleset_file_through_the_pipeline(tmp_path):
     from ruleguard.api import check
 
     files = {
-        "ruleguard.toml": """[project]
-name = "mask-e2e"
-ruleset = "policy/house.toml"
-plants = ["models/plants.toml"]
-
-[[loops]]
-name = "axis.velocity"
-plant = "mechanics"
-controller = { file = "firmware/axis.toml", path = "velocity" }
-""",
+        "ruleguard.toml": velocity_manifest("mask-e2e", "policy/house.toml"),
         "policy/house.toml": """[ruleset]
 name = "house"
 extends = "baseline"
@@ -170,10 +171,7 @@ kd = 0.001
 derivative_filter_hz = 2000.0
 """,
     }
-    for rel, text in files.items():
-        (tmp_path / rel).parent.mkdir(parents=True, exist_ok=True)
-        (tmp_path / rel).write_text(text)
-    report = check(tmp_path / "ruleguard.toml")
+    report = check(write_files(tmp_path, files))
     (f,) = [f for f in report.findings if f.rule == "response.mask"]
     wd = 2 * math.pi * 2000.0
     w = 2 * math.pi * 10000.0

@@ -24,7 +24,17 @@ import math
 
 import numpy as np
 import pytest
-from rule_contexts import block, context, controller_entry, evaluation, loop_spec, model, pair, zpk
+from rule_contexts import (
+    block,
+    context,
+    controller_block,
+    controller_entry,
+    evaluation,
+    loop_spec,
+    model,
+    pair,
+    zpk,
+)
 
 from ruleguard.analysis.margins import analyse_open_loop
 from ruleguard.location import Location
@@ -44,8 +54,7 @@ def lowpass_loop(numeric_format):
     lp_fields = {"cutoff_hz": 1000.0, "damping": 0.7}
     spec = loop_spec(controller_entry(fields=fields, filters=[("lowpass2", lp_fields)]),
                      sample_rate_hz=RATE)
-    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], KC),
-                 zpk([], [], KC, h=H), "tustin", spec.controller.location)
+    ctrl = controller_block(spec, zpk([], [], KC), zpk([], [], KC, h=H), "tustin")
     lp_c = zpk([], pair(1000.0, 0.7), W_LP * W_LP)
     lp = block("filter", "velocity.filters.0 (lowpass2)", "lowpass2", lp_c,
                discretize_block(lp_c, "tustin_prewarp", H, W_LP), "tustin_prewarp",

@@ -15,6 +15,7 @@ from rule_contexts import (
     analysis,
     block,
     context,
+    controller_block,
     controller_entry,
     evaluation,
     loop_spec,
@@ -32,8 +33,7 @@ def pi_loop(spec, plant_zpk, h=None):
     kp, ki = 2.0, 50.0
     c = zpk([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
     d = discretize_block(c, "tustin", h) if h else None
-    ctrl = block("controller", "velocity (pid)", "pid", c, d, "tustin" if h else None,
-                 spec.controller.location)
+    ctrl = controller_block(spec, c, d, "tustin" if h else None)
     pd = None
     if h:
         from ruleguard.models.discretize import zoh_equivalent

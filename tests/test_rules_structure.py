@@ -18,9 +18,11 @@ import math
 import numpy as np
 import pytest
 from rule_contexts import (
+    PLANT_LOCATION,
     analysis,
     block,
     context,
+    controller_block,
     controller_entry,
     evaluation,
     loop_spec,
@@ -29,22 +31,17 @@ from rule_contexts import (
 )
 
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.location import Location
 from ruleguard.models.lti import MeasuredResponse
 from ruleguard.rules.base import Severity
 from ruleguard.rules.structure import hidden_cancellation
-
-PLANT_LOC = Location("models/plants.toml", 1, 1, "plants.mechanics")
 
 
 def ctx_for(c, g, h=None, variant="nominal", filters=()):
     spec = loop_spec(controller_entry(kind="transfer_function"),
                      sample_rate_hz=None if h is None else 1.0 / h)
-    ctrl = block("controller", "velocity (transfer_function)", "transfer_function",
-                 None if h else c, c if h else None, "given" if h else None,
-                 spec.controller.location)
+    ctrl = controller_block(spec, None if h else c, c if h else None, "given" if h else None)
     plant = block("plant", "mechanics (zero_pole_gain)", "zero_pole_gain",
-                  None if h else g, g if h else None, location=PLANT_LOC)
+                  None if h else g, g if h else None, location=PLANT_LOCATION)
     ev = evaluation(variant, model(spec, ctrl, plant, filters), analysis())
     return spec, context(spec, [ev])
 
@@ -61,7 +58,7 @@ def test_unstable_plant_pole_cancelled_by_controller_zero():
     assert np.max(eig.real) == pytest.approx(1.0)
     (v,) = hidden_cancellation(ctx, {"tolerance": 1e-6})
     assert "unstable plant pole" in v.message
-    assert v.location == spec.controller.location and v.related == (PLANT_LOC,)
+    assert v.location == spec.controller.location and v.related == (PLANT_LOCATION,)
     assert v.measured == pytest.approx(0.0) and v.limit == 1e-6
     assert v.frequency_hz == pytest.approx(1.0 / (2 * math.pi))
 
@@ -77,7 +74,7 @@ def test_controller_integrator_cancelled_by_plant_zero_at_origin():
     spec, ctx = ctx_for(zpk([-10.0], [0.0], 1.0), zpk([0.0], [-2.0], 1.0))
     (v,) = hidden_cancellation(ctx, {"tolerance": 1e-6})
     assert "pole of velocity" in v.message and v.location == spec.controller.location
-    assert v.related == (PLANT_LOC,)
+    assert v.related == (PLANT_LOCATION,)
 
 
 def test_tolerance_is_relative():
@@ -107,13 +104,14 @@ def test_measured_plant_is_a_note():
     spec = loop_spec(controller_entry(kind="transfer_function"))
     ctrl = block("controller", "velocity", "transfer_function", zpk([1.0], [-10.0], 1.0),
                  location=spec.controller.location)
-    plant = block("plant", "mechanics (measured_response)", "measured_response", location=PLANT_LOC)
+    plant = block("plant", "mechanics (measured_response)", "measured_response",
+                  location=PLANT_LOCATION)
     w = np.logspace(0, 3, 20)
     meas = MeasuredResponse(w, np.zeros_like(w), np.zeros_like(w))
     m = model(spec, ctrl, plant, factors=(meas,))
     assert isinstance(m.open_loop, OpenLoop)
     (n,) = hidden_cancellation(context(spec, [evaluation("nominal", m, analysis())]), {})
-    assert n.severity is Severity.NOTE and n.location == PLANT_LOC
+    assert n.severity is Severity.NOTE and n.location == PLANT_LOCATION
 
 
 def test_one_zero_cancels_one_pole_of_a_double_integrator():
@@ -133,10 +131,9 @@ def test_sampled_loop_with_plant_known_by_response_compares_s_designs():
     c_s = zpk([1.0], [-10.0], 5.0)
     from ruleguard.models.discretize import discretize_block
 
-    ctrl = block("controller", "velocity (transfer_function)", "transfer_function", c_s,
-                 discretize_block(c_s, "tustin", h), "tustin", spec.controller.location)
+    ctrl = controller_block(spec, c_s, discretize_block(c_s, "tustin", h), "tustin")
     plant = block("plant", "mechanics (zero_pole_gain)", "zero_pole_gain",
-                  zpk([], [1.0], 1.0), None, "hold", PLANT_LOC)
+                  zpk([], [1.0], 1.0), None, "hold", PLANT_LOCATION)
     m = model(spec, ctrl, plant, factors=(HoldFactor(h),))
     (v,) = hidden_cancellation(context(spec, [evaluation("nominal", m, analysis())]),
                                {"tolerance": 1e-6})
