@@ -158,6 +158,7 @@ class TestStructure:
         doc = parse(html_report.render(report))
         counts = {li.attrs["data-count"]: int(li.find("strong").text())
                   for li in doc.find(id="result").find_all("li")}
+        assert doc.find(id="result").find("li").text() == "2 errors"
         assert counts == {"errors": 2, "warnings": 0, "notes": 2, "waived": 1, "loops": 3,
                           "evaluations": 4}
         assert doc.find(id="result").find("div", css="word").text() == "FAIL"
@@ -236,6 +237,23 @@ class TestStructure:
         assert hostile in doc.find("p", css="waiver").text()
         legend = [t.text() for t in doc.find_all("text", css="legend")]
         assert f"corner-2{hostile} (unstable)" in legend
+
+
+def test_odd_samples_still_draw():
+    # non-finite samples (boundary poles), L = 0, L = -1 exactly, a one-point curve
+    hz = (0.5, 1.0, 2.0, 4.0, 8.0)
+    odd = (complex(math.inf, 0), complex(math.nan, math.nan), 0j, -1 + 0j, 0.5 - 0.5j)
+    loop = dataclasses.replace(velocity_loop(), curves=(
+        ResponseCurve("nominal", "nominal", hz, odd),
+        ResponseCurve("corner-2", "unstable", (3.0,), (-2 + 0j,)),
+    ))
+    doc = parse(html_report.render(sample_report(loops=(loop,), findings=())))
+    assert len(list(doc.find_all("svg"))) == 3
+    for poly in doc.find_all("polyline"):
+        assert all(math.isfinite(v) for p in _points(poly) for v in p)
+    no_curves = parse(html_report.render(sample_report(loops=(velocity_loop(),), findings=())))
+    assert not list(no_curves.find_all("svg"))
+    assert "No response samples" in no_curves.find("section", css="loop").text()
 
 
 # ---------------------------------------------------------------- geometry

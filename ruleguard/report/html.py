@@ -203,7 +203,7 @@ def _masthead(report: Report) -> list[str]:
     out += [f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in facts]
     out += ["</dl>", "</div>", f'<div class="result {css}" id="result">',
             f'<div class="word">{word}</div>', '<ul class="counts">']
-    out += [f'<li data-count="{_e(k)}"><strong>{n}</strong> {_e(k)}</li>'
+    out += [f'<li data-count="{_e(k)}"><strong>{n}</strong> {_e(k if n != 1 else k[:-1])}</li>'
             for k, n in _counts(report)]
     out += ["</ul>", "</div>", "</header>"]
     return out
@@ -295,7 +295,8 @@ def _loop_facts(loop: LoopResult) -> list[str]:
     if loop.total_delay_s is not None:
         delay = quantity(loop.total_delay_s, "s")
         if loop.sample_rate_hz:
-            delay += f" ({number(loop.total_delay_s * loop.sample_rate_hz)} samples)"
+            samples = number(loop.total_delay_s * loop.sample_rate_hz)
+            delay += f" ({samples} sample{'' if samples == '1' else 's'})"
         facts.append(("total loop delay", delay))
     facts.append(("variants analysed", str(len(loop.variants))))
     if loop.tags:
