@@ -216,6 +216,12 @@ class TestStructure:
                     raise AssertionError(f"event handler {name}")
         assert "@import" not in page and "url(http" not in page
         assert len(list(doc.find_all("svg"))) == 3  # one loop with curves: three plots
+        # each plot is also well-formed XML (so it can be cut out as an .svg file)
+        import xml.etree.ElementTree as ET
+
+        for chunk in page.split("<svg ")[1:]:
+            svg_text = "<svg " + chunk.split("</svg>", 1)[0] + "</svg>"
+            assert ET.fromstring(svg_text).tag == "{http://www.w3.org/2000/svg}svg"
 
     def test_hostile_text_is_escaped(self):
         hostile = "<script>alert(1)</script><img src=x onerror=alert(2)>"
