@@ -14,6 +14,7 @@ import argparse
 import datetime as _dt
 import os
 import sys
+import warnings
 from pathlib import Path
 from typing import TextIO
 
@@ -66,8 +67,15 @@ def _build_parser() -> _Parser:
     check.add_argument("--only", action="append", default=[], metavar="RULE_OR_FAMILY")
     check.add_argument("--skip", action="append", default=[], metavar="RULE_OR_FAMILY")
     check.add_argument("--fail-at", choices=("error", "warning", "note"), default="error")
-    check.add_argument("--quiet", action="store_true", help="findings only, no tables")
+    check.add_argument("-q", "--quiet", action="store_true", help="findings only, no tables")
     check.add_argument("--no-cache", action="store_true", help="neither read nor write the cache")
+    check.add_argument(
+        "--time-budget",
+        type=float,
+        default=600.0,
+        metavar="SECONDS",
+        help="wall-clock budget of the check; loops not reached are reported as not analysed",
+    )
     check.add_argument(
         "--as-of",
         metavar="YYYY-MM-DD",
@@ -117,21 +125,11 @@ def run(argv: list[str], stdout: TextIO, stderr: TextIO) -> int:
             stderr.write(text + "\n")
         return exc.status
     try:
-        if args.version:
-            stdout.write(f"ruleguard {__version__}\n")
-            return EXIT_CLEAN
-        if args.command == "check":
-            return _cmd_check(args, stdout, stderr)
-        if args.command == "rules":
-            return _cmd_rules(args, stdout)
-        if args.command == "explain":
-            return _cmd_explain(args, stdout, stderr)
-        if args.command == "schema":
-            return _cmd_schema(args, stdout, stderr)
-        if args.command == "init":
-            return _cmd_init(args, stdout, stderr)
-        _build_parser().print_help(stdout)
-        return EXIT_INPUT
+        with warnings.catch_warnings():
+            # numpy's overflow chatter is not for users: numerical caveats
+            # reach the report as notes (NumericalWarning, via the pipeline).
+            warnings.simplefilter("ignore")
+            return _dispatch(args, stdout, stderr)
     except InputError as exc:
         stderr.write(format_input_error(exc) + "\n")
         return EXIT_INPUT
@@ -149,6 +147,24 @@ def run(argv: list[str], stdout: TextIO, stderr: TextIO) -> int:
 
             traceback.print_exc(file=stderr)
         return EXIT_INTERNAL
+
+
+def _dispatch(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
+    if args.version:
+        stdout.write(f"ruleguard {__version__}\n")
+        return EXIT_CLEAN
+    if args.command == "check":
+        return _cmd_check(args, stdout, stderr)
+    if args.command == "rules":
+        return _cmd_rules(args, stdout)
+    if args.command == "explain":
+        return _cmd_explain(args, stdout, stderr)
+    if args.command == "schema":
+        return _cmd_schema(args, stdout, stderr)
+    if args.command == "init":
+        return _cmd_init(args, stdout, stderr)
+    _build_parser().print_help(stdout)
+    return EXIT_INPUT
 
 
 def format_input_error(exc: InputError) -> str:
@@ -187,6 +203,7 @@ def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
         changed_files=tuple(args.files),
         cwd=os.getcwd(),
         use_cache=not args.no_cache,
+        time_budget_s=args.time_budget if args.time_budget > 0 else None,
         want_curves=args.output_format == "html",
     )
     manifest = _manifest_path(args.manifest)

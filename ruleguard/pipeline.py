@@ -8,13 +8,14 @@ composition of the pure stages.
 from __future__ import annotations
 
 import datetime as _dt
+import time
+import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from ruleguard import __version__
-from ruleguard.errors import LoopNotAnalysable
-from ruleguard.location import Location
+from ruleguard.errors import LoopNotAnalysable, NumericalWarning
 from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
 
 #: Progress callback: (loops done, loops in all, name of the loop now).
@@ -34,6 +35,11 @@ class CheckOptions:
     use_cache: bool = False
     #: Sample L over frequency for plots (``--format html``); never cached.
     want_curves: bool = False
+    #: Wall-clock budget for the whole check (seconds, ``None``: unlimited).
+    #: Loops whose variants are not reached in time are reported as not
+    #: analysed (and never cached), so hostile or oversized inputs cannot hang
+    #: a hook or a CI job.
+    time_budget_s: float | None = 600.0
 
 
 @dataclass(frozen=True, eq=False)
@@ -42,6 +48,8 @@ class AnalysedLoop:
 
     context: LoopContext
     result: object  # ruleguard.report.model.LoopResult
+    #: False when the result depends on the clock (time budget used up).
+    cacheable: bool = True
 
 
 @dataclass
@@ -95,6 +103,9 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     }
     ruleset_print = _ruleset_fingerprint(ruleset)
 
+    deadline = None
+    if options.time_budget_s is not None:
+        deadline = time.monotonic() + options.time_budget_s
     loop_results: dict[str, object] = {}
     cached_findings: dict[str, tuple[Finding, ...]] = {}
     contexts: list[LoopContext] = []
@@ -111,7 +122,9 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
                 loop_results[spec.name], cached_findings[spec.name] = hit
                 stats.cached_loops += 1
                 continue
-        analysed = analyse_loop(project, spec)
+        analysed = analyse_loop(project, spec, deadline=deadline, budget_s=options.time_budget_s)
+        if not analysed.cacheable:
+            keys.pop(spec.name, None)
         stats.analysed_loops += 1
         stats.evaluations += len(analysed.context.evaluations)
         loop_results[spec.name] = analysed.result
@@ -137,7 +150,8 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
             if f.loop in by_loop:
                 by_loop[f.loop].append(f)
         for name, found in by_loop.items():
-            cache.put(keys[name], loop_results[name], tuple(found))
+            if name in keys:  # loops cut short by the time budget are not stored
+                cache.put(keys[name], loop_results[name], tuple(found))
         stats.extra["cache_hits"] = cache.hits
         stats.extra["cache_misses"] = cache.misses
 
@@ -219,10 +233,16 @@ def _ruleset_fingerprint(ruleset) -> str:
     return repr(ruleset)
 
 
-def analyse_loop(project, spec) -> AnalysedLoop:
-    """Build and analyse every variant of one loop (pure: no I/O)."""
-    from ruleguard.analysis.margins import analyse_open_loop
-    from ruleguard.models.assemble import build_loop
+def analyse_loop(
+    project, spec, *, deadline: float | None = None, budget_s: float | None = None
+) -> AnalysedLoop:
+    """Build and analyse every variant of one loop (pure but for the clock).
+
+    ``deadline`` (a ``time.monotonic()`` value) stops the work between
+    variants. A numerical failure (overflow, a singular matrix) while
+    building or analysing a variant makes the loop "not analysed" with the
+    reason: the gate fails rather than passing an unverified loop.
+    """
     from ruleguard.models.families import loop_variants
     from ruleguard.report.model import LoopResult, VariantResult
 
@@ -230,36 +250,24 @@ def analyse_loop(project, spec) -> AnalysedLoop:
     variants = loop_variants(project, spec)
     evaluations: list[Evaluation] = []
     inner_evaluations: list[Evaluation] = []
-    reason: str | None = None
-    reason_rule: str | None = None
-    reason_location: Location | None = None
-    try:
-        for variant in variants:
-            model = build_loop(project, spec, variant)
-            inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse_open_loop)
-            if inner_analysis is not None:
-                inner_evaluations.append(Evaluation(variant, model.inner, inner_analysis))
-            if inner_reason is not None:
-                reason, reason_rule = inner_reason, "stability.closed-loop"
-                reason_location = spec.field_locations.get("inner", spec.location)
-                evaluations = []
-                break
-            if not model.open_loop.rational.is_proper:
-                raise LoopNotAnalysable(
-                    "the open loop has more zeros than poles (improper): its frequency "
-                    "response grows without bound and the Nyquist contour cannot be closed",
-                    "stability.closed-loop",
-                    spec.controller.location,
-                )
-            evaluations.append(Evaluation(variant, model, analyse_open_loop(model.open_loop)))
-    except LoopNotAnalysable as exc:
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        reason, reason_rule, reason_location, cacheable = _analyse_variants(
+            project, spec, variants, deadline, budget_s, evaluations, inner_evaluations
+        )
+    numerical_notes = [
+        f"numerical: {w.message}" for w in caught if issubclass(w.category, NumericalWarning)
+    ]
+    if reason is not None:
         evaluations = []
-        reason, reason_rule, reason_location = exc.reason, exc.rule, exc.location
 
     inner_context = None
     if evaluations:
         first = evaluations[0].model
         notes: list[str] = list(first.notes)
+        for text in numerical_notes:
+            if text not in notes:
+                notes.append(text)
         for ev in evaluations:
             for note in ev.analysis.notes:
                 text = note if ev.variant.id == "nominal" else f"{ev.variant.id}: {note}"
@@ -306,7 +314,78 @@ def analyse_loop(project, spec) -> AnalysedLoop:
         inner=inner_context,
         extras=extras,
     )
-    return AnalysedLoop(context, result)
+    return AnalysedLoop(context, result, cacheable)
+
+
+def _analyse_variants(project, spec, variants, deadline, budget_s, evaluations, inner_evaluations):
+    """Fill ``evaluations`` (and ``inner_evaluations``) variant by variant.
+
+    Returns ``(reason, rule, location, cacheable)``: the reason the loop is
+    not analysed (``None`` when every variant was), the rule and location of
+    that finding, and whether the outcome may be cached.
+    """
+    import numpy as np
+
+    from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.models.assemble import build_loop
+
+    try:
+        for variant in variants:
+            if deadline is not None and time.monotonic() > deadline:
+                return (
+                    f"the time budget of the whole check ({budget_s:g} s) was used up before "
+                    f"variant {variant.id} of this loop; raise it with --time-budget",
+                    "stability.closed-loop",
+                    spec.location,
+                    False,
+                )
+            try:
+                model, inner_reason, inner_analysis, analysis = _variant_analysis(
+                    project, spec, variant, build_loop, analyse_open_loop
+                )
+            except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+                raise _numerical_failure(spec, variant, exc) from exc
+            if inner_analysis is not None:
+                inner_evaluations.append(Evaluation(variant, model.inner, inner_analysis))
+            if inner_reason is not None:
+                location = spec.field_locations.get("inner", spec.location)
+                return inner_reason, "stability.closed-loop", location, True
+            evaluations.append(Evaluation(variant, model, analysis))
+    except LoopNotAnalysable as exc:
+        return exc.reason, exc.rule, exc.location, True
+    return None, None, None, True
+
+
+def _variant_analysis(project, spec, variant, build_loop, analyse):
+    """Build one variant, check its inner loops, analyse it.
+
+    Returns ``(model, inner_reason, inner_analysis, analysis)``; ``analysis``
+    is None when an inner loop is unstable (``inner_reason`` says why).
+    """
+    model = build_loop(project, spec, variant)
+    inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse)
+    if inner_reason is not None:
+        return model, inner_reason, inner_analysis, None
+    if not model.open_loop.rational.is_proper:
+        raise LoopNotAnalysable(
+            "the open loop has more zeros than poles (improper): its frequency "
+            "response grows without bound and the Nyquist contour cannot be closed",
+            "stability.closed-loop",
+            spec.controller.location,
+        )
+    return model, None, inner_analysis, analyse(model.open_loop)
+
+
+def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:
+    which = "" if variant.id == "nominal" else f" (variant {variant.id})"
+    return LoopNotAnalysable(
+        f"numerical failure while building or analysing the loop{which}: {exc}. The loop "
+        "could not be verified; check the magnitudes of its gains and coefficients (values "
+        "this large or small overflow double precision). If they are physically sensible, "
+        "please report this as a ruleguard bug.",
+        "stability.closed-loop",
+        spec.controller.location,
+    )
 
 
 # ---------------------------------------------------------------- curves for plots

@@ -87,3 +87,35 @@ def test_only_and_skip_select_rules(demo):
         demo / "ruleguard.toml", CheckOptions(today=AS_OF, skip=("margin", "sensitivity"))
     )
     assert not any(f.rule.startswith(("margin.", "sensitivity.")) for f in report.findings)
+
+
+def test_time_budget_reports_unreached_loops_as_not_analysed(demo):
+    report = check_project(
+        demo / "ruleguard.toml", CheckOptions(today=AS_OF, time_budget_s=0.0, use_cache=True)
+    )
+    assert not any(lp.analysed for lp in report.loops)
+    reasons = {f.loop: f for f in report.findings if f.rule == "stability.closed-loop"}
+    assert set(reasons) == {lp.name for lp in report.loops}
+    assert all("time budget" in f.message for f in reasons.values())
+    assert report.failed
+    # nothing cut short by the clock is cached: a normal run analyses every loop
+    stats = RunStatistics()
+    check_project(
+        demo / "ruleguard.toml", CheckOptions(today=AS_OF, use_cache=True), statistics=stats
+    )
+    assert stats.analysed_loops == 7
+
+
+def test_overflowing_gain_fails_the_gate_instead_of_crashing(demo):
+    # kp = 1e300 times the plant gain overflows double precision (max ~1.8e308).
+    tilt = demo / "firmware" / "tilt.toml"
+    tilt.write_text(tilt.read_text().replace("kp = 2.1", "kp = 1e300"))
+    report = check_project(demo / "ruleguard.toml", CheckOptions(today=AS_OF))
+    current = next(lp for lp in report.loops if lp.name == "tilt.current")
+    assert not current.analysed
+    found = [f for f in report.findings if f.loop == "tilt.current"]
+    # the manifest's bounds (kp in [0.5, 4.0]) flag the value too
+    assert sorted(f.rule for f in found) == ["config.bounds", "stability.closed-loop"]
+    failure = next(f for f in found if f.rule == "stability.closed-loop")
+    assert "numerical failure" in failure.message
+    assert failure.location.file == "firmware/tilt.toml"
