@@ -83,7 +83,11 @@ def _build_parser() -> _Parser:
     )
 
     rules = sub.add_parser("rules", help="list every rule with its severity in a ruleset")
-    rules.add_argument("--ruleset", default=None, help="built-in name or path (default: baseline)")
+    rules.add_argument(
+        "--ruleset",
+        default=None,
+        help="built-in name or path (default: the project's ruleset, else baseline)",
+    )
     rules.add_argument("--manifest", help="take the ruleset from this project")
 
     explain = sub.add_parser("explain", help="what a rule checks, why, and how to fix it")
@@ -206,7 +210,7 @@ def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
         time_budget_s=args.time_budget if args.time_budget > 0 else None,
         want_curves=args.output_format == "html",
     )
-    manifest = _manifest_path(args.manifest)
+    manifest = _manifest_path(args.manifest, tuple(args.files))
     progress = _progress_for(stderr, quiet=args.quiet or args.output_format != "text")
     report = check_project(manifest, options, progress=progress)
 
@@ -256,7 +260,7 @@ def _render(report, fmt: str, *, stream: TextIO | None, quiet: bool) -> str:
         return html.render(report)
     from ruleguard.report import text
 
-    return text.render(report, color=_wants_color(stream), quiet=quiet)
+    return text.render(report, color=_wants_color(stream), quiet=quiet, base_dir=os.getcwd())
 
 
 def _wants_color(stream: TextIO | None) -> bool:
@@ -276,12 +280,38 @@ def _progress_for(stderr: TextIO, *, quiet: bool):
     return TerminalProgress(stderr)
 
 
-def _manifest_path(given: str | None) -> Path:
+def _manifest_path(given: str | None, files: tuple[str, ...] = ()) -> Path:
+    """The manifest: given, else in the current folder or above, else above the files.
+
+    A pre-commit hook runs at the repository root and passes staged names;
+    when the project's manifest sits in a subfolder, it is found from the
+    files themselves (all of them must lead to the same manifest).
+    """
     from ruleguard.load.project import find_manifest
 
     if given:
         return Path(given)
-    return find_manifest(Path.cwd())
+    try:
+        return find_manifest(Path.cwd())
+    except InputError:
+        if not files:
+            raise
+    found: set[Path] = set()
+    for name in files:
+        try:
+            found.add(find_manifest(Path(name).resolve().parent))
+        except InputError:
+            continue
+    if len(found) == 1:
+        return found.pop()
+    if not found:
+        return find_manifest(Path.cwd())  # raises the usual "no manifest" error
+    raise InputError(
+        "<command line>", None, None, "--manifest",
+        "the given files belong to several manifests ("
+        + ", ".join(sorted(str(p) for p in found))
+        + "); run once per project with --manifest PATH",
+    )
 
 
 def _cmd_rules(args: argparse.Namespace, stdout: TextIO) -> int:
@@ -293,16 +323,25 @@ def _cmd_rules(args: argparse.Namespace, stdout: TextIO) -> int:
 
 
 def _ruleset_for_listing(args: argparse.Namespace):
+    """--ruleset, else the ruleset of --manifest or of the project found here, else baseline."""
+    from ruleguard.load.project import find_manifest, load_project
     from ruleguard.load.rulesets import load_ruleset
     from ruleguard.location import Location
 
-    if args.manifest:
-        from ruleguard.load.project import load_project
-
-        project = load_project(Path(args.manifest))
+    if args.ruleset:
+        where = Location("<command line>", None, None, "--ruleset")
+        return load_ruleset(os.getcwd(), args.ruleset, where)
+    manifest = Path(args.manifest) if args.manifest else None
+    if manifest is None:
+        try:
+            manifest = find_manifest(Path.cwd())
+        except InputError:
+            manifest = None
+    if manifest is not None:
+        project = load_project(manifest)
         return load_ruleset(project.root, project.ruleset, project.ruleset_location)
-    ref = args.ruleset or "baseline"
-    return load_ruleset(os.getcwd(), ref, Location("<command line>", None, None, "--ruleset"))
+    where = Location("<command line>", None, None, "--ruleset")
+    return load_ruleset(os.getcwd(), "baseline", where)
 
 
 def _cmd_explain(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:

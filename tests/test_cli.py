@@ -52,3 +52,45 @@ def test_python_dash_m_entry_point():
     )
     assert result.returncode == 0
     assert result.stdout.strip() == f"ruleguard {__version__}"
+
+
+DEMO = __import__("pathlib").Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+
+
+def _repo_with_demo_in_subfolder(tmp_path):
+    import shutil
+
+    shutil.copytree(DEMO, tmp_path / "controls", ignore=shutil.ignore_patterns(".ruleguard-cache"))
+    return tmp_path
+
+
+def test_changed_files_find_a_manifest_in_a_subfolder(tmp_path, monkeypatch):
+    # A pre-commit hook runs at the repository root and passes staged names.
+    repo = _repo_with_demo_in_subfolder(tmp_path)
+    monkeypatch.chdir(repo)
+    code, out, err = _run(
+        "check", "controls/plc/heater_params.json", "--no-cache", "--as-of", "2026-12-01", "-q"
+    )
+    assert code == 1, err
+    # GNU lines are relative to where the command runs, so editors open them
+    first = out.splitlines()[0]
+    assert first.startswith("controls/plc/heater_params.json:7:7: error: margin.gain")
+
+
+def test_files_of_no_project_leave_the_usual_error(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "notes.toml").write_text("x = 1\n")
+    code, _, err = _run("check", "notes.toml")
+    assert code == 2
+    assert "ruleguard.toml" in err
+
+
+def test_rules_lists_the_project_ruleset(tmp_path, monkeypatch):
+    repo = _repo_with_demo_in_subfolder(tmp_path)
+    monkeypatch.chdir(repo / "controls")
+    code, out, _ = _run("rules")
+    assert code == 0
+    assert "mast-house" in out
+    monkeypatch.chdir(tmp_path.parent)
+    code, out, _ = _run("rules", "--ruleset", "flight")
+    assert code == 0 and "flight" in out

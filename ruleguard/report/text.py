@@ -69,10 +69,19 @@ def render(
     color: bool = False,
     quiet: bool = False,
     width: int | None = None,
+    base_dir: str | None = None,
     **_options,
 ) -> str:
-    """The text report as one string (ANSI styles only with ``color``)."""
+    """The text report as one string (ANSI styles only with ``color``).
+
+    ``base_dir``: the folder the reader works in (the command's current
+    folder). File names in the ``file:line:column`` lines are then given
+    relative to it, so a terminal or editor opens them from there; without
+    it they are relative to the manifest's folder, as in every machine format.
+    """
     from rich.console import Console
+
+    prefix = _path_prefix(report.root, base_dir)
 
     buffer = io.StringIO()
     console = Console(
@@ -96,13 +105,13 @@ def render(
     if active and not quiet:
         console.print(_styled(f"findings ({len(active)})", "bold"))
     for finding in active:
-        _finding_block(console, report, finding)
+        _finding_block(console, report, finding, prefix)
     if quiet:
         return buffer.getvalue()
     if waived:
         console.print(_styled(f"waived ({len(waived)})", "bold"))
         for finding in waived:
-            _finding_block(console, report, finding)
+            _finding_block(console, report, finding, prefix)
     _result_line(console, report)
     console.print(_styled(CAUTION, "dim"), soft_wrap=True)
     return buffer.getvalue()
@@ -257,8 +266,25 @@ def _figure_row(row: FigureRow, several: bool):
     return cells
 
 
-def _place(location: Location, report: Report) -> str:
+def _path_prefix(root: str, base_dir: str | None) -> str:
+    """``root`` relative to ``base_dir`` with a trailing ``/`` ("" when the same or unrelated)."""
+    if not base_dir or not root:
+        return ""
+    import os
+
+    try:
+        rel = os.path.relpath(os.path.realpath(root), os.path.realpath(base_dir))
+    except ValueError:  # another drive
+        return ""
+    if rel == "." or rel.startswith(".."):
+        return ""
+    return rel.replace(os.sep, "/") + "/"
+
+
+def _place(location: Location, report: Report, prefix: str = "") -> str:
     file = location.file or report.manifest_file or "<project>"
+    if prefix and not file.startswith("<"):
+        file = prefix + file
     if location.line is None:
         return file
     if location.column is None:
@@ -301,12 +327,12 @@ def _excerpt(report: Report, location: Location) -> list[tuple[str, str]]:
     return rows
 
 
-def _finding_block(console, report: Report, finding: Finding) -> None:
+def _finding_block(console, report: Report, finding: Finding, prefix: str = "") -> None:
     from rich.text import Text
 
     severity = Severity(finding.severity).value
     first = Text()
-    first.append(_place(finding.location, report), "bold")
+    first.append(_place(finding.location, report, prefix), "bold")
     first.append(": ")
     if finding.waived:
         first.append(f"waived {severity}", "dim")
@@ -332,7 +358,7 @@ def _finding_block(console, report: Report, finding: Finding) -> None:
     for related in finding.related:
         key = f" ({related.key})" if related.key else ""
         console.print(
-            _styled(f"{pad}  see {_place(related, report)}{key}", "dim"), soft_wrap=True
+            _styled(f"{pad}  see {_place(related, report, prefix)}{key}", "dim"), soft_wrap=True
         )
     console.print()
 
