@@ -55,6 +55,17 @@ def judged_variants(
     return stable, None
 
 
+def not_computed_note(
+    ctx: LoopContext, what: str, missing: list[Evaluation], stable: list[Evaluation]
+) -> Violation:
+    """A note that ``what`` was not computed for the ``missing`` stable variants."""
+    return loop_note(
+        ctx,
+        f"{what} not computed for {len(missing)} of {len(stable)} stable variants",
+        variant=variant_id(missing[0]),
+    )
+
+
 # --------------------------------------------------------------------------- gain
 
 
@@ -309,11 +320,7 @@ def disk_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
             (binding,),
         )
     elif missing:
-        yield loop_note(
-            ctx,
-            f"disk margin not computed for {len(missing)} of {len(stable)} stable variants",
-            variant=variant_id(missing[0]),
-        )
+        yield not_computed_note(ctx, "disk margin", missing, stable)
 
 
 _GAIN_SOURCE = (

@@ -24,13 +24,11 @@ from typing import Any
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     format_number,
-    loop_note,
     loop_violation,
-    variant_id,
     variants_phrase,
 )
 from ruleguard.rules.limits import beyond_limit
-from ruleguard.rules.margins import judged_variants
+from ruleguard.rules.margins import judged_variants, not_computed_note
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
@@ -88,11 +86,7 @@ def _peak_rule(
             ("max_db",),
         )
     elif missing:
-        yield loop_note(
-            ctx,
-            f"{what} not computed for {len(missing)} of {len(stable)} stable variants",
-            variant=variant_id(missing[0]),
-        )
+        yield not_computed_note(ctx, what, missing, stable)
 
 
 def _ms_meaning(peak_db: float) -> str:
