@@ -58,6 +58,7 @@ code, pre { font-family: ui-monospace, monospace; font-size: .88em; }
 .caution { margin: 1rem 0; padding: .8rem 1rem; border-left: 8px solid var(--warn);
            background: #fff7e6; font-weight: 600; }
 table { border-collapse: collapse; width: 100%; margin: .4rem 0 1rem; font-size: .88rem; }
+@media screen { table { display: block; overflow-x: auto; } }
 th, td { border-bottom: 1px solid var(--rule); padding: .3rem .45rem; text-align: left;
          vertical-align: top; }
 th { background: var(--band); font-weight: 650; }
@@ -172,6 +173,11 @@ def _loop_ids(report: Report) -> dict[str, str]:
     return {loop.name: f"loop-{i + 1}" for i, loop in enumerate(report.loops)}
 
 
+def _count_word(word: str, n: int) -> str:
+    """``errors`` -> ``error`` for one; ``waived`` stays as it is."""
+    return word[:-1] if n == 1 and word.endswith("s") else word
+
+
 def _counts(report: Report) -> list[tuple[str, int]]:
     return [
         ("errors", report.count(Severity.ERROR)),
@@ -203,7 +209,7 @@ def _masthead(report: Report) -> list[str]:
     out += [f"<dt>{_e(k)}</dt><dd>{_e(v)}</dd>" for k, v in facts]
     out += ["</dl>", "</div>", f'<div class="result {css}" id="result">',
             f'<div class="word">{word}</div>', '<ul class="counts">']
-    out += [f'<li data-count="{_e(k)}"><strong>{n}</strong> {_e(k if n != 1 else k[:-1])}</li>'
+    out += [f'<li data-count="{_e(k)}"><strong>{n}</strong> {_e(_count_word(k, n))}</li>'
             for k, n in _counts(report)]
     out += ["</ul>", "</div>", "</header>"]
     return out
