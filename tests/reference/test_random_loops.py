@@ -27,7 +27,7 @@ from ruleguard.analysis.margins import analyse_open_loop
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.models.lti import ZPK, zpk_to_state_space
 
-N_CONTINUOUS = 1000
+N_CONTINUOUS = 1040  # enough draws that at least 1,000 are compared after skips
 N_DISCRETE = 1000
 BOUNDARY_SKIP = 1e-7
 
@@ -189,6 +189,7 @@ def test_random_continuous_verdicts_against_eigenvalues():
     # near-boundary closed loops (mostly undamped open-loop pairs where |L| is
     # small, so the closed-loop pair moves off the axis by less than 1e-7)
     assert skipped <= N_CONTINUOUS // 30, skipped
+    assert N_CONTINUOUS - skipped >= 1000
     print(f"continuous: {N_CONTINUOUS - skipped} compared, {skipped} skipped, "
           f"{conflicts} eigenvalue/mpmath conflicts, {unstable} unstable, 0 disagreements")
     assert 0.2 * N_CONTINUOUS < unstable < 0.9 * N_CONTINUOUS  # a real mix
