@@ -78,52 +78,50 @@ def _margins(num, den, h):
     return pm, wc / (2 * np.pi), gm_db, w180 / (2 * np.pi)
 
 
+def _pi_loop(plant_num, plant_den, kp, ki, h, delay_samples):
+    """num/den of L(z) = C(z) ZOH[G](z) z^-d with C a Tustin PI (polynomials in z)."""
+    numd, dend, _ = scipy.signal.cont2discrete((plant_num, plant_den), h, method="zoh")
+    cn, cd = _tustin_pi(kp, ki, h)
+    num = np.polymul(cn, np.trim_zeros(numd.ravel(), "f"))
+    den = np.polymul(np.polymul(cd, dend), np.r_[1.0, np.zeros(delay_samples)])
+    return num, den
+
+
+def _assert_margins(report, name, num, den, h):
+    pm, fc, gm, f180 = _margins(num, den, h)
+    got = _nominal(report, name)["margins"]
+    assert got["phase_margin_deg"] == pytest.approx(pm, abs=1e-4)
+    assert got["crossover_hz"] == pytest.approx(fc, rel=1e-6)
+    assert got["gain_margin_db"] == pytest.approx(gm, abs=1e-5)
+    assert got["gain_margin_hz"] == pytest.approx(f180, rel=1e-6)
+
+
 def test_tilt_current_loop(demo_report):
     # Plant 1/(L s + R), sensor 1/(s/(2 pi 8000) + 1), ZOH at 20 kHz, one sample of
     # computation delay, PI by Tustin (values from fixtures/gimbal_demo).
     h = 1 / 20000.0
-    L_h, R = 4.2e-4, 1.3
     wa = 2 * np.pi * 8000.0
-    plant_num = [1.0]
-    plant_den = np.polymul([L_h, R], [1 / wa, 1.0])
-    numd, dend, _ = scipy.signal.cont2discrete((plant_num, plant_den), h, method="zoh")
-    cn, cd = _tustin_pi(2.1, 6200.0, h)
-    num = np.polymul(cn, np.trim_zeros(numd.ravel(), "f"))
-    den = np.polymul(np.polymul(cd, dend), [1.0, 0.0])  # z^-1 delay
-    pm, fc, gm, f180 = _margins(num, den, h)
-    got = _nominal(demo_report, "tilt.current")["margins"]
-    assert got["phase_margin_deg"] == pytest.approx(pm, abs=1e-4)
-    assert got["crossover_hz"] == pytest.approx(fc, rel=1e-6)
-    assert got["gain_margin_db"] == pytest.approx(gm, abs=1e-5)
-    assert got["gain_margin_hz"] == pytest.approx(f180, rel=1e-6)
+    plant_den = np.polymul([4.2e-4, 1.3], [1 / wa, 1.0])
+    num, den = _pi_loop([1.0], plant_den, 2.1, 6200.0, h, 1)
+    _assert_margins(demo_report, "tilt.current", num, den, h)
+
+
+# Heater: plant 0.24 exp(-12 s)/(95 s + 1) sampled at 2 Hz with one sample of
+# computation delay: total 12.5 s = 25 whole samples, so the ZOH equivalent is
+# z^-25 times the ZOH of 0.24/(95 s + 1). PI gains mapped from the PLC file:
+# kp = P = 16.5, ki = I_per_scan * 2 = 0.174 per second.
+HEATER = dict(plant_num=[0.24], plant_den=[95.0, 1.0], kp=16.5, ki=0.174, h=0.5, delay_samples=25)
 
 
 def test_housing_heater_loop(demo_report):
-    # Plant 0.24 exp(-12 s)/(95 s + 1); sampled at 2 Hz with one sample of
-    # computation delay: total 12.5 s = 25 whole samples, so the ZOH equivalent
-    # is z^-25 times the ZOH of 0.24/(95 s + 1). PI gains mapped from the PLC
-    # file: kp = P = 16.5, ki = I_per_scan * 2 = 0.174 per second.
-    h = 0.5
-    numd, dend, _ = scipy.signal.cont2discrete(([0.24], [95.0, 1.0]), h, method="zoh")
-    cn, cd = _tustin_pi(16.5, 0.174, h)
-    num = np.polymul(cn, np.trim_zeros(numd.ravel(), "f"))
-    den = np.polymul(np.polymul(cd, dend), np.r_[1.0, np.zeros(25)])
-    pm, fc, gm, f180 = _margins(num, den, h)
-    got = _nominal(demo_report, "housing.heater")["margins"]
-    assert got["phase_margin_deg"] == pytest.approx(pm, abs=1e-4)
-    assert got["crossover_hz"] == pytest.approx(fc, rel=1e-6)
-    assert got["gain_margin_db"] == pytest.approx(gm, abs=1e-5)
-    assert got["gain_margin_hz"] == pytest.approx(f180, rel=1e-6)
+    num, den = _pi_loop(**HEATER)
+    _assert_margins(demo_report, "housing.heater", num, den, HEATER["h"])
 
 
 def test_demo_verdicts_match_closed_loop_roots(demo_report):
     # Independent verdict for the heater: roots of den + num (characteristic
     # polynomial of the unity-feedback loop), all inside the unit circle.
-    h = 0.5
-    numd, dend, _ = scipy.signal.cont2discrete(([0.24], [95.0, 1.0]), h, method="zoh")
-    cn, cd = _tustin_pi(16.5, 0.174, h)
-    num = np.polymul(cn, np.trim_zeros(numd.ravel(), "f"))
-    den = np.polymul(np.polymul(cd, dend), np.r_[1.0, np.zeros(25)])
+    num, den = _pi_loop(**HEATER)
     roots = np.roots(np.polyadd(den, num))
     stable = bool(np.all(np.abs(roots) < 1.0))
     assert _nominal(demo_report, "housing.heater")["stability"]["stable"] is stable
