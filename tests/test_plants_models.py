@@ -222,3 +222,37 @@ class TestMeasured:
     def test_unknown_kind(self):
         with pytest.raises(InputError):
             plant_model(plant("p", "black_box"))
+
+
+class TestMeasuredResolution:
+    """The report says when measured data are coarser than a mode's width (METHODS.md)."""
+
+    @staticmethod
+    def _sweep(zeta, points_per_decade=100):
+        # |G| of wn^2/(s^2 + 2 zeta wn s + wn^2) at wn = 2 pi 100 (closed form); its
+        # half-power band is about 2 zeta wn wide (common practice).
+        import numpy as np
+
+        f = np.logspace(0, 3, 3 * points_per_decade + 1)
+        s = 2j * np.pi * f
+        wn = 2 * np.pi * 100.0
+        g = wn**2 / (s**2 + 2 * zeta * wn * s + wn**2)
+        return 2 * np.pi * f, 20 * np.log10(np.abs(g))
+
+    def test_a_well_sampled_mode_gives_no_note(self):
+        from ruleguard.models.plants import coarse_resonances
+
+        # zeta = 0.05: band about 10 Hz wide at 100 Hz; spacing 2.3 Hz at 100/decade
+        assert coarse_resonances(*self._sweep(0.05)) == []
+
+    def test_a_lightly_damped_mode_between_samples_is_reported(self):
+        import pytest
+
+        from ruleguard.models.plants import coarse_resonances
+
+        # zeta = 0.002: band about 0.4 Hz wide, far below the 2.3 Hz spacing
+        found = coarse_resonances(*self._sweep(0.002))
+        assert len(found) == 1
+        peak_hz, width_hz, spacing_hz, points = found[0]
+        assert peak_hz == pytest.approx(100.0, rel=0.03)
+        assert points < 3 and spacing_hz > width_hz

@@ -206,6 +206,8 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
             "filters": [b.method for b in block_models[1:]],
             "plant": plant_method,
         }
+    for factor in loop.factors:  # caveats of measured data (e.g. coarse resonances)
+        notes.extend(getattr(factor, "notes", ()))
     model = LoopModel(
         name=spec.name,
         sample_rate_hz=None if rate is None else float(rate),

@@ -320,6 +320,64 @@ def _leading(coefficients) -> float:
     return float(c[np.flatnonzero(c != 0.0)[0]])
 
 
+#: A resonant peak must stand this far (dB) above the data on both sides.
+RESONANCE_PROMINENCE_DB = 3.0
+#: Fewer samples than this inside a peak's half-power band: too coarse.
+MIN_POINTS_PER_MODE = 3
+
+
+def coarse_resonances(w, magnitude_db) -> list[tuple[float, float, float, int]]:
+    """Resonant peaks of tabulated data sampled too coarsely to be trusted.
+
+    A peak is a local maximum of the magnitude standing at least
+    ``RESONANCE_PROMINENCE_DB`` above the data on both sides. Its half-power
+    band is where the magnitude stays within 3 dB of the peak (interpolated
+    linearly between samples; a second-order mode's band is about
+    ``2 zeta w_n`` wide, so ``zeta ~ width / (2 f_peak)``: Ogata, Modern
+    Control Engineering, 5th ed., 2010, section 7-2, from memory). With fewer
+    than ``MIN_POINTS_PER_MODE`` samples in that band the peak height and the
+    phase swing through it are not resolved (the linear interpolation of
+    FORMATS.md section 2 cuts the peak short).
+
+    Returns
+    -------
+    list of (peak_hz, width_hz, spacing_hz, points_in_band)
+    """
+    w = np.asarray(w, dtype=float)
+    m = np.asarray(magnitude_db, dtype=float)
+    found = []
+    for i in range(1, m.size - 1):
+        if not (m[i] > m[i - 1] and m[i] >= m[i + 1]):
+            continue
+        top = m[i] - 3.0
+        left = i
+        while left > 0 and m[left - 1] > top:
+            left -= 1
+        right = i
+        while right < m.size - 1 and m[right + 1] > top:
+            right += 1
+        if left == 0 or right == m.size - 1:
+            continue  # the band runs off the data: not a resolved peak
+        lo_side = np.min(m[: left + 1])
+        hi_side = np.min(m[right:])
+        if m[i] - max(lo_side, hi_side) < RESONANCE_PROMINENCE_DB:
+            continue
+        width = _level_crossing(w, m, top, right + 1, right) - _level_crossing(
+            w, m, top, left - 1, left
+        )
+        points = right - left + 1
+        if points < MIN_POINTS_PER_MODE:
+            spacing = float(w[i + 1] - w[i - 1]) / 2.0
+            found.append((w[i] / TWO_PI, width / TWO_PI, spacing / TWO_PI, points))
+    return found
+
+
+def _level_crossing(w: np.ndarray, m: np.ndarray, level: float, a: int, b: int) -> float:
+    """Where the straight line from sample ``a`` to sample ``b`` reaches ``level``."""
+    t = (level - m[a]) / (m[b] - m[a])
+    return float(w[a] + t * (w[b] - w[a]))
+
+
 def _measured(entry: PlantEntry, reader: FieldReader) -> MeasuredResponse:
     data = entry.measured
     if data is None:
@@ -330,11 +388,19 @@ def _measured(entry: PlantEntry, reader: FieldReader) -> MeasuredResponse:
         if isinstance(v, bool) or not isinstance(v, (int, float)) or v < 0 or int(v) != v:
             raise InputError.at(reader.where(key), f"{key} must be a whole number >= 0")
     w = TWO_PI * np.asarray(data.freq_hz, dtype=float)
+    magnitude_db = np.asarray(data.magnitude_db, dtype=float)
+    notes = tuple(
+        f"measured data {data.file}: the resonance near {peak_hz:.4g} Hz (half-power width "
+        f"about {width_hz:.3g} Hz) is described by {points} point{'s' if points != 1 else ''}; "
+        f"the data spacing there ({spacing_hz:.3g} Hz) is coarser than the mode's width, so "
+        "its peak and phase may be misread: sweep more densely around it"
+        for peak_hz, width_hz, spacing_hz, points in coarse_resonances(w, magnitude_db)
+    )
     try:
-        return MeasuredResponse(w, np.asarray(data.magnitude_db, dtype=float),
+        return MeasuredResponse(w, magnitude_db,
                                 np.asarray(data.phase_deg, dtype=float),
                                 unstable_poles=int(unstable), integrators=int(integrators),
-                                source=data.file)
+                                source=data.file, notes=notes)
     except ValueError as exc:
         raise InputError.at(reader.where("file"), f"measured response: {exc}") from None
 
