@@ -393,7 +393,7 @@ def _waiver(doc: Document, index: int, item: dict) -> Waiver:
         )
     if rule_id.startswith("waiver"):
         raise doc.error((*path, "rule"), "a waiver cannot waive the waiver findings themselves")
-    expires = item["expires"]
+    expires = item.get("expires")  # optional (FORMATS.md section 4 requires only the reason)
     if isinstance(expires, str):
         try:
             expires = datetime.date.fromisoformat(expires)

@@ -93,8 +93,8 @@ def waiver_applies(waiver: Waiver, rule_id: str, loop_name: str | None) -> bool:
 
 
 def waiver_active(waiver: Waiver, today: datetime.date) -> bool:
-    """A waiver applies through its expiry day (included)."""
-    return today <= waiver.expires
+    """A waiver applies through its expiry day (included); one without expiry always."""
+    return waiver.expires is None or today <= waiver.expires
 
 
 def _apply(

@@ -156,12 +156,13 @@ class Waiver:
 
     It applies through ``expires`` (that day included, UTC); after that it
     stops applying and the engine reports it (rule ``waiver.expired``).
+    Without ``expires`` (None) it does not expire.
     """
 
     rule: str
     loops: tuple[str, ...]
     reason: str
-    expires: datetime.date
+    expires: datetime.date | None
     location: Location
     index: int = 0
 

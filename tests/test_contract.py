@@ -1,0 +1,1420 @@
+"""Black-box acceptance tests of the public contract (FORMATS.md).
+
+Only the command line is driven (``ruleguard.cli.run`` with string streams,
+plus a few real subprocess calls of the installed ``ruleguard``), and only
+its outputs are read: the JSON report, the exit status and stderr. Every
+numerical expectation is derived in closed form in a comment, or computed
+independently here with numpy / scipy; the source is named beside each check.
+Section numbers refer to FORMATS.md.
+"""
+
+from __future__ import annotations
+
+import cmath
+import itertools
+import json
+import math
+import re
+import shutil
+import subprocess
+import sys
+from io import StringIO
+from pathlib import Path
+
+import numpy as np
+import pytest
+import tomllib
+
+from ruleguard.cli import run
+
+DATA = Path(__file__).parent / "data" / "contract"
+
+# ------------------------------------------------------------------ helpers
+
+# Plants used throughout (poles and zeros in rad/s, section "Units").
+PLANTS = """\
+[plants.third]          # 1/(s (s+1) (s+2))
+kind = "zero_pole_gain"
+gain = 1.0
+zeros = []
+poles = [0.0, -1.0, -2.0]
+
+[plants.unit]           # a static gain of 1
+kind = "transfer_function"
+numerator = [1.0]
+denominator = [1.0]
+
+[plants.unstable1]      # 1/(s - 1)
+kind = "transfer_function"
+numerator = [1.0]
+denominator = [1.0, -1.0]
+
+[plants.int_dead]       # exp(-0.5 s)/s
+kind = "integrator_dead_time"
+gain = 1.0
+delay_s = 0.5
+"""
+
+
+def manifest(loops: str, *, ruleset: str = "baseline", variants: str = '"corners"',
+             plants: str = '["plants.toml"]') -> str:
+    return (
+        "[project]\n"
+        'name = "contract"\n'
+        f'ruleset = "{ruleset}"\n'
+        f"plants = {plants}\n"
+        f"variants = {variants}\n\n" + loops
+    )
+
+
+def loop(name: str, plant: str, table: str, *, extra: str = "", file: str = "ctl.toml") -> str:
+    return (
+        "[[loops]]\n"
+        f'name = "{name}"\n'
+        f'plant = "{plant}"\n'
+        f'controller = {{ file = "{file}", path = "{table}" }}\n' + extra + "\n"
+    )
+
+
+def p_table(name: str, kp: float) -> str:
+    return f'[{name}]\nkind = "pid"\nkp = {kp!r}\nki = 0.0\n\n'
+
+
+def write(folder: Path, files: dict[str, str]) -> Path:
+    for rel, text in files.items():
+        path = folder / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(text, encoding="utf-8")
+    return folder
+
+
+def cli(args: list[str]) -> tuple[int, str, str]:
+    out, err = StringIO(), StringIO()
+    code = run(args, stdout=out, stderr=err)
+    return code, out.getvalue(), err.getvalue()
+
+
+def check(folder: Path, *extra: str, name: str = "ruleguard.toml") -> tuple[int, dict, str]:
+    """Run ``check --format json`` on a project; validate the contract of the report."""
+    code, out, err = cli(["check", "--manifest", str(folder / name), "--format", "json",
+                          "--no-cache", *extra])
+    assert code in (0, 1), (code, err)
+    assert "Traceback" not in err
+    report = json.loads(out)
+    assert_contract(report, code)
+    return code, report, err
+
+
+def bad(folder: Path, name: str = "ruleguard.toml") -> str:
+    """Run a check that must fail on input (section 6: exit 2, no traceback)."""
+    code, out, err = cli(["check", "--manifest", str(folder / name), "--format", "json",
+                          "--no-cache"])
+    assert code == 2, (code, out, err)
+    assert "Traceback" not in err
+    return err
+
+
+def only_variant(report: dict, loop_name: str | None = None) -> dict:
+    loops = report["loops"] if loop_name is None else [
+        lp for lp in report["loops"] if lp["name"] == loop_name]
+    assert len(loops) == 1
+    return loops[0]["variants"][0]
+
+
+def db(x: float) -> float:
+    return 20.0 * math.log10(x)
+
+
+def hz(w: float) -> float:
+    return w / (2.0 * math.pi)
+
+
+NUM = (int, float)
+MARGIN_NUMBERS = (
+    "gain_margin_db", "gain_margin_hz", "lower_gain_margin_db", "lower_gain_margin_hz",
+    "phase_margin_deg", "crossover_hz", "delay_margin_s", "delay_margin_samples",
+    "sensitivity_peak_db", "sensitivity_peak_hz", "complementary_peak_db",
+    "complementary_peak_hz", "bandwidth_hz",
+)
+
+
+def _num_or_null(value: object) -> bool:
+    return value is None or (isinstance(value, NUM) and not isinstance(value, bool))
+
+
+def assert_contract(report: dict, code: int) -> None:
+    """Every key of section 5 with its type, and the relations stated there."""
+    assert report["tool"]["name"] == "ruleguard"
+    assert isinstance(report["tool"]["version"], str)
+    summary = report["summary"]
+    for key in ("loops", "evaluations", "errors", "warnings", "notes", "waived"):
+        assert isinstance(summary[key], int) and not isinstance(summary[key], bool), key
+    assert isinstance(summary["result"], str)
+    assert (summary["result"] == "fail") == (code == 1)
+    assert summary["loops"] == len(report["loops"])
+    # summary.evaluations counts (loop, variant) analyses
+    assert summary["evaluations"] == sum(len(lp["variants"]) for lp in report["loops"])
+    findings = report["findings"]
+    for severity, key in (("error", "errors"), ("warning", "warnings"), ("note", "notes")):
+        assert summary[key] == sum(1 for f in findings
+                                   if f["severity"] == severity and not f["waived"]), key
+    assert summary["waived"] == sum(1 for f in findings if f["waived"])
+    for lp in report["loops"]:
+        assert isinstance(lp["name"], str)
+        assert lp["domain"] in ("continuous", "discrete")
+        if lp["domain"] == "continuous":
+            assert lp["sample_rate_hz"] is None
+        else:
+            assert isinstance(lp["sample_rate_hz"], NUM)
+        assert isinstance(lp["analysed"], bool)
+        analysis = lp["analysis"]
+        for key in ("discretization", "total_delay_s", "notes"):
+            assert key in analysis, key
+        assert isinstance(analysis["notes"], list)
+        if not lp["analysed"]:
+            # a loop that cannot be analysed: empty variants and a finding saying why
+            assert lp["variants"] == []
+            assert any(f["loop"] == lp["name"] for f in findings)
+            continue
+        assert lp["variants"][0]["id"] == "nominal"
+        assert len({v["id"] for v in lp["variants"]}) == len(lp["variants"])
+        for variant in lp["variants"]:
+            assert_variant(variant, lp)
+    for f in findings:
+        for key in ("rule", "severity", "loop", "variant", "message", "measured", "limit",
+                    "unit", "frequency_hz", "location", "waived"):
+            assert key in f, key
+        assert f["severity"] in ("error", "warning", "note")
+        assert isinstance(f["rule"], str) and isinstance(f["message"], str) and f["message"]
+        assert isinstance(f["waived"], bool)
+        assert _num_or_null(f["measured"]) and _num_or_null(f["limit"])
+        assert _num_or_null(f["frequency_hz"])
+        loc = f["location"]
+        for key in ("file", "line", "column", "key"):
+            assert key in loc, key
+        if loc["file"] is not None and not loc["file"].startswith("<"):
+            # relative to the manifest's folder, with '/'
+            assert "\\" not in loc["file"] and not Path(loc["file"]).is_absolute()
+            assert not loc["file"].startswith("..")
+
+
+def assert_variant(variant: dict, lp: dict) -> None:
+    assert isinstance(variant["id"], str)
+    assert isinstance(variant["parameters"], dict)
+    assert all(isinstance(v, NUM) for v in variant["parameters"].values())
+    st = variant["stability"]
+    for key in ("stable", "open_loop_unstable_poles", "ccw_encirclements",
+                "closed_loop_unstable_poles"):
+        assert key in st, key
+    assert isinstance(st["stable"], bool)
+    p, ccw, z = st["open_loop_unstable_poles"], st["ccw_encirclements"], \
+        st["closed_loop_unstable_poles"]
+    assert isinstance(p, int)
+    if z is not None:
+        # Z = N + P with N the clockwise count: closed = P - ccw
+        assert z == p - ccw
+    # stable exactly when closed_loop_unstable_poles is 0
+    assert st["stable"] == (z == 0)
+    m = variant["margins"]
+    for key in MARGIN_NUMBERS:
+        assert key in m and _num_or_null(m[key]), key
+    for key in ("stable_gain_ranges_db", "crossovers", "disk_margin"):
+        assert key in m, key
+    ranges = m["stable_gain_ranges_db"]
+    assert isinstance(ranges, list)
+    flat: list[float] = []
+    for i, (lo, hi) in enumerate(ranges):
+        assert lo is None or i == 0  # only the first interval is unbounded below
+        assert hi is None or i == len(ranges) - 1 or True
+        if lo is not None:
+            flat.append(lo)
+        if hi is not None:
+            flat.append(hi)
+        if hi is None:
+            assert i == len(ranges) - 1
+    assert flat == sorted(flat) and len(set(flat)) == len(flat)  # increasing order
+    for c in m["crossovers"]:
+        assert isinstance(c["hz"], NUM) and isinstance(c["phase_margin_deg"], NUM)
+    if m["crossovers"]:
+        pm = min(m["crossovers"], key=lambda c: c["phase_margin_deg"])
+        assert m["phase_margin_deg"] is not None and m["crossover_hz"] is not None
+        assert any(math.isclose(c["phase_margin_deg"], m["phase_margin_deg"], rel_tol=1e-9)
+                   and math.isclose(c["hz"], m["crossover_hz"], rel_tol=1e-9)
+                   for c in m["crossovers"])
+        del pm
+    else:
+        # null when |L| never crosses 1
+        assert m["phase_margin_deg"] is None and m["crossover_hz"] is None
+    if not st["stable"]:
+        # unstable: these are "not applicable"
+        for key in ("gain_margin_db", "lower_gain_margin_db", "delay_margin_s",
+                    "delay_margin_samples", "disk_margin"):
+            assert m[key] is None, key
+        return
+    # stable: the interval containing 0 dB gives the gain margins
+    around = [(lo, hi) for lo, hi in ranges
+              if (lo is None or lo < 0.0) and (hi is None or hi > 0.0)]
+    assert len(around) == 1, ranges
+    lo, hi = around[0]
+    assert _same(m["gain_margin_db"], hi) and _same(m["lower_gain_margin_db"], lo)
+    if m["lower_gain_margin_db"] is not None:
+        assert m["lower_gain_margin_db"] < 0.0
+    # delay margin: min over crossovers of ((PM mod 360) in rad)/w_c
+    if m["crossovers"]:
+        expected = min(math.radians(c["phase_margin_deg"] % 360.0) / (2 * math.pi * c["hz"])
+                       for c in m["crossovers"])
+        assert m["delay_margin_s"] == pytest.approx(expected, rel=1e-6)
+    else:
+        assert m["delay_margin_s"] is None  # no crossover: unbounded
+    if lp["domain"] == "continuous":
+        assert m["delay_margin_samples"] is None
+    elif m["delay_margin_s"] is not None:
+        assert m["delay_margin_samples"] == pytest.approx(
+            m["delay_margin_s"] * lp["sample_rate_hz"], rel=1e-9)
+    disk = m["disk_margin"]
+    if disk is not None:
+        for key in ("alpha", "gain_range_db", "phase_deg", "hz"):
+            assert key in disk, key
+        alpha = disk["alpha"]
+        lo_db, hi_db = disk["gain_range_db"]
+        if alpha >= 2.0:
+            assert lo_db is None and hi_db is None
+        else:
+            assert lo_db == pytest.approx(db((2 - alpha) / (2 + alpha)), rel=1e-9, abs=1e-12)
+            assert hi_db == pytest.approx(db((2 + alpha) / (2 - alpha)), rel=1e-9, abs=1e-12)
+        assert disk["phase_deg"] == pytest.approx(math.degrees(2 * math.atan(alpha / 2)),
+                                                  rel=1e-9)
+
+
+def _same(a: float | None, b: float | None) -> bool:
+    if a is None or b is None:
+        return a is None and b is None
+    return math.isclose(a, b, rel_tol=1e-9, abs_tol=1e-12)
+
+
+def simple_project(tmp_path: Path, kp: float, plant: str = "third", *, extra: str = "",
+                   ruleset: str = "baseline", files: dict[str, str] | None = None) -> Path:
+    contents = {
+        "ruleguard.toml": manifest(loop("a.loop", plant, "c", extra=extra), ruleset=ruleset),
+        "plants.toml": PLANTS,
+        "ctl.toml": p_table("c", kp),
+    }
+    contents.update(files or {})
+    return write(tmp_path, contents)
+
+
+# --------------------------------------------- K/(s(s+1)(s+2)), continuous
+
+def _third_crossover(k: float) -> float:
+    # |L(jw)| = 1  <=>  w^2 (w^2+1)(w^2+4) = k^2, a cubic in x = w^2 (numpy.roots)
+    roots = np.roots([1.0, 5.0, 4.0, -k * k])
+    x = max(r.real for r in roots if abs(r.imag) < 1e-9 and r.real > 0)
+    return math.sqrt(x)
+
+
+def test_third_order_stable_margins_closed_form(tmp_path):
+    # L = 3/(s(s+1)(s+2)). Routh-Hurwitz on s^3 + 3 s^2 + 2 s + K: stable iff
+    # 0 < K < 6; at K = 6 the poles are +-j sqrt(2) (closed form), so the
+    # gain margin is 6/3 = 2 (6.02 dB) at sqrt(2) rad/s, no lower limit.
+    _, report, _ = check(simple_project(tmp_path, 3.0))
+    v = only_variant(report)
+    st, m = v["stability"], v["margins"]
+    assert st == {**st, "stable": True, "open_loop_unstable_poles": 0,
+                  "ccw_encirclements": 0, "closed_loop_unstable_poles": 0}
+    assert m["gain_margin_db"] == pytest.approx(db(2.0), abs=1e-6)
+    assert m["gain_margin_hz"] == pytest.approx(hz(math.sqrt(2.0)), rel=1e-6)
+    assert m["lower_gain_margin_db"] is None and m["lower_gain_margin_hz"] is None
+    assert m["stable_gain_ranges_db"] == [[None, pytest.approx(db(2.0), abs=1e-6)]]
+    # crossover from the cubic above; PM = 180 - 90 - atan(w) - atan(w/2) deg
+    wc = _third_crossover(3.0)
+    pm = 90.0 - math.degrees(math.atan(wc) + math.atan(wc / 2))
+    assert len(m["crossovers"]) == 1
+    assert m["crossover_hz"] == pytest.approx(hz(wc), rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(pm, abs=1e-5)
+    assert m["delay_margin_s"] == pytest.approx(math.radians(pm) / wc, rel=1e-5)
+    assert m["delay_margin_samples"] is None  # continuous loop
+    # peaks and the balanced disk margin, against a dense numpy evaluation of
+    # L(jw): Ms = max |1/(1+L)|, Mt = max |L/(1+L)|, and (Seiler, Packard &
+    # Gahinet, "An introduction to disk margins", IEEE CSM 40(5), 2020, sigma = 0)
+    # alpha = 1/max |S - 1/2| = 2/max |(1-L)/(1+L)|.
+    w = np.logspace(-2, 2, 400001)
+    s = 1j * w
+    lw = 3.0 / (s * (s + 1) * (s + 2))
+    assert m["sensitivity_peak_db"] == pytest.approx(db(np.max(np.abs(1 / (1 + lw)))), abs=1e-3)
+    assert m["complementary_peak_db"] == pytest.approx(db(np.max(np.abs(lw / (1 + lw)))),
+                                                       abs=1e-3)
+    alpha = 2.0 / np.max(np.abs((1 - lw) / (1 + lw)))
+    assert m["disk_margin"]["alpha"] == pytest.approx(alpha, rel=1e-4)
+    # closed-loop -3 dB bandwidth: |T(jw)| = 1/sqrt(2) (T(0) = 1), numpy grid
+    t = np.abs(lw / (1 + lw))
+    assert m["bandwidth_hz"] == pytest.approx(hz(w[np.argmax(t < 1 / math.sqrt(2))]), rel=1e-3)
+
+
+def test_third_order_unstable_nulls_and_encirclements(tmp_path):
+    # K = 12 > 6: Routh's first column 1, 3, (6-12)/3 < 0, 12 has two sign
+    # changes, so Z = 2 closed-loop poles in the right half plane; P = 0, so
+    # ccw = P - Z = -2. The stable gain range is K < 6: [null, 20 log10(6/12)].
+    _, report, _ = check(simple_project(tmp_path, 12.0))
+    v = only_variant(report)
+    st, m = v["stability"], v["margins"]
+    assert st["stable"] is False
+    assert st["open_loop_unstable_poles"] == 0
+    assert st["closed_loop_unstable_poles"] == 2
+    assert st["ccw_encirclements"] == -2
+    for key in ("gain_margin_db", "lower_gain_margin_db", "delay_margin_s",
+                "delay_margin_samples", "disk_margin"):
+        assert m[key] is None, key
+    assert m["stable_gain_ranges_db"] == [[None, pytest.approx(db(0.5), abs=1e-6)]]
+    # crossovers are still given, with their negative phase margins
+    wc = _third_crossover(12.0)
+    pm = 90.0 - math.degrees(math.atan(wc) + math.atan(wc / 2))
+    assert pm < 0
+    assert m["crossover_hz"] == pytest.approx(hz(wc), rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(pm, abs=1e-5)
+    assert m["sensitivity_peak_db"] is not None
+    assert any(f["rule"] == "stability.closed-loop" and f["severity"] == "error"
+               for f in report["findings"])
+
+
+def test_curve_through_minus_one_is_not_stable(tmp_path):
+    # K = 6: L(j sqrt 2) = 6/(j sqrt2 (1 + j sqrt2)(2 + j sqrt2)) = -1 exactly
+    # (Routh-Hurwitz boundary above): not stable, closed-loop count null, a note.
+    _, report, _ = check(simple_project(tmp_path, 6.0))
+    lp = report["loops"][0]
+    v = lp["variants"][0]
+    assert v["stability"]["stable"] is False
+    assert v["stability"]["closed_loop_unstable_poles"] is None
+    notes = list(v.get("notes", [])) + list(lp["analysis"]["notes"])
+    notes += [f["message"] for f in report["findings"] if f["severity"] == "note"]
+    assert notes, "a curve through -1 must come with a note"
+
+
+def test_unstable_open_loop_lower_gain_margin(tmp_path):
+    # L = 4/(s - 1): closed-loop pole s = 1 - K, stable iff K > 1 (closed
+    # form). P = 1, so one ccw encirclement is needed and made. Lower gain
+    # margin 20 log10(1/4) at w = 0; no upper limit. Crossover |4/(jw-1)| = 1
+    # at w = sqrt(15), PM = 180 + arg L = atan(sqrt 15) deg.
+    _, report, _ = check(simple_project(tmp_path, 4.0, "unstable1"))
+    v = only_variant(report)
+    st, m = v["stability"], v["margins"]
+    assert (st["stable"], st["open_loop_unstable_poles"], st["ccw_encirclements"],
+            st["closed_loop_unstable_poles"]) == (True, 1, 1, 0)
+    assert m["gain_margin_db"] is None and m["gain_margin_hz"] is None
+    assert m["lower_gain_margin_db"] == pytest.approx(db(0.25), abs=1e-6)
+    assert m["lower_gain_margin_hz"] == pytest.approx(0.0, abs=1e-9)
+    assert m["stable_gain_ranges_db"] == [[pytest.approx(db(0.25), abs=1e-6), None]]
+    assert m["crossover_hz"] == pytest.approx(hz(math.sqrt(15.0)), rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(math.degrees(math.atan(math.sqrt(15))),
+                                                  abs=1e-5)
+
+
+def test_conditionally_stable_range_against_numpy_roots(tmp_path):
+    # L = K (s+1)^3 / (s^3 (s/10+1)^3): unstable at low and at high gain.
+    # Each reported interval is checked against closed-loop poles from
+    # numpy.roots of den + c*num (independent computation): stable at the
+    # interval's inner points, unstable just outside its ends.
+    plants = PLANTS + """
+[plants.cond]
+kind = "zero_pole_gain"
+gain = 1000.0
+zeros = [-1.0, -1.0, -1.0]
+poles = [0.0, 0.0, 0.0, -10.0, -10.0, -10.0]
+"""
+    _, report, _ = check(simple_project(tmp_path, 1.0, "cond", files={"plants.toml": plants}))
+    m = only_variant(report)["margins"]
+    num = np.poly([-1.0, -1.0, -1.0]) * 1000.0
+    den = np.poly([0.0, 0.0, 0.0, -10.0, -10.0, -10.0])
+
+    def stable(c: float) -> bool:
+        return bool(np.all(np.roots(np.polyadd(den, c * num)).real < 0))
+
+    assert stable(1.0)
+    assert m["gain_margin_db"] is not None and m["lower_gain_margin_db"] is not None
+    for lo, hi in m["stable_gain_ranges_db"]:
+        inner = [x for x in (lo, hi) if x is not None]
+        mid = sum(inner) / len(inner) if len(inner) == 2 else inner[0] + (1 if lo else -1)
+        assert stable(10 ** (mid / 20))
+        if lo is not None:
+            assert stable(10 ** ((lo + 0.01) / 20)) and not stable(10 ** ((lo - 0.01) / 20))
+        if hi is not None:
+            assert stable(10 ** ((hi - 0.01) / 20)) and not stable(10 ** ((hi + 0.01) / 20))
+
+
+def test_required_ccw_does_not_change_stable(tmp_path):
+    # The stable K = 3 loop (above) with required_ccw = 1: still stable,
+    # stability.encirclements reports the mismatch.
+    _, report, _ = check(simple_project(tmp_path, 3.0, extra="required_ccw = 1\n"))
+    assert only_variant(report)["stability"]["stable"] is True
+    assert any(f["rule"] == "stability.encirclements" for f in report["findings"])
+    assert not any(f["rule"] == "stability.closed-loop" for f in report["findings"])
+
+
+# -------------------------------------------------- dead time, integrator
+
+def test_integrator_dead_time_closed_form(tmp_path):
+    # L = K e^{-s tau}/s, K = 1, tau = 0.5: w_c = K = 1 rad/s, PM = 90 deg -
+    # w_c tau (rad -> deg); phase -180 where pi/2 + w tau = pi, w = pi/(2 tau),
+    # GM = w/K = pi (closed form); stable iff K tau < pi/2.
+    _, report, _ = check(simple_project(tmp_path, 1.0, "int_dead"))
+    lp = report["loops"][0]
+    m = lp["variants"][0]["margins"]
+    assert lp["variants"][0]["stability"]["stable"] is True
+    assert m["crossover_hz"] == pytest.approx(hz(1.0), rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(90.0 - math.degrees(0.5), abs=1e-5)
+    assert m["delay_margin_s"] == pytest.approx(math.pi / 2 - 0.5, rel=1e-6)
+    assert m["gain_margin_db"] == pytest.approx(db(math.pi), abs=1e-5)
+    assert m["gain_margin_hz"] == pytest.approx(hz(math.pi), rel=1e-6)
+    assert lp["analysis"]["total_delay_s"] == pytest.approx(0.5)
+
+
+def test_corners_of_a_dead_time_family(tmp_path):
+    # vary delay_s in [0.2, 2.0] with K = 1: stable iff tau < pi/2 (above), so
+    # corner-1 (min) is stable with PM = 90 - deg(0.2) and corner-2 (max) not.
+    plants = PLANTS + """
+[plants.fam]
+kind = "integrator_dead_time"
+gain = 1.0
+delay_s = 0.5
+vary = { delay_s = { min = 0.2, max = 2.0 } }
+"""
+    code, report, _ = check(simple_project(tmp_path, 1.0, "fam", files={"plants.toml": plants}))
+    variants = report["loops"][0]["variants"]
+    assert [v["id"] for v in variants] == ["nominal", "corner-1", "corner-2"]
+    assert [v["parameters"] for v in variants] == [
+        {"fam.delay_s": 0.5}, {"fam.delay_s": 0.2}, {"fam.delay_s": 2.0}]
+    assert [v["stability"]["stable"] for v in variants] == [True, True, False]
+    assert variants[1]["margins"]["phase_margin_deg"] == pytest.approx(
+        90.0 - math.degrees(0.2), abs=1e-5)
+    assert report["summary"]["evaluations"] == 3
+    assert code == 1
+    bad_finding = [f for f in report["findings"] if f["rule"] == "stability.closed-loop"]
+    assert bad_finding and bad_finding[0]["variant"] == "corner-2"
+
+
+# ------------------------------------------------------ K/(z-1), discrete
+
+DISCRETE_PLANTS = PLANTS + """
+[plants.ramp50]          # 50/s: its ZOH equivalent at h = 0.01 s is 0.5/(z - 1)
+kind = "integrator_dead_time"
+gain = 50.0
+delay_s = 0.0
+"""
+
+
+def _k_over_z_minus_1(m: dict, k: float, fs: float) -> None:
+    # L = K/(z-1), 0 < K < 2: closed-loop pole z = 1 - K (closed form), so
+    # stable for 0 < K < 2. At z = -1 (the Nyquist frequency) L = -K/2: the
+    # gain margin is 2/K at fs/2. |e^{jt} - 1| = 2 sin(t/2) = K gives the
+    # crossover t_c = 2 asin(K/2); arg(e^{jt}-1) = 90 deg + t/2, so PM = 90 deg
+    # - t_c/2 and the delay margin is PM/t_c samples.
+    theta = 2 * math.asin(k / 2)
+    pm = 90.0 - math.degrees(theta) / 2
+    assert m["gain_margin_db"] == pytest.approx(db(2 / k), abs=1e-6)
+    assert m["gain_margin_hz"] == pytest.approx(fs / 2, rel=1e-6)
+    assert m["lower_gain_margin_db"] is None
+    assert m["stable_gain_ranges_db"] == [[None, pytest.approx(db(2 / k), abs=1e-6)]]
+    assert m["crossover_hz"] == pytest.approx(theta * fs / (2 * math.pi), rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(pm, abs=1e-5)
+    assert m["delay_margin_samples"] == pytest.approx(math.radians(pm) / theta, rel=1e-5)
+    assert m["delay_margin_s"] == pytest.approx(math.radians(pm) / theta / fs, rel=1e-5)
+
+
+def test_k_over_z_minus_1_from_a_z_domain_controller(tmp_path):
+    # controller 0.5/(z - 1) ([0.5]/[1, -0.5] style of section 3), plant 1.
+    ctl = '[c]\nkind = "transfer_function"\ndomain = "z"\nnumerator = [0.5]\n' \
+          'denominator = [1.0, -1.0]\n'
+    folder = simple_project(tmp_path, 1.0, "unit", extra="sample_rate_hz = 100.0\n",
+                            files={"ctl.toml": ctl})
+    _, report, _ = check(folder)
+    lp = report["loops"][0]
+    assert lp["domain"] == "discrete" and lp["sample_rate_hz"] == 100.0
+    v = lp["variants"][0]
+    assert v["stability"]["stable"] is True
+    assert v["stability"]["closed_loop_unstable_poles"] == 0
+    _k_over_z_minus_1(v["margins"], 0.5, 100.0)
+
+
+def test_zoh_integrator_is_k_over_z_minus_1(tmp_path):
+    # ZOH equivalent of g/s at h: g h/(z - 1) (Franklin, Powell & Workman,
+    # Digital Control of Dynamic Systems, 3rd ed. 1998, table of ZOH
+    # equivalents; from memory). g = 50, h = 0.01 s, kp = 1: K = 0.5.
+    folder = simple_project(tmp_path, 1.0, "ramp50", extra="sample_rate_hz = 100.0\n",
+                            files={"plants.toml": DISCRETE_PLANTS})
+    _, report, _ = check(folder)
+    _k_over_z_minus_1(only_variant(report)["margins"], 0.5, 100.0)
+
+
+def test_k_over_z_minus_1_unstable(tmp_path):
+    # K = 3: closed-loop pole z = 1 - 3 = -2, outside the unit circle: Z = 1,
+    # P = 0 (the pole at z = 1 is on the boundary), ccw = -1; the gain may be
+    # lowered to 2: stable_gain_ranges_db = [[null, 20 log10(2/3)]].
+    folder = simple_project(tmp_path, 6.0, "ramp50", extra="sample_rate_hz = 100.0\n",
+                            files={"plants.toml": DISCRETE_PLANTS})
+    _, report, _ = check(folder)
+    v = only_variant(report)
+    assert (v["stability"]["stable"], v["stability"]["closed_loop_unstable_poles"],
+            v["stability"]["ccw_encirclements"]) == (False, 1, -1)
+    assert v["margins"]["stable_gain_ranges_db"] == [[None, pytest.approx(db(2 / 3),
+                                                                          abs=1e-6)]]
+    assert v["margins"]["delay_margin_samples"] is None
+
+
+def test_total_delay_of_a_discrete_loop(tmp_path):
+    # plant delay_s + sensor delay_s + delay_samples/sample_rate_hz (section 1)
+    plants = PLANTS + """
+[plants.slow]
+kind = "integrator_dead_time"
+gain = 10.0
+delay_s = 0.002
+
+[plants.sense]
+kind = "first_order_dead_time"
+gain = 1.0
+time_constant_s = 0.0001
+delay_s = 0.001
+"""
+    folder = simple_project(
+        tmp_path, 1.0, "slow",
+        extra='sample_rate_hz = 1000.0\ndelay_samples = 1.5\nsensor = "sense"\n',
+        files={"plants.toml": plants})
+    _, report, _ = check(folder)
+    lp = report["loops"][0]
+    assert lp["analysis"]["total_delay_s"] == pytest.approx(0.002 + 0.001 + 1.5 / 1000.0)
+    assert lp["analysed"] is True
+
+
+# ------------------------------------------------------ variants (section 2)
+
+VARIANT_PLANTS = """\
+[plants.zeta]            # outer plant g/s, varied gain
+kind = "zero_pole_gain"
+gain = 2.0
+zeros = []
+poles = [0.0]
+vary = { gain = { min = 1.0, max = 3.0 } }
+
+[plants.alpha]           # sensor: a static gain k
+kind = "transfer_function"
+numerator = ["k"]
+denominator = [1.0]
+parameters = { k = 1.0 }
+vary = { k = { min = 0.9, max = 1.1 } }
+
+[plants.mid]             # inner plant 1/(s + a)
+kind = "transfer_function"
+numerator = [1.0]
+denominator = [1.0, "a"]
+parameters = { a = 1.5 }
+vary = { a = { min = 1.0, max = 2.0 } }
+"""
+
+
+def test_corner_order_and_qualified_names(tmp_path):
+    # Outer loop: plant zeta, sensor alpha, inner loop with plant mid. Its
+    # variants cover alpha.k, mid.a and zeta.gain (sorted alphabetically,
+    # although declared zeta, alpha, mid), corners in itertools.product order.
+    loops = (loop("in.loop", "mid", "inner") +
+             loop("out.loop", "zeta", "outer", extra='sensor = "alpha"\ninner = "in.loop"\n'))
+    folder = write(tmp_path, {
+        "ruleguard.toml": manifest(loops),
+        "plants.toml": VARIANT_PLANTS,
+        "ctl.toml": p_table("inner", 10.0) + p_table("outer", 1.0),
+    })
+    _, report, _ = check(folder)
+    by_name = {lp["name"]: lp for lp in report["loops"]}
+    outer = by_name["out.loop"]["variants"]
+    names = ["alpha.k", "mid.a", "zeta.gain"]
+    bounds = {"alpha.k": (0.9, 1.1), "mid.a": (1.0, 2.0), "zeta.gain": (1.0, 3.0)}
+    assert outer[0]["id"] == "nominal"
+    assert outer[0]["parameters"] == {"alpha.k": 1.0, "mid.a": 1.5, "zeta.gain": 2.0}
+    expected = [dict(zip(names, combo, strict=True))
+                for combo in itertools.product(*[bounds[n] for n in names])]
+    assert [v["id"] for v in outer[1:]] == [f"corner-{i}" for i in range(1, 9)]
+    assert [v["parameters"] for v in outer[1:]] == expected
+    assert outer[1]["parameters"] == {n: bounds[n][0] for n in names}  # corner-1 all minima
+    inner = by_name["in.loop"]["variants"]
+    assert [v["parameters"] for v in inner] == [{"mid.a": 1.5}, {"mid.a": 1.0}, {"mid.a": 2.0}]
+    assert report["summary"]["evaluations"] == 9 + 3
+    # the variant parameters reach the model: the loop gain 10 g k a-free at
+    # low frequency, L ~ 10 g k / (s (s + a + 10)) * ... -> crossover changes
+    wc = {v["id"]: v["margins"]["crossover_hz"] for v in outer}
+    assert wc["corner-1"] < wc["nominal"] < wc["corner-8"]
+
+
+def test_latin_hypercube_strata_and_reproducibility(tmp_path):
+    plants = PLANTS + """
+[plants.lhs]
+kind = "transfer_function"
+numerator = ["b"]
+denominator = [1.0, "a"]
+parameters = { a = 2.0, b = 1.0 }
+vary = { a = { min = 1.0, max = 4.0 }, b = { min = 0.01, max = 100.0, scale = "log" } }
+"""
+    n = 8
+
+    def run_with(seed: int, sub: str) -> list[dict]:
+        folder = write(tmp_path / sub, {
+            "ruleguard.toml": manifest(loop("a.loop", "lhs", "c"),
+                                       variants=f"{{ samples = {n}, seed = {seed} }}"),
+            "plants.toml": plants, "ctl.toml": p_table("c", 1.0)})
+        _, report, _ = check(folder)
+        return report["loops"][0]["variants"]
+
+    first, again, other = run_with(7, "a"), run_with(7, "b"), run_with(8, "c")
+    assert [v["id"] for v in first] == ["nominal"] + [f"sample-{i}" for i in range(1, n + 1)]
+    assert first[0]["parameters"] == {"lhs.a": 2.0, "lhs.b": 1.0}
+    assert [v["parameters"] for v in first] == [v["parameters"] for v in again]
+    assert [v["parameters"] for v in first] != [v["parameters"] for v in other]
+    for variants in (first, other):
+        a = np.array([v["parameters"]["lhs.a"] for v in variants[1:]])
+        b = np.array([v["parameters"]["lhs.b"] for v in variants[1:]])
+        # one sample per stratum: linear strata of [1, 4], log strata of [0.01, 100]
+        assert sorted(np.floor((a - 1.0) / 3.0 * n).astype(int)) == list(range(n))
+        assert sorted(np.floor((np.log10(b) + 2.0) / 4.0 * n).astype(int)) == list(range(n))
+
+
+# ------------------------------------------- every kind (sections 2 and 3)
+
+RESONANT = """\
+[plants.tf]              # 25/(s^2 + 0.4 s + 25): w = 5 rad/s, zeta = 0.04
+kind = "transfer_function"
+numerator = [25.0]
+denominator = [1.0, 0.4, 25.0]
+
+[plants.so]
+kind = "second_order"
+gain = 1.0
+freq_hz = "5/(2*pi)"
+damping = 0.04
+
+[plants.zpk_pair]
+kind = "zero_pole_gain"
+gain = 25.0
+zeros = []
+poles = [{ re = -0.2, im = "sqrt(25 - 0.04)" }]
+
+[plants.zpk_fd]
+kind = "zero_pole_gain"
+gain = 25.0
+zeros = []
+poles = [{ freq_hz = "5/(2*pi)", damping = 0.04 }]
+
+[plants.ss]
+kind = "state_space"
+a = [[0.0, 1.0], [-25.0, -0.4]]
+b = [[0.0], [1.0]]
+c = [[25.0, 0.0]]
+d = [[0.0]]
+"""
+
+
+def test_plant_kinds_of_one_resonance_agree_with_closed_form(tmp_path):
+    # L = 2 * 25/(s^2 + 0.4 s + 25). |L| = 1: (25 - w^2)^2 + 0.16 w^2 = 2500,
+    # x = w^2: x^2 - 49.84 x - 1875 = 0 (closed form); PM = 180 - atan2(0.4 w,
+    # 25 - w^2); phase never reaches -180: no gain margin (null = unbounded).
+    kinds = ["tf", "so", "zpk_pair", "zpk_fd", "ss"]
+    loops = "".join(loop(f"k.{k}", k, "c") for k in kinds)
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": RESONANT,
+                              "ctl.toml": p_table("c", 2.0)})
+    _, report, _ = check(folder)
+    x = (49.84 + math.sqrt(49.84 ** 2 + 4 * 1875)) / 2
+    wc = math.sqrt(x)
+    pm = 180.0 - math.degrees(math.atan2(0.4 * wc, 25 - x))
+    for k in kinds:
+        m = only_variant(report, f"k.{k}")["margins"]
+        assert m["crossover_hz"] == pytest.approx(hz(wc), rel=1e-6), k
+        assert m["phase_margin_deg"] == pytest.approx(pm, abs=1e-4), k
+        assert m["gain_margin_db"] is None and m["lower_gain_margin_db"] is None, k
+        assert m["stable_gain_ranges_db"] == [[None, None]], k
+
+
+def _margins_equal(a: dict, b: dict, label: str) -> None:
+    for key in ("gain_margin_db", "gain_margin_hz", "phase_margin_deg", "crossover_hz",
+                "sensitivity_peak_db", "complementary_peak_db"):
+        if a[key] is None or b[key] is None:
+            assert a[key] is None and b[key] is None, (label, key)
+        else:
+            assert a[key] == pytest.approx(b[key], rel=1e-6, abs=1e-9), (label, key)
+
+
+def test_physical_plant_kinds_match_their_formulas(tmp_path):
+    # dc_motor, speed: Kt/((L s + R)(J s + b) + Kt^2); current: (J s + b)/(...)
+    # (armature circuit + rigid rotor; Franklin, Powell & Emami-Naeini,
+    # Feedback Control of Dynamic Systems, DC motor model; from memory).
+    # two_mass, torque in: motor speed (J_l s^2 + c s + k)/(s (J_m J_l s^2 +
+    # (J_m + J_l)(c s + k))), load speed (c s + k)/(same) (Newton's law on
+    # both inertias, common practice). first_order_dead_time gain e^{-Ts}/(tau s+1).
+    # Each is compared with a transfer_function written from these formulas.
+    plants = """\
+[plants.motor_w]
+kind = "dc_motor"
+resistance_ohm = 1.2
+inductance_h = 0.005
+torque_constant_nm_per_a = 0.08
+inertia_kg_m2 = 0.0002
+friction_nm_s_per_rad = 0.0001
+output = "speed"
+
+[plants.motor_w_tf]
+kind = "transfer_function"
+numerator = ["Kt"]
+denominator = ["L*J", "L*b + R*J", "R*b + Kt**2"]
+parameters = { R = 1.2, L = 0.005, Kt = 0.08, J = 0.0002, b = 0.0001 }
+
+[plants.motor_i]
+kind = "dc_motor"
+resistance_ohm = 1.2
+inductance_h = 0.005
+torque_constant_nm_per_a = 0.08
+inertia_kg_m2 = 0.0002
+friction_nm_s_per_rad = 0.0001
+output = "current"
+
+[plants.motor_i_tf]
+kind = "transfer_function"
+numerator = ["J", "b"]
+denominator = ["L*J", "L*b + R*J", "R*b + Kt**2"]
+parameters = { R = 1.2, L = 0.005, Kt = 0.08, J = 0.0002, b = 0.0001 }
+
+[plants.shaft_m]
+kind = "two_mass"
+inertia_motor_kg_m2 = 0.001
+inertia_load_kg_m2 = 0.004
+stiffness_nm_per_rad = 50.0
+damping_nm_s_per_rad = 0.01
+output = "motor_speed"
+
+[plants.shaft_m_tf]
+kind = "transfer_function"
+numerator = ["Jl", "c", "k"]
+denominator = ["Jm*Jl", "(Jm + Jl)*c", "(Jm + Jl)*k", 0.0]
+parameters = { Jm = 0.001, Jl = 0.004, k = 50.0, c = 0.01 }
+
+[plants.shaft_l]
+kind = "two_mass"
+inertia_motor_kg_m2 = 0.001
+inertia_load_kg_m2 = 0.004
+stiffness_nm_per_rad = 50.0
+damping_nm_s_per_rad = 0.01
+output = "load_speed"
+
+[plants.shaft_l_tf]
+kind = "transfer_function"
+numerator = ["c", "k"]
+denominator = ["Jm*Jl", "(Jm + Jl)*c", "(Jm + Jl)*k", 0.0]
+parameters = { Jm = 0.001, Jl = 0.004, k = 50.0, c = 0.01 }
+
+[plants.fodt]
+kind = "first_order_dead_time"
+gain = 2.0
+time_constant_s = 1.0
+delay_s = 0.5
+
+[plants.fodt_tf]
+kind = "transfer_function"
+numerator = [2.0]
+denominator = [1.0, 1.0]
+delay_s = 0.5
+"""
+    pairs = {"motor_w": 2.0, "motor_i": 20.0, "shaft_m": 0.05, "shaft_l": 0.05, "fodt": 1.0}
+    loops, ctl = "", ""
+    for name, kp in pairs.items():
+        ctl += p_table(f"c_{name}", kp)
+        loops += loop(f"{name}.a", name, f"c_{name}") + loop(f"{name}.b", f"{name}_tf",
+                                                            f"c_{name}")
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    for name in pairs:
+        a = only_variant(report, f"{name}.a")
+        b = only_variant(report, f"{name}.b")
+        assert a["stability"] == b["stability"], name
+        _margins_equal(a["margins"], b["margins"], name)
+    # first_order_dead_time: phase -180 where atan(w) + 0.5 w = pi (scipy
+    # brentq, independent); GM = sqrt(1 + w^2)/2.
+    from scipy.optimize import brentq
+
+    w180 = brentq(lambda w: math.atan(w) + 0.5 * w - math.pi, 0.1, 10.0)
+    m = only_variant(report, "fodt.a")["margins"]
+    assert m["gain_margin_db"] == pytest.approx(db(math.sqrt(1 + w180 ** 2) / 2), abs=1e-5)
+    assert m["gain_margin_hz"] == pytest.approx(hz(w180), rel=1e-6)
+
+
+def _sweep_csv(f_hz: np.ndarray, k: float = 1.0) -> str:
+    s = 2j * np.pi * f_hz
+    g = k / (s * (s + 1) * (s + 2))
+    rows = ["freq_hz,magnitude_db,phase_deg"]
+    # phase given wrapped to (-180, 180]: the reader unwraps it
+    rows += [f"{float(f)!r},{float(20 * np.log10(abs(x)))!r},{math.degrees(cmath.phase(x))!r}"
+             for f, x in zip(f_hz, g, strict=True)]
+    return "\n".join(rows) + "\n"
+
+
+def test_measured_response_kind(tmp_path):
+    # Data of 1/(s(s+1)(s+2)) from 0.001 to 100 Hz, integrators = 1, kp = 3:
+    # GM 6.02 dB at sqrt(2) rad/s (Routh-Hurwitz, above), within the
+    # log-frequency interpolation error of 2000 points.
+    plants = PLANTS + """
+[plants.swept]
+kind = "measured_response"
+file = "sweep.csv"
+unstable_poles = 0
+integrators = 1
+
+[plants.swept_short]
+kind = "measured_response"
+file = "short.csv"
+unstable_poles = 0
+integrators = 1
+"""
+    loops = loop("m.full", "swept", "c") + loop("m.short", "swept_short", "c")
+    folder = write(tmp_path, {
+        "ruleguard.toml": manifest(loops), "plants.toml": plants,
+        "ctl.toml": p_table("c", 3.0),
+        "sweep.csv": _sweep_csv(np.logspace(-3, 2, 2000)),
+        # ends at 0.3 Hz, where |L| = 3/(1.885 * 2.134 * 2.75) ~ -11 dB: not below -20 dB
+        "short.csv": _sweep_csv(np.logspace(-3, math.log10(0.3), 600)),
+    })
+    _, report, _ = check(folder)
+    v = only_variant(report, "m.full")
+    assert v["stability"]["stable"] is True
+    assert v["stability"]["open_loop_unstable_poles"] == 0
+    assert v["margins"]["gain_margin_db"] == pytest.approx(db(2.0), abs=0.02)
+    assert v["margins"]["gain_margin_hz"] == pytest.approx(hz(math.sqrt(2)), rel=1e-3)
+    short = [lp for lp in report["loops"] if lp["name"] == "m.short"][0]
+    full = [lp for lp in report["loops"] if lp["name"] == "m.full"][0]
+    warned_short = [f for f in report["findings"]
+                    if f["loop"] == "m.short" and f["severity"] == "warning"]
+    warned_full = [f for f in report["findings"]
+                   if f["loop"] == "m.full" and f["severity"] == "warning"]
+    # the report warns when |L| at the highest measured frequency is not below -20 dB
+    assert len(warned_short) > len(warned_full) or (
+        len(short["analysis"]["notes"]) > len(full["analysis"]["notes"]))
+
+
+CONTROLLERS = """\
+[par]
+kind = "pid"
+form = "parallel"
+kp = 2.0
+ki = 1.0
+kd = 0.5
+derivative_filter_hz = 6.366197723675814  # 40/(2 pi)
+
+[std]
+kind = "pid"
+form = "standard"
+gain = 2.0
+ti_s = 2.0
+td_s = 0.25
+n = 10.0
+
+[ser]
+kind = "pid"
+form = "series"
+gain = 2.0
+ti_s = 2.0
+td_s = 0.25
+n = 10.0
+
+[ser_tf]                 # 2 (2 s + 1)(0.25 s + 1) / (2 s (0.025 s + 1))
+kind = "transfer_function"
+numerator = [1.0, 4.5, 2.0]
+denominator = [0.05, 2.0, 0.0]
+
+[ll]
+kind = "lead_lag"
+gain = 1.5
+zero_hz = 0.15915494309189535  # 1/(2 pi)
+pole_hz = 1.5915494309189535  # 10/(2 pi)
+
+[ll_tf]                  # 1.5 (s + 1)/(s/10 + 1)
+kind = "transfer_function"
+numerator = [1.5, 1.5]
+denominator = [0.1, 1.0]
+
+[filt]
+kind = "pid"
+kp = 1.0
+ki = 0.0
+
+[[filt.filters]]
+kind = "lowpass1"
+cutoff_hz = 3.183098861837907  # 20/(2 pi)
+
+[[filt.filters]]
+kind = "lowpass2"
+cutoff_hz = 4.7746482927568605  # 30/(2 pi)
+damping = 0.5
+
+[[filt.filters]]
+kind = "notch"
+center_hz = 0.7957747154594768  # 5/(2 pi)
+width_hz = 0.15915494309189535  # 1/(2 pi)
+depth_db = 20.0
+
+[filt_tf]                # product of the three filter formulas of section 3
+kind = "transfer_function"
+numerator = NUM
+denominator = DEN
+"""
+
+
+def test_controller_and_filter_kinds_match_their_formulas(tmp_path):
+    # Section 3 formulas. standard(gain 2, ti 2, td 0.25, n 10) equals parallel
+    # kp = 2, ki = gain/ti = 1, kd = gain td = 0.5, filter pole n/td = 40
+    # rad/s. Series and lead-lag expanded by hand (comments in the table);
+    # the filters' product built with numpy.polymul: lowpass1 20/(s + 20),
+    # lowpass2 900/(s^2 + 30 s + 900), notch with zeta_p = 1/(2*5) = 0.1,
+    # zeta_z = 0.1 * 10^(-20/20) = 0.01: (s^2 + 0.1 s + 25)/(s^2 + s + 25).
+    num = np.polymul([20.0], np.polymul([900.0], [1.0, 0.1, 25.0]))
+    den = np.polymul([1.0, 20.0], np.polymul([1.0, 30.0, 900.0], [1.0, 1.0, 25.0]))
+    ctl = CONTROLLERS.replace("NUM", json.dumps(list(num))).replace("DEN",
+                                                                      json.dumps(list(den)))
+    plants = PLANTS + """
+[plants.plant]           # 1/((s + 1)(s + 3))
+kind = "zero_pole_gain"
+gain = 1.0
+zeros = []
+poles = [-1.0, -3.0]
+"""
+    # the parallel PID against the plain 1/(s(s+1)(s+2)): same for standard
+    names = ["par", "std", "ser", "ser_tf", "ll", "ll_tf", "filt", "filt_tf"]
+    loops = "".join(loop(f"c.{n}", "plant", n) for n in names)
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    for a, b in (("par", "std"), ("ser", "ser_tf"), ("ll", "ll_tf"), ("filt", "filt_tf")):
+        va, vb = only_variant(report, f"c.{a}"), only_variant(report, f"c.{b}")
+        assert report["loops"][names.index(a)]["analysed"], a
+        assert va["stability"] == vb["stability"], a
+        _margins_equal(va["margins"], vb["margins"], a)
+    # the parallel PID by direct evaluation: |C G| = 1 and PM with numpy on a grid
+    w = np.logspace(-2, 3, 200001)
+    s = 1j * w
+    lw = (2.0 + 1.0 / s + 0.5 * s / (s / 40 + 1)) / ((s + 1) * (s + 3))
+    i = np.argmin(np.abs(np.abs(lw) - 1))
+    m = only_variant(report, "c.par")["margins"]
+    assert m["crossover_hz"] == pytest.approx(hz(w[i]), rel=1e-3)
+    assert m["phase_margin_deg"] == pytest.approx(180 + math.degrees(np.angle(lw[i])), abs=0.05)
+
+
+def test_discrete_blocks_biquad_and_discretizations(tmp_path):
+    # biquad (b0 + b1 z^-1 + b2 z^-2)/(1 + a1 z^-1 + a2 z^-2) = (b0 z^2 + b1 z +
+    # b2)/(z^2 + a1 z + a2): the same as a z transfer function (section 3);
+    # a[0] = 2 is normalised to 1.
+    ctl = """\
+[bq]
+kind = "pid"
+kp = 1.0
+ki = 0.0
+
+[[bq.filters]]
+kind = "biquad"
+b = [0.4, 0.8, 0.4]
+a = [2.0, -0.6, 0.2]
+
+[bq_tf]
+kind = "transfer_function"
+domain = "z"
+numerator = [0.2, 0.4, 0.2]
+denominator = [1.0, -0.3, 0.1]
+"""
+    methods = ["tustin", "tustin_prewarp", "backward_euler", "forward_euler"]
+    for method in methods:
+        ctl += (f'\n[d_{method}]\nkind = "pid"\nkp = 1.0\nki = 20.0\n'
+                f'discretization = "{method}"\nnumeric_format = "float32"\n'
+                f'[[d_{method}.filters]]\nkind = "lowpass2"\ncutoff_hz = 20.0\n'
+                f'damping = 0.7\n')
+    ctl += '\n[fx]\nkind = "pid"\nkp = 0.5\nki = 0.0\nnumeric_format = "q2.14"\n'
+    plants = PLANTS + '\n[plants.lag]\nkind = "zero_pole_gain"\ngain = 5.0\nzeros = []\n' \
+                      'poles = [-5.0]\n'
+    rate = "sample_rate_hz = 1000.0\n"
+    loops = (loop("z.bq", "lag", "bq", extra=rate) + loop("z.tf", "lag", "bq_tf", extra=rate)
+             + "".join(loop(f"z.{m}", "lag", f"d_{m}", extra=rate) for m in methods)
+             + loop("z.fx", "lag", "fx", extra=rate))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    a, b = only_variant(report, "z.bq"), only_variant(report, "z.tf")
+    assert a["stability"] == b["stability"]
+    _margins_equal(a["margins"], b["margins"], "biquad")
+    by_name = {lp["name"]: lp for lp in report["loops"]}
+    for method in methods:
+        lp = by_name[f"z.{method}"]
+        assert lp["analysed"], method
+        disc = lp["analysis"]["discretization"]
+        # the method used is reported for every block; a PID without
+        # prewarp_hz gets plain Tustin, the low-pass is prewarped at its cutoff
+        assert disc["controller"] == ("tustin" if method == "tustin_prewarp" else method)
+        assert disc["filters"] == [method]
+    assert by_name["z.fx"]["analysed"]
+
+
+def test_unfiltered_derivative_is_not_analysed(tmp_path):
+    # section 3: an unfiltered derivative in a continuous loop is improper:
+    # analysed false, empty variants, controller.derivative-filter says why.
+    ctl = '[c]\nkind = "pid"\nkp = 1.0\nki = 0.0\nkd = 0.1\n'
+    _, report, _ = check(simple_project(tmp_path, 1.0, files={"ctl.toml": ctl}))
+    lp = report["loops"][0]
+    assert lp["analysed"] is False and lp["variants"] == []
+    assert any(f["rule"] == "controller.derivative-filter" for f in report["findings"])
+
+
+def test_unstable_inner_loop_makes_the_outer_loop_not_analysed(tmp_path):
+    # inner loop 12/(s(s+1)(s+2)) is unstable (Routh-Hurwitz, K > 6)
+    loops = loop("in.loop", "third", "inner") + loop("out.loop", "int_dead", "outer",
+                                                     extra='inner = "in.loop"\n')
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": PLANTS,
+                              "ctl.toml": p_table("inner", 12.0) + p_table("outer", 0.1)})
+    _, report, _ = check(folder)
+    outer = [lp for lp in report["loops"] if lp["name"] == "out.loop"][0]
+    assert outer["analysed"] is False and outer["variants"] == []
+    assert any(f["loop"] == "out.loop" for f in report["findings"])
+
+
+# ------------------------------------------------- manifest (section 1)
+
+def test_map_and_scale_of_a_firmware_file(tmp_path):
+    # field = raw value * scale: kp = 12 * 0.25 = 3 gives the K = 3 loop of
+    # 1/(s(s+1)(s+2)): GM = 6/3 (Routh-Hurwitz, above). Unused keys ignored.
+    firmware = json.dumps({"axes": [{"speed": {"P": 12.0, "Iraw": 0.0, "comment": "x",
+                                                "Dx": 0.0}}]})
+    man = manifest(
+        '[[loops]]\nname = "legacy.speed"\nplant = "third"\n'
+        'controller = { file = "fw/params.json", path = "axes.0.speed", kind = "pid", '
+        'map = { kp = { key = "P", scale = 0.25 }, ki = "Iraw" } }\n')
+    folder = write(tmp_path, {"ruleguard.toml": man, "plants.toml": PLANTS,
+                              "fw/params.json": firmware})
+    _, report, _ = check(folder)
+    m = only_variant(report)["margins"]
+    assert m["gain_margin_db"] == pytest.approx(db(2.0), abs=1e-6)
+    for f in report["findings"]:
+        if f["location"]["file"] not in (None, "ruleguard.toml", "plants.toml") and \
+                not f["location"]["file"].startswith("<"):
+            assert f["location"]["file"] == "fw/params.json"  # relative, with '/'
+
+
+def test_location_file_is_relative_with_slash(tmp_path):
+    # the K = 3 loop fails margin.phase (PM ~ 20 deg < 30, formula above):
+    # the finding points to the controller file in a subfolder.
+    man = manifest(loop("a.loop", "third", "c", file="firmware/axis/ctl.toml"))
+    folder = write(tmp_path, {"ruleguard.toml": man, "plants.toml": PLANTS,
+                              "firmware/axis/ctl.toml": p_table("c", 3.0)})
+    _, report, _ = check(folder)
+    phase = [f for f in report["findings"] if f["rule"] == "margin.phase"]
+    assert phase and phase[0]["location"]["file"] == "firmware/axis/ctl.toml"
+    assert phase[0]["measured"] == pytest.approx(
+        90.0 - math.degrees(math.atan(_third_crossover(3)) + math.atan(_third_crossover(3) / 2)),
+        abs=1e-5)
+    assert phase[0]["limit"] == 30.0 and phase[0]["unit"] == "deg"
+
+
+def test_delay_samples_without_sample_rate_is_an_input_error(tmp_path):
+    man = manifest(loop("a.loop", "third", "c", extra="delay_samples = 1.0\n"))
+    folder = write(tmp_path, {"ruleguard.toml": man, "plants.toml": PLANTS,
+                              "ctl.toml": p_table("c", 1.0)})
+    err = bad(folder)
+    line = 1 + man.splitlines().index("delay_samples = 1.0")
+    assert re.search(rf"ruleguard\.toml:{line}:\d+", err), err
+    assert "delay_samples" in err
+
+
+def test_expressions_follow_python_precedence(tmp_path):
+    # numerator "-2**2 + 7" = -4 + 7 = 3 (Python precedence): the K = 3 loop,
+    # GM 6.02 dB (Routh-Hurwitz). (-2)**2 + 7 = 11 would give 20 log10(6/11).
+    plants = PLANTS + """
+[plants.expr]
+kind = "transfer_function"
+numerator = ["-2**2 + 7"]
+denominator = [1.0, 3.0, 2.0, 0.0]
+"""
+    _, report, _ = check(simple_project(tmp_path, 1.0, "expr", files={"plants.toml": plants}))
+    assert only_variant(report)["margins"]["gain_margin_db"] == pytest.approx(db(2.0), abs=1e-6)
+
+
+@pytest.mark.parametrize("text", ['"__import__(\'os\').getcwd()"', '"R.__class__"',
+                                  '"[1][0]"', '"lambda: 1"'])
+def test_expressions_outside_the_grammar_are_input_errors(tmp_path, text):
+    plants = PLANTS + f"""
+[plants.expr]
+kind = "transfer_function"
+numerator = [{text}]
+denominator = [1.0, 1.0]
+parameters = {{ R = 1.0 }}
+"""
+    err = bad(simple_project(tmp_path, 1.0, "expr", files={"plants.toml": plants}))
+    assert re.search(r"plants\.toml:\d+:\d+", err), err
+
+
+def test_no_file_outside_the_manifest_folder(tmp_path):
+    write(tmp_path, {"outside.toml": PLANTS})
+    inner = tmp_path / "proj"
+    write(inner, {"ruleguard.toml": manifest(loop("a.loop", "third", "c"),
+                                             plants='["../outside.toml"]'),
+                  "ctl.toml": p_table("c", 1.0)})
+    err = bad(inner)
+    assert "ruleguard.toml" in err
+
+
+def test_toml_and_json_give_the_same_report(tmp_path):
+    # the same project in both formats (section "every input may be TOML or
+    # JSON"): identical analyses, summaries and findings (locations aside,
+    # whose files and lines differ by construction).
+    ruleset = """\
+[ruleset]
+name = "house"
+extends = "baseline"
+
+[rules."margin.phase"]
+min_deg = 25.0
+
+[[overrides]]
+loops = ["b.*"]
+rules = { "margin.gain" = { min_db = 10.0 } }
+
+[[waivers]]
+rule = "sensitivity.peak"
+loops = ["a.loop"]
+reason = "accepted at review"
+expires = 2027-03-01
+"""
+    plants = PLANTS + """
+[plants.fam]
+kind = "integrator_dead_time"
+gain = 1.0
+delay_s = 0.5
+vary = { delay_s = { min = 0.3, max = 0.9 } }
+"""
+    loops = (loop("a.loop", "third", "c3") + loop("b.loop", "fam", "c1", extra='tags = ["x"]\n'))
+    toml_files = {"ruleguard.toml": manifest(loops, ruleset="house.toml"),
+                  "plants.toml": plants, "house.toml": ruleset,
+                  "ctl.toml": p_table("c3", 3.0) + p_table("c1", 1.0)}
+    write(tmp_path / "t", toml_files)
+    json_files = {}
+    for rel, text in toml_files.items():
+        data = tomllib.loads(text.replace(".toml", ".json"))
+        json_files[rel.replace(".toml", ".json")] = json.dumps(data, default=str, indent=1)
+    write(tmp_path / "j", json_files)
+    _, rt, _ = check(tmp_path / "t", "--as-of", "2027-01-01")
+    _, rj, _ = check(tmp_path / "j", "--as-of", "2027-01-01", name="ruleguard.json")
+    assert rt["loops"] == rj["loops"]
+    assert rt["summary"] == rj["summary"]
+
+    def essential(report: dict) -> list[tuple]:
+        return [(f["rule"], f["severity"], f["loop"], f["variant"], f["message"], f["measured"],
+                 f["limit"], f["unit"], f["frequency_hz"], f["waived"], f["location"]["key"],
+                 Path(f["location"]["file"] or "").stem)
+                for f in report["findings"]]
+
+    assert essential(rt) == essential(rj)
+    assert rt["summary"]["waived"] >= 1
+
+
+# ----------------------------------------------------- ruleset (section 4)
+
+def test_extends_parameters_and_severity_off(tmp_path):
+    # K = 3 loop: GM 6.02 dB, PM ~ 20 deg (closed forms above).
+    ruleset = """\
+[ruleset]
+name = "house"
+extends = "baseline"
+
+[rules."margin.phase"]
+min_deg = 10.0
+
+[rules."margin.gain"]
+min_db = 8.0
+
+[rules."sensitivity.peak"]
+severity = "off"
+"""
+    folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
+    code, report, _ = check(folder)
+    rules = {f["rule"]: f for f in report["findings"]}
+    assert "margin.phase" not in rules        # 20 deg >= 10 deg
+    assert "sensitivity.peak" not in rules     # off
+    assert "sensitivity.complementary-peak" in rules  # still from baseline (extends)
+    gain = rules["margin.gain"]
+    assert gain["limit"] == 8.0 and gain["unit"] == "dB"
+    assert gain["measured"] == pytest.approx(db(2.0), abs=1e-6)
+    assert gain["frequency_hz"] == pytest.approx(hz(math.sqrt(2)), rel=1e-6)
+    assert code == 1
+
+
+def test_closed_loop_stability_cannot_be_off(tmp_path):
+    ruleset = '[ruleset]\nname = "x"\nextends = "baseline"\n\n' \
+              '[rules."stability.closed-loop"]\nseverity = "off"\n'
+    folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
+    err = bad(folder)
+    assert re.search(r"house\.toml:6:\d+", err), err  # the severity line
+    assert "stability.closed-loop" in err
+
+
+def test_overrides_by_glob_and_tags_in_order(tmp_path):
+    # Three copies of the K = 3 loop (PM ~ 20.04 deg, closed form above).
+    # override 1 (glob "a.*"): min_deg 10; override 2 (tag "late"): min_deg 25.
+    # a.one: only override 1 -> passes; a.two: both, the later wins -> fails
+    # at 25; b.one: only override 2 -> fails at 25; c.one: neither -> baseline 30.
+    ruleset = """\
+[ruleset]
+name = "house"
+extends = "baseline"
+
+[[overrides]]
+loops = ["a.*"]
+rules = { "margin.phase" = { min_deg = 10.0 } }
+
+[[overrides]]
+tags = ["late"]
+rules = { "margin.phase" = { min_deg = 25.0 } }
+"""
+    loops = (loop("a.one", "third", "c") + loop("a.two", "third", "c", extra='tags = ["late"]\n')
+             + loop("b.one", "third", "c", extra='tags = ["late"]\n') + loop("c.one", "third", "c"))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops, ruleset="house.toml"),
+                              "plants.toml": PLANTS, "ctl.toml": p_table("c", 3.0),
+                              "house.toml": ruleset})
+    _, report, _ = check(folder)
+    limits = {f["loop"]: f["limit"] for f in report["findings"] if f["rule"] == "margin.phase"}
+    assert limits == {"a.two": 25.0, "b.one": 25.0, "c.one": 30.0}
+
+
+WAIVER_RULESET = """\
+[ruleset]
+name = "house"
+extends = "baseline"
+
+[[waivers]]
+rule = "margin.gain"
+loops = ["a.*"]
+reason = "fixture-limited travel; accepted at design review"
+expires = 2027-03-01
+
+[[waivers]]
+rule = "margin.delay"
+loops = ["nothing.*"]
+reason = "never matches"
+
+[[waivers]]
+rule = "sensitivity.peak"
+loops = ["a.loop"]
+reason = "no expires key: section 4 requires only a reason"
+"""
+
+
+def test_waivers_through_expiry_day_and_unused(tmp_path):
+    # The K = 5 loop: GM = 6/5 = 1.58 dB < 6 (Routh-Hurwitz): margin.gain fires.
+    folder = simple_project(tmp_path, 5.0, ruleset="house.toml",
+                            files={"house.toml": WAIVER_RULESET})
+    _, on_day, _ = check(folder, "--as-of", "2027-03-01")
+    gain = [f for f in on_day["findings"] if f["rule"] == "margin.gain"]
+    assert gain and all(f["waived"] for f in gain)
+    assert gain[0]["measured"] == pytest.approx(db(1.2), abs=1e-6)
+    assert not any(f["rule"] == "waiver.expired" for f in on_day["findings"])
+    unused = [f for f in on_day["findings"] if f["rule"] == "waiver.unused"]
+    assert len(unused) == 1 and unused[0]["severity"] == "note"
+    assert unused[0]["location"]["file"] == "house.toml"
+
+    peak = [f for f in on_day["findings"] if f["rule"] == "sensitivity.peak"]
+    assert peak and all(f["waived"] for f in peak)
+
+    _, after, _ = check(folder, "--as-of", "2027-03-02")
+    peak = [f for f in after["findings"] if f["rule"] == "sensitivity.peak"]
+    assert peak and all(f["waived"] for f in peak)  # a waiver without expiry never expires
+    gain = [f for f in after["findings"] if f["rule"] == "margin.gain"]
+    assert gain and not any(f["waived"] for f in gain)
+    expired = [f for f in after["findings"] if f["rule"] == "waiver.expired"]
+    assert len(expired) == 1 and expired[0]["severity"] == "warning"
+    assert "margin.gain" in expired[0]["message"]
+    assert expired[0]["location"]["file"] == "house.toml"
+    assert after["summary"]["waived"] == on_day["summary"]["waived"] - len(gain)
+
+
+def test_only_and_skip_by_id_and_family(tmp_path):
+    # K = 3 loop: margin.phase, sensitivity.peak and sensitivity.complementary-peak fail.
+    folder = simple_project(tmp_path, 3.0)
+    _, full, _ = check(folder)
+    rules = {f["rule"] for f in full["findings"]}
+    assert {"margin.phase", "sensitivity.peak", "sensitivity.complementary-peak"} <= rules
+    _, fam, _ = check(folder, "--only", "sensitivity")
+    assert {f["rule"] for f in fam["findings"]} == {"sensitivity.peak",
+                                                    "sensitivity.complementary-peak"}
+    _, one, _ = check(folder, "--only", "margin.phase")
+    assert {f["rule"] for f in one["findings"]} == {"margin.phase"}
+    _, two, _ = check(folder, "--only", "margin.phase", "--only", "sensitivity.peak")
+    assert {f["rule"] for f in two["findings"]} == {"margin.phase", "sensitivity.peak"}
+    _, skip_fam, _ = check(folder, "--skip", "sensitivity")
+    assert {f["rule"] for f in skip_fam["findings"]} == rules - {
+        "sensitivity.peak", "sensitivity.complementary-peak"}
+    _, skip_id, _ = check(folder, "--skip", "margin.phase")
+    assert {f["rule"] for f in skip_id["findings"]} == rules - {"margin.phase"}
+
+
+# ---------------------------------------------------- exit status (section 6)
+
+def test_exit_status_and_fail_at(tmp_path):
+    # K = 1: GM 20 log10(6) = 15.6 dB, PM 53.4 deg (cubic above), Ms < 6 dB:
+    # baseline passes, exit 0. A house rule at warning/note severity with a
+    # limit above the PM gives exactly one finding of that severity.
+    assert check(simple_project(tmp_path / "clean", 1.0))[0] == 0
+    for severity, levels in (("warning", {"error": 0, "warning": 1, "note": 1}),
+                             ("note", {"error": 0, "warning": 0, "note": 1})):
+        ruleset = (f'[ruleset]\nname = "x"\nextends = "baseline"\n\n[rules."margin.phase"]\n'
+                   f'min_deg = 80.0\nseverity = "{severity}"\n')
+        folder = simple_project(tmp_path / severity, 1.0, ruleset="house.toml",
+                                files={"house.toml": ruleset})
+        for level, expected in levels.items():
+            code, report, _ = check(folder, "--fail-at", level)
+            assert code == expected, (severity, level)
+            assert [f["severity"] for f in report["findings"]] == [severity]
+    assert check(simple_project(tmp_path / "bad", 12.0))[0] == 1
+
+
+def test_invalid_inputs_exit_2_naming_the_place(tmp_path):
+    plants = PLANTS + '\n[plants.odd]\nkind = "no_such_kind"\n'
+    folder = simple_project(tmp_path, 1.0, "odd", files={"plants.toml": plants})
+    err = bad(folder)
+    assert re.search(r"plants\.toml:\d+:\d+", err), err
+    # a biquad with a[0] = 0 is an input error (section 3)
+    ctl = '[c]\nkind = "pid"\nkp = 1.0\nki = 0.0\n[[c.filters]]\nkind = "biquad"\n' \
+          'b = [1.0, 0.0, 0.0]\na = [0.0, 1.0, 0.0]\n'
+    folder = simple_project(tmp_path / "bq", 1.0, extra="sample_rate_hz = 100.0\n",
+                            files={"ctl.toml": ctl})
+    err = bad(folder)
+    assert re.search(r"ctl\.toml:\d+:\d+", err), err
+    # a required key that is missing (kp of a parallel PID)
+    folder = simple_project(tmp_path / "miss", 1.0, files={"ctl.toml": '[c]\nkind = "pid"\n'})
+    err = bad(folder)
+    assert "ctl.toml" in err
+
+
+@pytest.mark.skipif(shutil.which("ruleguard") is None, reason="console script not installed")
+def test_installed_command_exit_statuses(tmp_path):
+    # the real console script, as a CI job would call it
+    ok = simple_project(tmp_path / "ok", 1.0)
+    fail = simple_project(tmp_path / "fail", 12.0)
+    broken = simple_project(tmp_path / "broken", 1.0, extra="delay_samples = 1.0\n")
+    results = {}
+    for name, folder in (("ok", ok), ("fail", fail), ("broken", broken)):
+        proc = subprocess.run([shutil.which("ruleguard"), "check", "--format", "json",
+                               "--no-cache"], cwd=folder, capture_output=True, text=True,
+                              timeout=60)
+        results[name] = proc
+    assert results["ok"].returncode == 0
+    assert results["fail"].returncode == 1
+    assert json.loads(results["fail"].stdout)["summary"]["result"] == "fail"
+    assert results["broken"].returncode == 2
+    assert "Traceback" not in results["broken"].stderr
+    assert "delay_samples" in results["broken"].stderr
+
+
+def test_module_entry_point(tmp_path):
+    folder = simple_project(tmp_path, 3.0)
+    proc = subprocess.run([sys.executable, "-m", "ruleguard", "check", "--manifest",
+                           str(folder / "ruleguard.toml"), "--format", "json", "--no-cache"],
+                          capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 1
+    report = json.loads(proc.stdout)
+    assert_contract(report, proc.returncode)
+    assert report["loops"][0]["variants"][0]["margins"]["gain_margin_db"] == pytest.approx(
+        db(2.0), abs=1e-6)
