@@ -1418,3 +1418,306 @@ def test_module_entry_point(tmp_path):
     assert_contract(report, proc.returncode)
     assert report["loops"][0]["variants"][0]["margins"]["gain_margin_db"] == pytest.approx(
         db(2.0), abs=1e-6)
+
+
+# ------------------------------------------------------- further statements
+
+def test_whole_and_fractional_sample_delays_closed_form(tmp_path):
+    # g/s with g = 50 at h = 0.01 s. One whole sample: L = 0.5/(z (z - 1)),
+    # z^2 - z + c 0.5 = 0 by Jury's test (Astrom & Wittenmark, Computer-
+    # Controlled Systems, 1997, from memory): stable iff c 0.5 < 1, so GM = 2,
+    # and at c = 2 the roots are e^{+-j pi/3}: f = fs/6. z^-1 has unit
+    # magnitude, so the crossover stays and the delay margin drops by exactly
+    # one sample. Half a sample (ZOH derivation: over one period the held
+    # input u_{k-1} acts for f h and u_k for (1 - f) h, so G = g h ((1-f) z +
+    # f)/(z (z-1))): L = 0.25 (z + 1)/(z (z - 1)); z^2 + (0.25c - 1) z + 0.25c:
+    # stable iff c < 4 (Jury), at c = 4 z = +-j: GM 4 at fs/4. The same half
+    # sample given as plant delay_s = 0.005 s is the same loop (section 1).
+    plants = DISCRETE_PLANTS + """
+[plants.ramp50_late]
+kind = "integrator_dead_time"
+gain = 50.0
+delay_s = 0.005
+"""
+    rate = "sample_rate_hz = 100.0\n"
+    loops = (loop("d.zero", "ramp50", "c", extra=rate)
+             + loop("d.one", "ramp50", "c", extra=rate + "delay_samples = 1.0\n")
+             + loop("d.half", "ramp50", "c", extra=rate + "delay_samples = 0.5\n")
+             + loop("d.plant_half", "ramp50_late", "c", extra=rate))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": p_table("c", 1.0)})
+    _, report, _ = check(folder)
+    zero, one = only_variant(report, "d.zero")["margins"], only_variant(report, "d.one")["margins"]
+    assert one["gain_margin_db"] == pytest.approx(db(2.0), abs=1e-6)
+    assert one["gain_margin_hz"] == pytest.approx(100.0 / 6, rel=1e-6)
+    assert one["crossover_hz"] == pytest.approx(zero["crossover_hz"], rel=1e-6)
+    assert one["delay_margin_samples"] == pytest.approx(zero["delay_margin_samples"] - 1.0,
+                                                        abs=1e-6)
+    half = only_variant(report, "d.half")["margins"]
+    assert half["gain_margin_db"] == pytest.approx(db(4.0), abs=1e-6)
+    assert half["gain_margin_hz"] == pytest.approx(25.0, rel=1e-6)
+    _margins_equal(half, only_variant(report, "d.plant_half")["margins"], "plant delay")
+    totals = {lp["name"]: lp["analysis"]["total_delay_s"] for lp in report["loops"]}
+    assert totals == pytest.approx({"d.zero": 0.0, "d.one": 0.01, "d.half": 0.005,
+                                    "d.plant_half": 0.005})
+
+
+def test_continuous_loop_delay_s(tmp_path):
+    # a continuous loop's own delay_s (section 1): 1/s with loop delay 0.5 s is
+    # the integrator with dead time above: PM = 90 deg - deg(0.5), GM = pi.
+    plants = PLANTS + '\n[plants.integ]\nkind = "integrator_dead_time"\ngain = 1.0\n' \
+                      'delay_s = 0.0\n'
+    folder = simple_project(tmp_path, 1.0, "integ", extra="delay_s = 0.5\n",
+                            files={"plants.toml": plants})
+    _, report, _ = check(folder)
+    m = only_variant(report)["margins"]
+    assert m["phase_margin_deg"] == pytest.approx(90.0 - math.degrees(0.5), abs=1e-5)
+    assert m["gain_margin_db"] == pytest.approx(db(math.pi), abs=1e-5)
+    assert report["loops"][0]["analysis"]["total_delay_s"] == pytest.approx(0.5)
+
+
+def test_cascade_uses_the_inner_plant_output(tmp_path):
+    # inner: C = 9, G = 1/(s + 1), sensor H = 2: T = C G/(1 + C G H) = 9/(s + 19)
+    # (section 1; the sensed output would give 18/(s + 19)). Outer: C = 10,
+    # G = 1/s: L = 90/(s (s + 19)); |L| = 1: x^2 + 361 x - 8100 = 0, x = w^2.
+    plants = PLANTS + """
+[plants.lag1]
+kind = "zero_pole_gain"
+gain = 1.0
+zeros = []
+poles = [-1.0]
+
+[plants.two]
+kind = "transfer_function"
+numerator = [2.0]
+denominator = [1.0]
+
+[plants.integ]
+kind = "integrator_dead_time"
+gain = 1.0
+delay_s = 0.0
+"""
+    loops = (loop("in.loop", "lag1", "inner", extra='sensor = "two"\n')
+             + loop("out.loop", "integ", "outer", extra='inner = "in.loop"\n'))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": p_table("inner", 9.0) + p_table("outer", 10.0)})
+    _, report, _ = check(folder)
+    x = (-361 + math.sqrt(361 ** 2 + 4 * 8100)) / 2
+    wc = math.sqrt(x)
+    m = only_variant(report, "out.loop")["margins"]
+    assert m["crossover_hz"] == pytest.approx(hz(wc), rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(90 - math.degrees(math.atan(wc / 19)),
+                                                  abs=1e-5)
+    # the inner loop itself: L = 18/(s + 1): crossover sqrt(18^2 - 1)
+    inner = only_variant(report, "in.loop")["margins"]
+    assert inner["crossover_hz"] == pytest.approx(hz(math.sqrt(323)), rel=1e-6)
+
+
+def test_static_loop_unbounded_margins_and_disk_closed_form(tmp_path):
+    # L = 0.5 (static): |L| < 1, no crossover: PM, crossover, delay margin null
+    # (unbounded); no phase crossing: GM null; S = 1/1.5 (-3.52 dB); disk
+    # margin alpha = 2/|(1 - L)/(1 + L)| = 2/(1/3) = 6 >= 2: gain range
+    # unbounded (null, null), phase 2 atan(3) (Seiler, Packard & Gahinet 2020).
+    _, report, _ = check(simple_project(tmp_path, 0.5, "unit"))
+    v = only_variant(report)
+    m = v["margins"]
+    assert v["stability"]["stable"] is True
+    for key in ("phase_margin_deg", "crossover_hz", "delay_margin_s", "gain_margin_db",
+                "lower_gain_margin_db"):
+        assert m[key] is None, key
+    assert m["crossovers"] == []
+    assert m["stable_gain_ranges_db"] == [[None, None]]
+    assert m["sensitivity_peak_db"] == pytest.approx(db(1 / 1.5), abs=1e-6)
+    disk = m["disk_margin"]
+    assert disk["alpha"] == pytest.approx(6.0, rel=1e-6)
+    assert disk["gain_range_db"] == [None, None]
+    assert disk["phase_deg"] == pytest.approx(math.degrees(2 * math.atan(3.0)), rel=1e-6)
+
+
+def test_measured_linear_magnitude(tmp_path):
+    # magnitude_unit = "abs": the same data as linear magnitudes give the
+    # same GM 6.02 dB (Routh-Hurwitz, K = 3).
+    f = np.logspace(-3, 2, 2000)
+    s = 2j * np.pi * f
+    g = 1 / (s * (s + 1) * (s + 2))
+    rows = ["freq_hz,magnitude_db,phase_deg"] + [
+        f"{float(a)!r},{float(abs(x))!r},{float(np.degrees(np.angle(x)))!r}"
+        for a, x in zip(f, g, strict=True)]
+    plants = PLANTS + """
+[plants.swept]
+kind = "measured_response"
+file = "data/sweep_abs.csv"
+magnitude_unit = "abs"
+unstable_poles = 0
+integrators = 1
+"""
+    folder = simple_project(tmp_path, 3.0, "swept", files={
+        "plants.toml": plants, "data/sweep_abs.csv": "\n".join(rows) + "\n"})
+    _, report, _ = check(folder)
+    assert only_variant(report)["margins"]["gain_margin_db"] == pytest.approx(db(2.0), abs=0.02)
+
+
+def test_pid_variants_defaults_and_discrete_derivative(tmp_path):
+    # standard form: n defaults to 10 (section 3), so n = 10 and no n agree;
+    # no ti_s means no integral action: gain 3 without ti_s is the K = 3 loop
+    # of 1/(s(s+1)(s+2)) with a filtered derivative td = 0 -> GM 6.02 dB.
+    ctl = """\
+[std10]
+kind = "pid"
+form = "standard"
+gain = 0.5
+ti_s = 4.0
+td_s = 0.5
+n = 10.0
+
+[stdn]
+kind = "pid"
+form = "standard"
+gain = 0.5
+ti_s = 4.0
+td_s = 0.5
+
+[pure]
+kind = "pid"
+form = "standard"
+gain = 3.0
+td_s = 0.0
+
+[raw_tustin]
+kind = "pid"
+kp = 1.0
+ki = 0.0
+kd = 0.001
+discretization = "tustin"
+
+[raw_euler]
+kind = "pid"
+kp = 1.0
+ki = 0.0
+kd = 0.001
+discretization = "backward_euler"
+
+[plain]
+kind = "pid"
+kp = 1.0
+ki = 0.0
+"""
+    plants = PLANTS + '\n[plants.lag]\nkind = "zero_pole_gain"\ngain = 5.0\nzeros = []\n' \
+                      'poles = [-5.0]\n'
+    rate = "sample_rate_hz = 1000.0\n"
+    loops = (loop("s.n10", "third", "std10") + loop("s.ndef", "third", "stdn")
+             + loop("s.pure", "third", "pure")
+             + loop("d.tustin", "lag", "raw_tustin", extra=rate)
+             + loop("d.euler", "lag", "raw_euler", extra=rate)
+             + loop("d.plain", "lag", "plain", extra=rate))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    _margins_equal(only_variant(report, "s.n10")["margins"],
+                   only_variant(report, "s.ndef")["margins"], "n default")
+    assert only_variant(report, "s.pure")["margins"]["gain_margin_db"] == pytest.approx(
+        db(2.0), abs=1e-6)
+    deriv = {f["loop"] for f in report["findings"] if f["rule"] == "controller.derivative-filter"}
+    # Tustin puts a pole at z = -1: reported; backward Euler is allowed (the
+    # loop is analysed; whether the rule may still flag the missing filter is
+    # left to RULES.md: "a derivative term has a filter")
+    assert "d.tustin" in deriv
+    by_name = {lp["name"]: lp for lp in report["loops"]}
+    assert by_name["d.euler"]["analysed"]
+    # default discretization: documented, and the method used is reported
+    assert isinstance(by_name["d.plain"]["analysis"]["discretization"]["controller"], str)
+
+
+def test_notch_prewarp(tmp_path):
+    # A notch at 200 Hz sampled at 1 kHz: plain Tustin maps it to (fs/pi)
+    # atan(pi f/fs) = 178.6 Hz (frequency warping; Oppenheim & Schafer,
+    # Discrete-Time Signal Processing, 3rd ed. 2010), a 10.7 % shift that
+    # filter.below-nyquist reports (limit 2 %); tustin_prewarp prewarps at the
+    # notch centre (section 3), so no shift.
+    ctl = ""
+    for method in ("tustin", "tustin_prewarp"):
+        ctl += (f'[n_{method}]\nkind = "pid"\nkp = 1.0\nki = 0.0\n'
+                f'discretization = "{method}"\n[[n_{method}.filters]]\nkind = "notch"\n'
+                'center_hz = 200.0\nwidth_hz = 40.0\ndepth_db = 20.0\n\n')
+    plants = PLANTS + '\n[plants.lag]\nkind = "zero_pole_gain"\ngain = 5.0\nzeros = []\n' \
+                      'poles = [-5.0]\n'
+    rate = "sample_rate_hz = 1000.0\n"
+    loops = loop("n.plain", "lag", "n_tustin", extra=rate) + loop("n.warp", "lag",
+                                                                  "n_tustin_prewarp", extra=rate)
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    loops_flagged = {f["loop"] for f in report["findings"] if f["rule"] == "filter.below-nyquist"}
+    assert loops_flagged == {"n.plain"}
+    by_name = {lp["name"]: lp for lp in report["loops"]}
+    assert by_name["n.warp"]["analysis"]["discretization"]["filters"] == ["tustin_prewarp"]
+
+
+def test_bounds_of_controller_fields(tmp_path):
+    # manifest bounds = { kp = [0.5, 4.0] } and kp = 5: config.bounds fires
+    # (section 1); kp = 3 passes it.
+    folder = simple_project(tmp_path / "out", 5.0, extra="bounds = { kp = [0.5, 4.0] }\n")
+    _, report, _ = check(folder)
+    hits = [f for f in report["findings"] if f["rule"] == "config.bounds"]
+    assert len(hits) == 1 and hits[0]["measured"] == 5.0
+    assert hits[0]["location"]["file"] == "ctl.toml"
+    folder = simple_project(tmp_path / "in", 3.0, extra="bounds = { kp = [0.5, 4.0] }\n")
+    _, report, _ = check(folder)
+    assert not any(f["rule"] == "config.bounds" for f in report["findings"])
+
+
+def test_required_ccw_default_is_p_and_lower_gain_rule(tmp_path):
+    # 4/(s - 1): P = 1 and one ccw encirclement (closed form above): by default
+    # required_ccw = P, so no stability.encirclements finding; the lower gain
+    # margin is -12.04 dB, inside the baseline -6 dB limit, so margin.gain only
+    # fires with min_lower_db = 15.
+    _, report, _ = check(simple_project(tmp_path / "a", 4.0, "unstable1"))
+    assert not any(f["rule"] in ("stability.encirclements", "margin.gain")
+                   for f in report["findings"])
+    ruleset = '[ruleset]\nname = "x"\nextends = "baseline"\n\n[rules."margin.gain"]\n' \
+              'min_lower_db = 15.0\n'
+    _, report, _ = check(simple_project(tmp_path / "b", 4.0, "unstable1", ruleset="house.toml",
+                                        files={"house.toml": ruleset}))
+    hits = [f for f in report["findings"] if f["rule"] == "margin.gain"]
+    assert hits and abs(hits[0]["measured"]) == pytest.approx(12.0412, abs=1e-3)
+
+
+def test_extends_chain_by_path_later_wins(tmp_path):
+    # house.toml extends baseline (margin.gain min 8 dB, phase 10 deg);
+    # team.toml extends house.toml by path and sets margin.gain min 5 dB:
+    # the K = 3 loop's GM 6.02 dB then passes (Routh-Hurwitz), phase still 10.
+    house = ('[ruleset]\nname = "house"\nextends = "baseline"\n\n[rules."margin.phase"]\n'
+             'min_deg = 10.0\n\n[rules."margin.gain"]\nmin_db = 8.0\n')
+    team = ('[ruleset]\nname = "team"\nextends = "house.toml"  # relative to this file\n\n'
+            '[rules."margin.gain"]\nmin_db = 5.0\n')
+    folder = simple_project(tmp_path, 3.0, ruleset="policy/team.toml",
+                            files={"policy/house.toml": house, "policy/team.toml": team})
+    _, report, _ = check(folder)
+    rules = {f["rule"] for f in report["findings"]}
+    assert "margin.gain" not in rules and "margin.phase" not in rules
+
+
+def test_all_errors_waived_exit_zero(tmp_path):
+    # --only margin.phase on the K = 3 loop (PM 20 deg < 30): one error; a
+    # waiver makes it waived: exit 0, errors 0, waived 1 (sections 5 and 6).
+    ruleset = ('[ruleset]\nname = "x"\nextends = "baseline"\n\n[[waivers]]\n'
+               'rule = "margin.phase"\nloops = ["a.*"]\nreason = "reviewed"\n'
+               'expires = 2027-03-01\n')
+    folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
+    code, report, _ = check(folder, "--only", "margin.phase", "--as-of", "2027-01-01")
+    assert code == 0
+    assert (report["summary"]["errors"], report["summary"]["waived"]) == (0, 1)
+    code, report, _ = check(folder, "--only", "margin.phase", "--as-of", "2027-03-02")
+    assert code == 1 and report["summary"]["errors"] == 1
+
+
+def test_parameters_may_not_shadow_constants(tmp_path):
+    plants = PLANTS + """
+[plants.shadow]
+kind = "transfer_function"
+numerator = ["pi"]
+denominator = [1.0, 1.0]
+parameters = { pi = 3.0 }
+"""
+    err = bad(simple_project(tmp_path, 1.0, "shadow", files={"plants.toml": plants}))
+    assert re.search(r"plants\.toml:\d+:\d+", err), err
