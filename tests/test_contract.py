@@ -27,7 +27,7 @@ import tomllib
 
 from ruleguard.cli import run
 
-DATA = Path(__file__).parent / "data" / "contract"
+DATA = Path(__file__).parent / "data" / "contract"  # small projects of these tests
 
 # ------------------------------------------------------------------ helpers
 
@@ -1721,3 +1721,25 @@ parameters = { pi = 3.0 }
 """
     err = bad(simple_project(tmp_path, 1.0, "shadow", files={"plants.toml": plants}))
     assert re.search(r"plants\.toml:\d+:\d+", err), err
+
+
+@pytest.mark.skipif(shutil.which("ruleguard") is None, reason="console script not installed")
+def test_installed_command_finds_the_manifest_above_and_writes_no_input(tmp_path):
+    # section 1: `ruleguard check` finds the manifest in the current folder or
+    # its parents; section 6: it never writes to an input file. The project:
+    # K = 3 and K = 12 on 1/(s(s+1)(s+2)) (Routh-Hurwitz: stable iff K < 6).
+    project = tmp_path / "third_order"
+    shutil.copytree(DATA / "third_order", project)
+    inputs = {p: p.read_bytes() for p in project.rglob("*") if p.is_file()}
+    proc = subprocess.run([shutil.which("ruleguard"), "check", "--format", "json"],
+                          cwd=project / "firmware", capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 1, proc.stderr
+    report = json.loads(proc.stdout)
+    assert_contract(report, 1)
+    stable = only_variant(report, "third.stable")
+    unstable = only_variant(report, "third.unstable")
+    assert stable["margins"]["gain_margin_db"] == pytest.approx(db(2.0), abs=1e-6)
+    assert unstable["stability"]["closed_loop_unstable_poles"] == 2
+    assert {f["location"]["file"] for f in report["findings"]
+            if f["rule"] == "stability.closed-loop"} == {"firmware/gains.toml"}
+    assert {p: p.read_bytes() for p in inputs} == inputs
