@@ -1777,3 +1777,54 @@ def test_corner_limit(tmp_path):
         assert "Traceback" not in err and "ruleguard.toml" in err
     else:
         assert len(json.loads(out)["loops"][0]["variants"]) <= 1 + 2 ** 10
+
+
+def test_measured_plant_with_declared_unstable_pole(tmp_path):
+    # Data of 1/(s - 1) with unstable_poles = 1 (the data cannot show it): P
+    # is as declared; kp = 4 closes it stably with one ccw encirclement, lower
+    # gain margin 20 log10(1/4) (closed-loop pole s = 1 - K, stable iff K > 1).
+    f = np.logspace(-4, 3, 3000)
+    g = 1 / (2j * np.pi * f - 1)
+    rows = ["freq_hz,magnitude_db,phase_deg"] + [
+        f"{float(a)!r},{float(20 * np.log10(abs(x)))!r},{float(np.degrees(np.angle(x)))!r}"
+        for a, x in zip(f, g, strict=True)]
+    plants = PLANTS + """
+[plants.swept]
+kind = "measured_response"
+file = "sweep.csv"
+unstable_poles = 1
+integrators = 0
+"""
+    folder = simple_project(tmp_path, 4.0, "swept", files={
+        "plants.toml": plants, "sweep.csv": "\n".join(rows) + "\n"})
+    _, report, _ = check(folder)
+    v = only_variant(report)
+    assert (v["stability"]["open_loop_unstable_poles"], v["stability"]["ccw_encirclements"],
+            v["stability"]["stable"]) == (1, 1, True)
+    assert v["margins"]["lower_gain_margin_db"] == pytest.approx(db(0.25), abs=0.02)
+
+
+@pytest.mark.parametrize("name", ["baseline", "motion", "process", "power", "flight"])
+def test_built_in_rulesets_load(tmp_path, name):
+    # section 4: built-in rulesets ship in the package; the unstable K = 12
+    # loop (Routh-Hurwitz) fails stability.closed-loop, always an error.
+    code, report, _ = check(simple_project(tmp_path, 12.0, ruleset=name))
+    assert code == 1
+    assert any(f["rule"] == "stability.closed-loop" and f["severity"] == "error"
+               for f in report["findings"])
+
+
+def test_other_formats_keep_the_exit_status(tmp_path):
+    # section 5 "Other formats": text (default), sarif (SARIF 2.1.0), junit, markdown
+    import xml.etree.ElementTree as ET
+
+    folder = simple_project(tmp_path, 12.0)
+    base = ["check", "--manifest", str(folder / "ruleguard.toml"), "--no-cache"]
+    code, out, _ = cli(base)
+    assert code == 1 and "a.loop" in out
+    code, out, _ = cli([*base, "--format", "sarif"])
+    assert code == 1 and json.loads(out)["version"] == "2.1.0"
+    code, out, _ = cli([*base, "--format", "junit"])
+    assert code == 1 and ET.fromstring(out) is not None
+    code, out, _ = cli([*base, "--format", "markdown"])
+    assert code == 1 and "a.loop" in out
