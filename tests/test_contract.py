@@ -1828,3 +1828,15 @@ def test_other_formats_keep_the_exit_status(tmp_path):
     assert code == 1 and ET.fromstring(out) is not None
     code, out, _ = cli([*base, "--format", "markdown"])
     assert code == 1 and "a.loop" in out
+
+
+def test_delay_samples_error_in_a_json_manifest(tmp_path):
+    # the same input error located in a JSON manifest (file, line, column, key)
+    data = tomllib.loads(manifest(loop("a.loop", "third", "c", extra="delay_samples = 1.0\n")))
+    text = json.dumps(data, indent=2)
+    write(tmp_path, {"ruleguard.json": text, "plants.toml": PLANTS,
+                     "ctl.toml": p_table("c", 1.0)})
+    err = bad(tmp_path, "ruleguard.json")
+    line = 1 + [i for i, row in enumerate(text.splitlines()) if "delay_samples" in row][0]
+    assert re.search(rf"ruleguard\.json:{line}:\d+", err), err
+    assert "delay_samples" in err
