@@ -1840,3 +1840,38 @@ def test_delay_samples_error_in_a_json_manifest(tmp_path):
     line = 1 + [i for i, row in enumerate(text.splitlines()) if "delay_samples" in row][0]
     assert re.search(rf"ruleguard\.json:{line}:\d+", err), err
     assert "delay_samples" in err
+
+
+def test_two_stable_gain_windows_in_increasing_order(tmp_path):
+    # L = K (s^2 + 0.4 s + 5.3)/(s (s^2 + 0.65 s + 2)(s/6 + 1)^2): the closed
+    # loop is stable for small K, unstable, stable again in a window around
+    # K = 12, then unstable (numpy.roots of den + K num; boundaries by scipy
+    # brentq on the largest real part, an independent computation). At K = 12
+    # the report must list both windows in increasing order (dB relative to
+    # K = 12), and the one containing 0 dB gives both gain margins.
+    from scipy.optimize import brentq
+
+    num = np.array([1.0, 0.4, 5.3])
+    den = np.polymul(np.polymul([1.0, 0.0], [1.0, 0.65, 2.0]),
+                     np.polymul([1 / 6, 1.0], [1 / 6, 1.0]))
+
+    def growth(k: float) -> float:
+        return float(np.max(np.roots(np.polyadd(den, k * num)).real))
+
+    edges = [brentq(growth, a, b, xtol=1e-12) for a, b in ((0.2, 0.5), (9.0, 12.0),
+                                                             (12.0, 16.0))]
+    k = 12.0
+    plants = PLANTS + (f'\n[plants.windows]\nkind = "transfer_function"\n'
+                       f"numerator = {json.dumps(list(num))}\n"
+                       f"denominator = {json.dumps([float(x) for x in den])}\n")
+    _, report, _ = check(simple_project(tmp_path, k, "windows", files={"plants.toml": plants}))
+    v = only_variant(report)
+    assert v["stability"]["stable"] is True
+    ranges = v["margins"]["stable_gain_ranges_db"]
+    expected = [[None, db(edges[0] / k)], [db(edges[1] / k), db(edges[2] / k)]]
+    assert len(ranges) == 2
+    for got, want in zip(ranges, expected, strict=True):
+        assert got[0] == (None if want[0] is None else pytest.approx(want[0], abs=1e-4))
+        assert got[1] == pytest.approx(want[1], abs=1e-4)
+    assert v["margins"]["gain_margin_db"] == pytest.approx(db(edges[2] / k), abs=1e-4)
+    assert v["margins"]["lower_gain_margin_db"] == pytest.approx(db(edges[1] / k), abs=1e-4)
