@@ -1875,3 +1875,57 @@ def test_two_stable_gain_windows_in_increasing_order(tmp_path):
         assert got[1] == pytest.approx(want[1], abs=1e-4)
     assert v["margins"]["gain_margin_db"] == pytest.approx(db(edges[2] / k), abs=1e-4)
     assert v["margins"]["lower_gain_margin_db"] == pytest.approx(db(edges[1] / k), abs=1e-4)
+
+
+def test_measured_interpolation_log_frequency_db_and_unwrapped_phase(tmp_path):
+    # Four points; between them linear in log10 f on dB and unwrapped phase
+    # (section 2). The phase is written wrapped (100 deg = -260 deg). kp = 1.
+    # |L| = 0 dB between 1 Hz (+6 dB) and 10 Hz (-14 dB) at log10 f = 0.3;
+    # phase there -90 - 170 * 0.3 = -141 deg: PM 38.8 deg. Phase -180 at
+    # log10 f = 90/170, where the magnitude is 6 - 20 * 90/170 dB: GM = minus that.
+    csv = ("freq_hz,magnitude_db,phase_deg\n0.1,26.0,-90.0\n1.0,6.0,-90.0\n"
+           "10.0,-14.0,100.0\n100.0,-34.0,100.0\n")
+    plants = PLANTS + """
+[plants.swept]
+kind = "measured_response"
+file = "pts.csv"
+unstable_poles = 0
+integrators = 1
+"""
+    folder = simple_project(tmp_path, 1.0, "swept", files={"plants.toml": plants,
+                                                           "pts.csv": csv})
+    _, report, _ = check(folder)
+    v = only_variant(report)
+    m = v["margins"]
+    x_c = 0.3
+    x_180 = 90.0 / 170.0
+    assert v["stability"]["stable"] is True
+    assert m["crossover_hz"] == pytest.approx(10 ** x_c, rel=1e-6)
+    assert m["phase_margin_deg"] == pytest.approx(180.0 - 90.0 - 170.0 * x_c, abs=1e-4)
+    assert m["gain_margin_hz"] == pytest.approx(10 ** x_180, rel=1e-6)
+    assert m["gain_margin_db"] == pytest.approx(-(6.0 - 20.0 * x_180), abs=1e-4)
+
+
+def test_more_invalid_manifests(tmp_path):
+    # duplicate loop names, a wrong type, a file reached through a symlink
+    # leading outside the folder, a bad --as-of date: exit 2 with the place.
+    dup = manifest(loop("a.loop", "third", "c") + loop("a.loop", "third", "c"))
+    err = bad(write(tmp_path / "dup", {"ruleguard.toml": dup, "plants.toml": PLANTS,
+                                       "ctl.toml": p_table("c", 1.0)}))
+    assert re.search(r"ruleguard\.toml:\d+:\d+", err), err
+    wrong = manifest(loop("a.loop", "third", "c", extra='sample_rate_hz = "fast"\n'))
+    err = bad(write(tmp_path / "type", {"ruleguard.toml": wrong, "plants.toml": PLANTS,
+                                        "ctl.toml": p_table("c", 1.0)}))
+    assert re.search(r"ruleguard\.toml:\d+:\d+", err) and "sample_rate_hz" in err, err
+    write(tmp_path, {"elsewhere.toml": PLANTS})
+    link = write(tmp_path / "link", {"ruleguard.toml": manifest(loop("a.loop", "third", "c")),
+                                     "ctl.toml": p_table("c", 1.0)})
+    (link / "plants.toml").symlink_to(tmp_path / "elsewhere.toml")
+    err = bad(link)
+    assert "plants.toml" in err
+    folder = simple_project(tmp_path / "date", 1.0)
+    code, _, err = cli(["check", "--manifest", str(folder / "ruleguard.toml"), "--as-of",
+                        "2027-13-45"])
+    assert code == 2 and "--as-of" in err and "Traceback" not in err
+    code, _, err = cli(["check", "--manifest", str(tmp_path / "none" / "ruleguard.toml")])
+    assert code == 2 and "Traceback" not in err
