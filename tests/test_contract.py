@@ -1929,3 +1929,26 @@ def test_more_invalid_manifests(tmp_path):
     assert code == 2 and "--as-of" in err and "Traceback" not in err
     code, _, err = cli(["check", "--manifest", str(tmp_path / "none" / "ruleguard.toml")])
     assert code == 2 and "Traceback" not in err
+
+
+def test_no_stabilising_gain_and_peaks_of_an_unstable_loop(tmp_path):
+    # L = c/((s - 1)(s - 2)): closed loop s^2 - 3 s + 2 + c keeps the -3 s
+    # term, never Hurwitz (closed form): Z = 2 = P, ccw = 0, no stable gain
+    # interval at all. |L| <= 1/2: no crossover. The peaks are still given:
+    # Mt = max 1/|(jw)^2 - 3 jw + 3| = 1/3 at w = 0 (the denominator's
+    # modulus squared (3 - w^2)^2 + 9 w^2 = 9 + 3 w^2 + w^4 grows), and Ms on a
+    # numpy grid.
+    plants = PLANTS + '\n[plants.uu]\nkind = "zero_pole_gain"\ngain = 1.0\nzeros = []\n' \
+                      'poles = [1.0, 2.0]\n'
+    _, report, _ = check(simple_project(tmp_path, 1.0, "uu", files={"plants.toml": plants}))
+    v = only_variant(report)
+    st, m = v["stability"], v["margins"]
+    assert (st["stable"], st["open_loop_unstable_poles"], st["ccw_encirclements"],
+            st["closed_loop_unstable_poles"]) == (False, 2, 0, 2)
+    assert m["stable_gain_ranges_db"] == []
+    assert m["crossovers"] == [] and m["phase_margin_deg"] is None
+    assert m["complementary_peak_db"] == pytest.approx(db(1 / 3), abs=1e-6)
+    w = np.logspace(-3, 3, 200001)
+    s = 1j * w
+    ms = np.max(np.abs((s - 1) * (s - 2) / (s * s - 3 * s + 3)))
+    assert m["sensitivity_peak_db"] == pytest.approx(db(ms), abs=1e-4)
