@@ -1952,3 +1952,34 @@ def test_no_stabilising_gain_and_peaks_of_an_unstable_loop(tmp_path):
     s = 1j * w
     ms = np.max(np.abs((s - 1) * (s - 2) / (s * s - 3 * s + 3)))
     assert m["sensitivity_peak_db"] == pytest.approx(db(ms), abs=1e-4)
+
+
+@pytest.mark.parametrize(("fmt", "a", "flagged"), [
+    # q2.4 has steps of 1/16. a1 = 1.40625 is 22.5 steps, a tie: to even ->
+    # 22 steps = 1.375, z^2 + 1.375 z + 0.4375 stays stable (|a1| < 1 + a2,
+    # the stability triangle of a second-order polynomial; Jury's test, from
+    # memory); rounding away would give 1.4375 = 1 + a2, a pole at z = -1.
+    ("q2.4", [1.0, 1.40625, 0.4375], False),
+    # a1 = 1.42 = 22.72 steps rounds to nearest, 23 steps = 1.4375: the pole
+    # at z = -1 (marginal), which quantization.robust reports.
+    ("q2.4", [1.0, 1.42, 0.4375], True),
+    # q1.3 spans [-1, 0.875]: a2 = 0.95 rounds to 1.0 and saturates at
+    # 0.875: z^2 + 0.875 is stable (without saturation 1.0 -> wrapped -1.0
+    # would put poles at +-1).
+    ("q1.3", [1.0, 0.0, 0.95], False),
+])
+def test_fixed_point_rounding_ties_to_even_and_saturation(tmp_path, fmt, a, flagged):
+    # section 3: coefficients of the second-order sections rounded to nearest,
+    # ties to even, and saturated. The same filter in float64 is never flagged.
+    plants = PLANTS + '\n[plants.lag]\nkind = "zero_pole_gain"\ngain = 5.0\nzeros = []\n' \
+                      'poles = [-5.0]\n'
+    found = {}
+    for numeric in (fmt, "float64"):
+        ctl = (f'[c]\nkind = "pid"\nkp = 0.25\nki = 0.0\nnumeric_format = "{numeric}"\n'
+               f'[[c.filters]]\nkind = "biquad"\nb = [0.125, 0.0, 0.0]\na = {json.dumps(a)}\n')
+        folder = simple_project(tmp_path / numeric, 1.0, "lag", extra="sample_rate_hz = 1000.0\n",
+                                files={"plants.toml": plants, "ctl.toml": ctl})
+        _, report, _ = check(folder)
+        assert only_variant(report)["stability"]["stable"] is True
+        found[numeric] = any(f["rule"] == "quantization.robust" for f in report["findings"])
+    assert found == {fmt: flagged, "float64": False}
