@@ -1983,3 +1983,51 @@ def test_fixed_point_rounding_ties_to_even_and_saturation(tmp_path, fmt, a, flag
         assert only_variant(report)["stability"]["stable"] is True
         found[numeric] = any(f["rule"] == "quantization.robust" for f in report["findings"])
     assert found == {fmt: flagged, "float64": False}
+
+
+def test_discretization_methods_closed_form(tmp_path):
+    # An integral-only PID, ki = 50, plant 1 (its ZOH equivalent is 1), fs =
+    # 100 Hz (h = 0.01). Maps of 1/s (Astrom & Wittenmark, Computer-Controlled
+    # Systems, 3rd ed. 1997, sec. 8.2; from memory):
+    #  tustin:         ki h/2 (z+1)/(z-1) = 0.25 (z+1)/(z-1) = -0.25 j cot(t/2)
+    #                  on the circle: |L| = 1 at tan(t/2) = 0.25, phase -90: PM 90
+    #  backward_euler: ki h z/(z-1) = 0.5 z/(z-1) = 0.5 e^{jt/2}/(2j sin(t/2)):
+    #                  crossover sin(t/2) = 0.25, PM = 90 + t/2 deg
+    #  forward_euler:  ki h/(z-1) = 0.5/(z-1): sin(t/2) = 0.25, PM = 90 - t/2
+    #  tustin_prewarp at prewarp_hz = 10: s -> (w0/tan(w0 h/2))(z-1)/(z+1), so
+    #                  the factor is ki tan(w0 h/2)/w0: tan(t/2) = that, PM 90.
+    w0 = 2 * math.pi * 10.0
+    warp = 50.0 * math.tan(w0 * 0.005) / w0
+    cases = {
+        "tustin": (2 * math.atan(0.25), 90.0),
+        "backward_euler": (2 * math.asin(0.25), 90.0 + math.degrees(math.asin(0.25))),
+        "forward_euler": (2 * math.asin(0.25), 90.0 - math.degrees(math.asin(0.25))),
+        "tustin_prewarp": (2 * math.atan(warp), 90.0),
+    }
+    ctl = ""
+    for method in cases:
+        extra = "prewarp_hz = 10.0\n" if method == "tustin_prewarp" else ""
+        ctl += (f'[i_{method}]\nkind = "pid"\nkp = 0.0\nki = 50.0\n'
+                f'discretization = "{method}"\n{extra}\n')
+    rate = "sample_rate_hz = 100.0\n"
+    loops = "".join(loop(f"i.{m}", "unit", f"i_{m}", extra=rate) for m in cases)
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": PLANTS,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    for method, (theta, pm) in cases.items():
+        v = only_variant(report, f"i.{method}")
+        assert v["stability"]["stable"] is True, method
+        m = v["margins"]
+        assert m["crossover_hz"] == pytest.approx(theta * 100.0 / (2 * math.pi), rel=1e-6), method
+        assert m["phase_margin_deg"] == pytest.approx(pm, abs=1e-5), method
+        assert m["delay_margin_samples"] == pytest.approx(math.radians(pm) / theta, rel=1e-6)
+    # Tustin's L is purely imaginary on the unit circle (above), so |1 - L| =
+    # |1 + L| and |S - 1/2| = |1 - L|/(2 |1 + L|) = 1/2: alpha = 2 exactly
+    # (Seiler, Packard & Gahinet 2020): gain range unbounded, phase 90 deg.
+    disk = only_variant(report, "i.tustin")["margins"]["disk_margin"]
+    assert disk["alpha"] == pytest.approx(2.0, rel=1e-9)
+    assert disk["gain_range_db"] == [None, None]
+    assert disk["phase_deg"] == pytest.approx(90.0, rel=1e-9)
+    by_name = {lp["name"]: lp for lp in report["loops"]}
+    assert by_name["i.tustin_prewarp"]["analysis"]["discretization"]["controller"] == \
+        "tustin_prewarp"

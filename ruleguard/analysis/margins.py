@@ -349,6 +349,9 @@ def disk_margin(alpha: float, hz: float | None) -> DiskMargin:
     ``a >= 2``), phase ``2 atan(a/2)``.
     """
     if alpha >= 2.0 * (1.0 - 1e-12):
+        # Unbounded. An alpha a rounding error below 2 is reported as 2, so the
+        # record keeps FORMATS.md section 5: null range exactly when alpha >= 2.
+        alpha = max(float(alpha), 2.0)
         rng: tuple[float | None, float | None] = (None, None)
     else:
         rng = (_db((2.0 - alpha) / (2.0 + alpha)), _db((2.0 + alpha) / (2.0 - alpha)))
