@@ -2031,3 +2031,28 @@ def test_discretization_methods_closed_form(tmp_path):
     by_name = {lp["name"]: lp for lp in report["loops"]}
     assert by_name["i.tustin_prewarp"]["analysis"]["discretization"]["controller"] == \
         "tustin_prewarp"
+
+
+DEMO = Path(__file__).parent.parent / "fixtures" / "gimbal_demo"
+
+
+@pytest.mark.skipif(not DEMO.is_dir(), reason="demo project not present")
+@pytest.mark.parametrize("variants", [None, "{ samples = 5, seed = 11 }"])
+def test_demo_project_report_keeps_the_contract(tmp_path, variants):
+    # the demo (cascades, measured data, dead time, waivers, map/scale) through
+    # every check of assert_contract, with corners and with a Latin hypercube
+    project = tmp_path / "demo"
+    shutil.copytree(DEMO, project)
+    if variants is not None:
+        path = project / "ruleguard.toml"
+        text = path.read_text(encoding="utf-8")
+        assert 'variants = "corners"' in text
+        path.write_text(text.replace('variants = "corners"', f"variants = {variants}"),
+                        encoding="utf-8")
+    _, report, _ = check(project, "--as-of", "2026-12-01")
+    assert report["summary"]["loops"] == len(report["loops"]) > 0
+    if variants is not None:
+        for lp in report["loops"]:
+            if lp["analysed"] and len(lp["variants"]) > 1:
+                assert [v["id"] for v in lp["variants"]] == ["nominal"] + [
+                    f"sample-{i}" for i in range(1, 6)]
