@@ -2056,3 +2056,104 @@ def test_demo_project_report_keeps_the_contract(tmp_path, variants):
             if lp["analysed"] and len(lp["variants"]) > 1:
                 assert [v["id"] for v in lp["variants"]] == ["nominal"] + [
                     f"sample-{i}" for i in range(1, 6)]
+
+
+def test_random_rational_loops_against_numpy_roots(tmp_path):
+    # 24 random loops K N(s)/D(s) (seeded): the closed-loop poles are the roots
+    # of D + K N (numpy.roots, independent). Checked: the count of right
+    # half-plane roots is closed_loop_unstable_poles, P the count of D's,
+    # and every stable_gain_ranges_db interval by roots just inside and
+    # outside its ends.
+    rng = np.random.default_rng(20261201)
+    plants, ctl, loops, cases = PLANTS, "", "", {}
+    while len(cases) < 24:
+        i = len(cases)
+        poles = list(rng.uniform(-6, 1.5, size=rng.integers(1, 4)))
+        if rng.random() < 0.6:
+            poles.append(complex(rng.uniform(-2, 0.5), rng.uniform(0.5, 6)))
+        zeros = list(rng.uniform(-8, -0.2, size=rng.integers(0, 2)))
+        k = float(10 ** rng.uniform(-0.5, 1.5))
+        real = [p for p in poles if not isinstance(p, complex)]
+        pairs = [p for p in poles if isinstance(p, complex)]
+        den = np.real(np.poly(real + [q for p in pairs for q in (p, p.conjugate())]))
+        num = np.real(np.poly(zeros)) if zeros else np.array([1.0])
+        closed = np.roots(np.polyadd(den, k * num))
+        if np.min(np.abs(closed.real)) < 1e-2 or np.min(np.abs(np.roots(den).real)) < 1e-2:
+            continue  # keep clear of the boundary
+        pole_items = [repr(float(p)) for p in real] + [
+            f"{{ re = {p.real!r}, im = {p.imag!r} }}" for p in pairs]
+        plants += (f'\n[plants.r{i}]\nkind = "zero_pole_gain"\ngain = 1.0\n'
+                   f"zeros = [{', '.join(repr(float(z)) for z in zeros)}]\n"
+                   f"poles = [{', '.join(pole_items)}]\n")
+        ctl += p_table(f"c{i}", k)
+        loops += loop(f"r.{i}", f"r{i}", f"c{i}")
+        cases[f"r.{i}"] = (num, den, k)
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": plants,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    seen = {True: 0, False: 0}
+    for name, (num, den, k) in cases.items():
+        v = only_variant(report, name)
+        st = v["stability"]
+
+        def rhp(c: float, num=num, den=den) -> int:
+            return int(np.sum(np.roots(np.polyadd(den, c * num)).real > 0))
+
+        assert st["open_loop_unstable_poles"] == int(np.sum(np.roots(den).real > 0)), name
+        assert st["closed_loop_unstable_poles"] == rhp(k), name
+        seen[st["stable"]] += 1
+        for lo, hi in v["margins"]["stable_gain_ranges_db"]:
+            for end, inside in ((lo, 0.02), (hi, -0.02)):
+                if end is None:
+                    continue
+                assert rhp(k * 10 ** ((end + inside) / 20)) == 0, (name, end)
+                assert rhp(k * 10 ** ((end - inside) / 20)) > 0, (name, end)
+    assert seen[True] and seen[False]  # both kinds occur
+
+
+def test_random_discrete_loops_against_numpy_roots(tmp_path):
+    # 20 random z-domain loops K N(z)/D(z) (controller transfer_function,
+    # domain z, plant 1): closed-loop poles = roots of D + K N, unstable when
+    # |z| > 1 (numpy.roots, independent); same checks as the continuous case.
+    rng = np.random.default_rng(7)
+    ctl, loops, cases = "", "", {}
+    rate = "sample_rate_hz = 200.0\n"
+    while len(cases) < 20:
+        i = len(cases)
+        poles = list(rng.uniform(-0.9, 1.3, size=rng.integers(1, 3)))
+        if rng.random() < 0.5:
+            r, a = rng.uniform(0.3, 1.2), rng.uniform(0.2, 2.8)
+            poles += [r * cmath.exp(1j * a), r * cmath.exp(-1j * a)]
+        zeros = list(rng.uniform(-0.9, 0.9, size=rng.integers(0, len(poles))))
+        k = float(10 ** rng.uniform(-1.5, 0.3))
+        den = np.real(np.poly(poles))
+        num = k * (np.real(np.poly(zeros)) if zeros else np.array([1.0]))
+        closed = np.abs(np.roots(np.polyadd(den, num)))
+        if np.min(np.abs(closed - 1)) < 1e-2 or np.min(np.abs(np.abs(np.roots(den)) - 1)) < 1e-2:
+            continue
+        ctl += (f'[c{i}]\nkind = "transfer_function"\ndomain = "z"\n'
+                f"numerator = {json.dumps([float(x) for x in num])}\n"
+                f"denominator = {json.dumps([float(x) for x in den])}\n\n")
+        loops += loop(f"z.{i}", "unit", f"c{i}", extra=rate)
+        cases[f"z.{i}"] = (num, den)
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": PLANTS,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    seen = {True: 0, False: 0}
+    for name, (num, den) in cases.items():
+        v = only_variant(report, name)
+        st = v["stability"]
+
+        def outside(c: float, num=num, den=den) -> int:
+            return int(np.sum(np.abs(np.roots(np.polyadd(den, c * num))) > 1))
+
+        assert st["open_loop_unstable_poles"] == int(np.sum(np.abs(np.roots(den)) > 1)), name
+        assert st["closed_loop_unstable_poles"] == outside(1.0), name
+        seen[st["stable"]] += 1
+        for lo, hi in v["margins"]["stable_gain_ranges_db"]:
+            for end, inside in ((lo, 0.02), (hi, -0.02)):
+                if end is None:
+                    continue
+                assert outside(10 ** ((end + inside) / 20)) == 0, (name, end)
+                assert outside(10 ** ((end - inside) / 20)) > 0, (name, end)
+    assert seen[True] and seen[False]
