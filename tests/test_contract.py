@@ -2157,3 +2157,42 @@ def test_random_discrete_loops_against_numpy_roots(tmp_path):
                 assert outside(10 ** ((end + inside) / 20)) == 0, (name, end)
                 assert outside(10 ** ((end - inside) / 20)) > 0, (name, end)
     assert seen[True] and seen[False]
+
+
+def test_delay_margin_is_the_destabilising_delay(tmp_path):
+    # "delay_margin_s: the smallest extra delay that destabilises the loop".
+    # K = 3 on 1/(s(s+1)(s+2)): DM = PM/w_c from the cubic above; with a loop
+    # delay_s of 0.98 DM the loop stays stable, with 1.02 DM it is not.
+    wc = _third_crossover(3.0)
+    dm = math.radians(90.0 - math.degrees(math.atan(wc) + math.atan(wc / 2))) / wc
+    loops = (loop("d.below", "third", "c", extra=f"delay_s = {0.98 * dm!r}\n")
+             + loop("d.above", "third", "c", extra=f"delay_s = {1.02 * dm!r}\n"))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": PLANTS,
+                              "ctl.toml": p_table("c", 3.0)})
+    _, report, _ = check(folder)
+    below, above = only_variant(report, "d.below"), only_variant(report, "d.above")
+    assert below["stability"]["stable"] is True
+    assert above["stability"]["stable"] is False
+    assert below["margins"]["delay_margin_s"] == pytest.approx(0.02 * dm, rel=1e-3)
+
+
+def test_finding_names_the_worst_variant(tmp_path):
+    # RULES.md: a finding names the worst variant. g/(s(s+1)(s+2)) with g in
+    # [2, 5], nominal 3: PM falls and GM = 6/g (Routh-Hurwitz) shrinks as g
+    # grows, so corner-2 (g = 5) is the worst: PM from the cubic with K = 5.
+    plants = PLANTS + """
+[plants.fam]
+kind = "zero_pole_gain"
+gain = 3.0
+zeros = []
+poles = [0.0, -1.0, -2.0]
+vary = { gain = { min = 2.0, max = 5.0 } }
+"""
+    _, report, _ = check(simple_project(tmp_path, 1.0, "fam", files={"plants.toml": plants}))
+    by_rule = {f["rule"]: f for f in report["findings"]}
+    wc = _third_crossover(5.0)
+    assert by_rule["margin.phase"]["variant"] == "corner-2"
+    assert by_rule["margin.phase"]["measured"] == pytest.approx(
+        90.0 - math.degrees(math.atan(wc) + math.atan(wc / 2)), abs=1e-5)
+    assert by_rule["margin.gain"]["variant"] == "corner-2"
+    assert by_rule["margin.gain"]["measured"] == pytest.approx(db(6 / 5), abs=1e-6)
