@@ -1250,10 +1250,10 @@ def test_closed_loop_stability_cannot_be_off(tmp_path):
 
 
 def test_overrides_by_glob_and_tags_in_order(tmp_path):
-    # Three copies of the K = 3 loop (PM ~ 20.04 deg, closed form above).
+    # Four copies of the K = 3 loop (PM ~ 20.04 deg, closed form above).
     # override 1 (glob "a.*"): min_deg 10; override 2 (tag "late"): min_deg 25.
     # a.one: only override 1 -> passes; a.two: both, the later wins -> fails
-    # at 25; b.one: only override 2 -> fails at 25; c.one: neither -> baseline 30.
+    # at 25; b.one: only override 2 -> fails at 25.
     ruleset = """\
 [ruleset]
 name = "house"
@@ -1266,6 +1266,11 @@ rules = { "margin.phase" = { min_deg = 10.0 } }
 [[overrides]]
 tags = ["late"]
 rules = { "margin.phase" = { min_deg = 25.0 } }
+
+[[overrides]]
+loops = ["c.*"]
+tags = ["never-used"]
+rules = { "margin.phase" = { min_deg = 21.0 } }
 """
     loops = (loop("a.one", "third", "c") + loop("a.two", "third", "c", extra='tags = ["late"]\n')
              + loop("b.one", "third", "c", extra='tags = ["late"]\n') + loop("c.one", "third", "c"))
@@ -1274,7 +1279,8 @@ rules = { "margin.phase" = { min_deg = 25.0 } }
                               "house.toml": ruleset})
     _, report, _ = check(folder)
     limits = {f["loop"]: f["limit"] for f in report["findings"] if f["rule"] == "margin.phase"}
-    assert limits == {"a.two": 25.0, "b.one": 25.0, "c.one": 30.0}
+    # override 3 has loops and tags: c.one matches by its glob alone -> 21
+    assert limits == {"a.two": 25.0, "b.one": 25.0, "c.one": 21.0}
 
 
 WAIVER_RULESET = """\
