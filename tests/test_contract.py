@@ -2202,3 +2202,40 @@ vary = { gain = { min = 2.0, max = 5.0 } }
         90.0 - math.degrees(math.atan(wc) + math.atan(wc / 2)), abs=1e-5)
     assert by_rule["margin.gain"]["variant"] == "corner-2"
     assert by_rule["margin.gain"]["measured"] == pytest.approx(db(6 / 5), abs=1e-6)
+
+
+def test_every_gain_crossover_is_listed(tmp_path):
+    # L = 2/s * 100/(s^2 + 0.2 s + 100): |L| = 1 near w = 2 and twice more
+    # around the resonance at 10 rad/s, where |L| = 2/10 * 100/2 = 10. Each
+    # crossing found by scipy brentq on log|L| over a dense numpy grid, its PM
+    # = 180 + arg L wrapped to (-180, 180] (independent computation).
+    from scipy.optimize import brentq
+
+    plants = PLANTS + """
+[plants.res]
+kind = "zero_pole_gain"
+gain = 200.0
+zeros = []
+poles = [0.0, { re = -0.1, im = 9.9994999875 }]
+"""
+
+    def ell(w: float) -> complex:
+        s = 1j * w
+        return 200.0 / (s * (s * s + 0.2 * s + 100.0))
+
+    grid = np.logspace(-1, 3, 200001)
+    mag = np.log(np.abs([ell(w) for w in grid]))
+    idx = np.flatnonzero(np.sign(mag[:-1]) != np.sign(mag[1:]))
+    roots = [brentq(lambda w: math.log(abs(ell(w))), grid[i], grid[i + 1], xtol=1e-14)
+             for i in idx]
+    assert len(roots) == 3
+
+    def pm(w: float) -> float:
+        return (180.0 + math.degrees(cmath.phase(ell(w))) + 180.0) % 360.0 - 180.0
+
+    _, report, _ = check(simple_project(tmp_path, 1.0, "res", files={"plants.toml": plants}))
+    crossings = only_variant(report)["margins"]["crossovers"]
+    assert [c["hz"] for c in crossings] == pytest.approx([hz(w) for w in roots], rel=1e-6)
+    for c, w in zip(crossings, roots, strict=True):
+        got = (c["phase_margin_deg"] + 180.0) % 360.0 - 180.0  # same wrap
+        assert got == pytest.approx(pm(w), abs=1e-4)
