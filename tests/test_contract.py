@@ -2239,3 +2239,19 @@ poles = [0.0, { re = -0.1, im = 9.9994999875 }]
     for c, w in zip(crossings, roots, strict=True):
         got = (c["phase_margin_deg"] + 180.0) % 360.0 - 180.0  # same wrap
         assert got == pytest.approx(pm(w), abs=1e-4)
+
+
+def test_internal_error_exit_3(tmp_path, monkeypatch):
+    # section 6: exit 3 for a bug; the message says so and asks for a report.
+    # The bug is injected (the only way to cause one from outside).
+    import ruleguard.pipeline
+
+    def broken(*args, **kwargs):
+        raise ZeroDivisionError("injected")
+
+    monkeypatch.setattr(ruleguard.pipeline, "check_project", broken)
+    folder = simple_project(tmp_path, 1.0)
+    code, _, err = cli(["check", "--manifest", str(folder / "ruleguard.toml"), "--no-cache"])
+    assert code == 3
+    assert "internal error" in err and "report" in err.lower()
+    assert "Traceback" not in err
