@@ -1118,13 +1118,16 @@ def test_delay_samples_without_sample_rate_is_an_input_error(tmp_path):
     assert "delay_samples" in err
 
 
-def test_expressions_follow_python_precedence(tmp_path):
-    # numerator "-2**2 + 7" = -4 + 7 = 3 (Python precedence): the K = 3 loop,
-    # GM 6.02 dB (Routh-Hurwitz). (-2)**2 + 7 = 11 would give 20 log10(6/11).
-    plants = PLANTS + """
+@pytest.mark.parametrize("text", ["-2**2 + 7", "exp(log(3))", "10**log10(3)", "e/e*3",
+                                  "sqrt(9)", "(1 + 2) * (pi/pi)", "2**-1*6"])
+def test_expressions_follow_python_precedence(tmp_path, text):
+    # each expression is 3: "-2**2 + 7" = -4 + 7 (Python precedence; (-2)**2 + 7
+    # = 11 would give 20 log10(6/11)), the functions and constants of section
+    # 2. The K = 3 loop of 1/(s(s+1)(s+2)): GM 6.02 dB (Routh-Hurwitz).
+    plants = PLANTS + f"""
 [plants.expr]
 kind = "transfer_function"
-numerator = ["-2**2 + 7"]
+numerator = ["{text}"]
 denominator = [1.0, 3.0, 2.0, 0.0]
 """
     _, report, _ = check(simple_project(tmp_path, 1.0, "expr", files={"plants.toml": plants}))
