@@ -94,6 +94,21 @@ def cli(args: list[str]) -> tuple[int, str, str]:
     return code, out.getvalue(), err.getvalue()
 
 
+_REPORT_SCHEMA: list[dict] = []
+
+
+def report_validator():
+    """The report schema as the command prints it (`ruleguard schema report`)."""
+    import jsonschema
+
+    if not _REPORT_SCHEMA:
+        code, out, _ = cli(["schema", "report"])
+        assert code == 0
+        _REPORT_SCHEMA.append(json.loads(out))
+    schema = _REPORT_SCHEMA[0]
+    return jsonschema.validators.validator_for(schema)(schema)
+
+
 def check(folder: Path, *extra: str, name: str = "ruleguard.toml") -> tuple[int, dict, str]:
     """Run ``check --format json`` on a project; validate the contract of the report."""
     code, out, err = cli(["check", "--manifest", str(folder / name), "--format", "json",
@@ -102,6 +117,7 @@ def check(folder: Path, *extra: str, name: str = "ruleguard.toml") -> tuple[int,
     assert "Traceback" not in err
     report = json.loads(out)
     assert_contract(report, code)
+    report_validator().validate(report)  # and the shipped report schema
     return code, report, err
 
 
@@ -1393,6 +1409,13 @@ def test_invalid_inputs_exit_2_naming_the_place(tmp_path):
     folder = simple_project(tmp_path / "miss", 1.0, files={"ctl.toml": '[c]\nkind = "pid"\n'})
     err = bad(folder)
     assert "ctl.toml" in err
+    # a measured plant must state its unstable poles (section 2)
+    plants = PLANTS + '\n[plants.swept]\nkind = "measured_response"\nfile = "s.csv"\n' \
+                      'integrators = 1\n'
+    folder = simple_project(tmp_path / "meas", 1.0, "swept", files={
+        "plants.toml": plants, "s.csv": _sweep_csv(np.logspace(-3, 2, 50))})
+    err = bad(folder)
+    assert re.search(r"plants\.toml:\d+:\d+", err) and "unstable_poles" in err, err
 
 
 @pytest.mark.skipif(shutil.which("ruleguard") is None, reason="console script not installed")
