@@ -2281,3 +2281,31 @@ def test_internal_error_exit_3(tmp_path, monkeypatch):
     assert code == 3
     assert "internal error" in err and "report" in err.lower()
     assert "Traceback" not in err
+
+
+def test_prewarp_frequencies_of_lead_lag_and_lowpass(tmp_path):
+    # Tustin with prewarping at w0 matches the continuous response exactly at
+    # w0 (Astrom & Wittenmark 1997, sec. 8.2; from memory). Section 3: a
+    # lead-lag is prewarped at sqrt(zero_hz pole_hz), a low-pass at its cutoff.
+    # Lead-lag gain 0.5, zero 10 Hz, pole 40 Hz: |C| at 20 Hz = 0.5 sqrt(1 + 4)/
+    # sqrt(1 + 1/4) = 1, and |C| rises monotonically: the crossover is exactly
+    # 20 Hz. kp = sqrt(2) with lowpass1 at 50 Hz: |L| = 1 exactly at 50 Hz.
+    # Plain Tustin warps both away (w_d = (2/h) atan(w h/2) != w).
+    ctl = ""
+    for method in ("tustin", "tustin_prewarp"):
+        ctl += (f'[ll_{method}]\nkind = "lead_lag"\ngain = 0.5\nzero_hz = 10.0\n'
+                f'pole_hz = 40.0\ndiscretization = "{method}"\n\n'
+                f'[lp_{method}]\nkind = "pid"\nkp = {math.sqrt(2)!r}\nki = 0.0\n'
+                f'discretization = "{method}"\n[[lp_{method}.filters]]\nkind = "lowpass1"\n'
+                'cutoff_hz = 50.0\n\n')
+    rate = "sample_rate_hz = 500.0\n"
+    loops = "".join(loop(f"{b}.{m}", "unit", f"{b}_{m}", extra=rate)
+                    for b in ("ll", "lp") for m in ("tustin", "tustin_prewarp"))
+    folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": PLANTS,
+                              "ctl.toml": ctl})
+    _, report, _ = check(folder)
+    fc = {lp["name"]: lp["variants"][0]["margins"]["crossover_hz"] for lp in report["loops"]}
+    assert fc["ll.tustin_prewarp"] == pytest.approx(20.0, rel=1e-7)
+    assert fc["lp.tustin_prewarp"] == pytest.approx(50.0, rel=1e-7)
+    assert abs(fc["ll.tustin"] / 20.0 - 1) > 1e-3
+    assert abs(fc["lp.tustin"] / 50.0 - 1) > 1e-3
