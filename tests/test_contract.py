@@ -2309,3 +2309,20 @@ def test_prewarp_frequencies_of_lead_lag_and_lowpass(tmp_path):
     assert fc["lp.tustin_prewarp"] == pytest.approx(50.0, rel=1e-7)
     assert abs(fc["ll.tustin"] / 20.0 - 1) > 1e-3
     assert abs(fc["lp.tustin"] / 50.0 - 1) > 1e-3
+
+
+def test_waiver_expiry_defaults_to_today(tmp_path):
+    # without --as-of the date is today's (UTC): a waiver that expired in 2000
+    # no longer applies and is named by waiver.expired; one until 2999 applies.
+    ruleset = ('[ruleset]\nname = "x"\nextends = "baseline"\n\n'
+               '[[waivers]]\nrule = "margin.phase"\nloops = ["a.*"]\nreason = "old"\n'
+               'expires = 2000-01-01\n\n'
+               '[[waivers]]\nrule = "sensitivity.peak"\nloops = ["a.*"]\nreason = "long"\n'
+               'expires = 2999-12-31\n')
+    folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
+    _, report, _ = check(folder)
+    by_rule = {f["rule"]: f for f in report["findings"]}
+    assert by_rule["margin.phase"]["waived"] is False
+    assert by_rule["sensitivity.peak"]["waived"] is True
+    assert by_rule["waiver.expired"]["severity"] == "warning"
+    assert "margin.phase" in by_rule["waiver.expired"]["message"]
