@@ -2326,3 +2326,30 @@ def test_waiver_expiry_defaults_to_today(tmp_path):
     assert by_rule["sensitivity.peak"]["waived"] is True
     assert by_rule["waiver.expired"]["severity"] == "warning"
     assert "margin.phase" in by_rule["waiver.expired"]["message"]
+
+
+@pytest.mark.parametrize("where", ["controller", "ruleset", "measured", "absolute", "extends"])
+def test_no_reference_outside_the_manifest_folder(tmp_path, where):
+    # section 1: no referenced file may resolve outside the manifest's folder
+    outside = write(tmp_path, {"x/ctl.toml": p_table("c", 1.0),
+                               "x/rules.toml": '[ruleset]\nname = "o"\nextends = "baseline"\n',
+                               "x/s.csv": _sweep_csv(np.logspace(-3, 2, 50))}) / "x"
+    files = {"ruleguard.toml": manifest(loop("a.loop", "third", "c")), "plants.toml": PLANTS,
+             "ctl.toml": p_table("c", 1.0)}
+    if where == "controller":
+        files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c", file="../x/ctl.toml"))
+    elif where == "ruleset":
+        files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c"), ruleset="../x/rules.toml")
+    elif where == "measured":
+        files["plants.toml"] = PLANTS + ('\n[plants.swept]\nkind = "measured_response"\n'
+                                         'file = "../x/s.csv"\nunstable_poles = 0\n'
+                                         'integrators = 1\n')
+        files["ruleguard.toml"] = manifest(loop("a.loop", "swept", "c"))
+    elif where == "absolute":
+        files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c",
+                                                file=str(outside / "ctl.toml")))
+    else:
+        files["house.toml"] = '[ruleset]\nname = "h"\nextends = "../x/rules.toml"\n'
+        files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c"), ruleset="house.toml")
+    err = bad(write(tmp_path / "proj", files))
+    assert re.search(r"\.toml:\d+:\d+", err), err
