@@ -2353,3 +2353,13 @@ def test_no_reference_outside_the_manifest_folder(tmp_path, where):
         files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c"), ruleset="house.toml")
     err = bad(write(tmp_path / "proj", files))
     assert re.search(r"\.toml:\d+:\d+", err), err
+
+
+def test_report_never_overwrites_an_input(tmp_path):
+    # section 6: never writes to any input file, even when asked to
+    folder = simple_project(tmp_path, 3.0)
+    before = (folder / "ctl.toml").read_bytes()
+    code, _, err = cli(["check", "--manifest", str(folder / "ruleguard.toml"), "--no-cache",
+                        "--format", "json", "--output", str(folder / "ctl.toml")])
+    assert code == 2 and "Traceback" not in err
+    assert (folder / "ctl.toml").read_bytes() == before
