@@ -135,7 +135,7 @@ class TestPhaseMargin:
         assert v.measured == pytest.approx(26.97, abs=1e-2)
         assert v.limit == 30.0 and v.unit == "deg"
         assert v.frequency_hz == pytest.approx(1.5915, abs=1e-4)
-        assert "closest to -1 of 3 crossovers" in v.message
+        assert "smallest of 3 crossovers" in v.message
 
     def test_no_crossover_passes(self):
         a = analysis(phase_margin_deg=None, crossover_hz=None, crossovers=())

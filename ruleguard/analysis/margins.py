@@ -197,11 +197,10 @@ def analyse_open_loop(open_loop: OpenLoop) -> LoopAnalysis:
     crossovers = gain_crossovers(contour)
     pm = pm_hz = None
     if crossovers:
-        # The phase margin is the crossover closest to -1 in angle: |PM| is the
-        # phase change (lag or lead) that moves that crossing onto -1. With the
-        # wrap to (-180, 180], a crossing near +1 reads about -180 deg although
-        # it is the farthest from -1, so the signed minimum would be wrong.
-        worst = min(crossovers, key=lambda c: (abs(c.phase_margin_deg), c.phase_margin_deg))
+        # FORMATS.md section 5: "the smallest over all gain crossovers", each
+        # 180 + angle L wrapped to (-180, 180]. A crossing near +1 therefore
+        # reads about -180 deg; the rule message says which crossover it is.
+        worst = min(crossovers, key=lambda c: c.phase_margin_deg)
         pm, pm_hz = worst.phase_margin_deg, worst.hz
     dm = dm_samples = None
     if stable and crossovers:

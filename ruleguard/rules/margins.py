@@ -141,7 +141,7 @@ def phase_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violat
         return
     m = worst.analysis.margins
     crossings = len(m.crossovers)
-    where = f" (closest to -1 of {crossings} crossovers)" if crossings > 1 else ""
+    where = f" (smallest of {crossings} crossovers)" if crossings > 1 else ""
     yield loop_violation(
         ctx,
         params,
@@ -367,10 +367,9 @@ RULES: tuple[RuleSpec, ...] = (
         summary="Smallest phase margin over all gain crossovers at least min_deg.",
         explanation=(
             "At every frequency where |L| = 1 (gain crossover) the phase margin is "
-            "180 deg + angle(L), wrapped to (-180, 180]. The loop's phase margin is "
-            "the one closest to -1 (smallest in size: a crossing near +1 reads about "
-            "-180 deg yet is the farthest from -1), and it must be at least `min_deg`; "
-            "a loop whose |L| never crosses 1 "
+            "180 deg + angle(L), wrapped to (-180, 180]. The smallest over all "
+            "crossovers must be at least `min_deg` (a crossing where L is near +1 "
+            "reads close to -180 deg); a loop whose |L| never crosses 1 "
             "has no finite phase margin and passes. The worst stable variant is "
             "reported with its crossover frequency.\n\n"
             "Why it matters: a small phase margin means a lightly damped closed loop "
