@@ -212,6 +212,9 @@ def test_unfiltered_derivative_reported_once_continuous_and_sampled(tmp_path):
         write_project(tmp_path / "e", "sample_rate_hz = 1000.0", "backward_euler")
     )
     assert len(euler) == 1 and "z = -1" not in euler[0].message
+    # FORMATS.md section 3: allowed with backward or forward Euler, so only a note
+    assert euler[0].severity.value == "note"
+    assert sampled[0].severity.value == "error"
 
 
 def test_undamped_filter_pair_is_on_the_boundary():

@@ -196,10 +196,12 @@ def derivative_filter(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
                 "set `derivative_filter_hz`"
             )
         elif discrete:
+            # FORMATS.md section 3: allowed in a discrete loop with backward or
+            # forward Euler. Said as a note (its gain still peaks at Nyquist).
             message = (
-                f"the derivative term (`{d_field}`) has no filter: under {method or 'its'} "
-                "discretization it amplifies noise up to the Nyquist frequency; set "
-                "`derivative_filter_hz`"
+                f"the derivative term (`{d_field}`) has no filter: allowed under "
+                f"{method or 'Euler'} discretization, but its gain rises up to the Nyquist "
+                "frequency (noise); `derivative_filter_hz` would limit it"
             )
         else:
             message = (
@@ -217,6 +219,11 @@ def derivative_filter(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
                 location=controller_field_location(ctx, d_field),
                 related=(controller.location,),
                 key_path=key(base, "missing"),
+                severity=(
+                    Severity.NOTE
+                    if discrete and not (pole_at_minus_one or method.startswith("tustin"))
+                    else None
+                ),
             )
         ]
     if nyq is not None and filter_hz >= nyq:
