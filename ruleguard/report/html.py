@@ -29,7 +29,7 @@ from ruleguard.location import Location
 from ruleguard.report.model import LoopResult, Report, VariantResult
 from ruleguard.report.summary import VALUE, Figure, loop_summary, loop_verdict
 from ruleguard.report.text import CAUTION
-from ruleguard.report.units import hertz, number, quantity
+from ruleguard.report.units import finding_figures, hertz, number, quantity
 from ruleguard.rules.base import Finding, Severity
 
 STYLE = """
@@ -399,15 +399,8 @@ def _finding(report: Report, finding: Finding, summaries: Mapping[str, str]) -> 
         out.append(f'<span class="key">key <code>{_e(finding.location.key)}</code></span>')
     out.append("</div>")
     out.append(f'<p class="message">{_e(finding.message)}</p>')
-    figures = []
-    if finding.variant:
-        figures.append(f"variant {finding.variant}")
-    if finding.measured is not None:
-        figures.append(f"measured {quantity(finding.measured, finding.unit)}")
-    if finding.limit is not None:
-        figures.append(f"limit {quantity(finding.limit, finding.unit)}")
-    if finding.frequency_hz is not None:
-        figures.append(f"at {hertz(finding.frequency_hz)}")
+    figures = [f"variant {finding.variant}"] if finding.variant else []
+    figures += finding_figures(finding)
     if figures:
         out.append(f'<p class="figures">{_e(" · ".join(figures))}</p>')
     source = _source_line(report, finding.location)
