@@ -15,7 +15,7 @@ import numpy as np
 
 from ruleguard.analysis.margins import analyse_open_loop
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 
 def typical_loop(order: int, rng: np.random.Generator, delay: bool, discrete: bool) -> OpenLoop:
@@ -34,18 +34,18 @@ def typical_loop(order: int, rng: np.random.Generator, delay: bool, discrete: bo
                 zeros += [z, z.conjugate()]
         else:
             poles.append(-2 * math.pi * float(rng.uniform(50, 500)))
-    block = ZPK(zeros, poles, 1.0)
+    block = Factored(zeros, poles, 1.0)
     gain = 1.0 / abs(block.response(np.array([2 * math.pi * 2.0]))[0])
     if not discrete:
-        return OpenLoop(ZPK(zeros, poles, gain, 0.002 if delay else 0.0))
+        return OpenLoop(Factored(zeros, poles, gain, 0.002 if delay else 0.0))
     h = 1.0 / 4000.0
     zp = np.exp(np.asarray(poles, dtype=complex) * h)
     zz = np.exp(np.asarray(zeros, dtype=complex) * h)
-    zpk = ZPK(zz, zp, 1.0, sample_time_s=h)
+    factored = Factored(zz, zp, 1.0, sample_time_s=h)
     if delay:
-        zpk = zpk * ZPK([], [0.0, 0.0], 1.0, sample_time_s=h)
-    g = 1.0 / abs(zpk.response(np.array([2 * math.pi * 2.0]))[0])
-    return OpenLoop(zpk.scaled(g))
+        factored = factored * Factored([], [0.0, 0.0], 1.0, sample_time_s=h)
+    g = 1.0 / abs(factored.response(np.array([2 * math.pi * 2.0]))[0])
+    return OpenLoop(factored.scaled(g))
 
 
 def main() -> None:

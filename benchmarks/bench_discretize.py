@@ -23,7 +23,7 @@ import numpy as np
 from ruleguard.analysis.loop import BlockModel, LoopModel
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.models.discretize import discretize_block, zoh_equivalent, zoh_state_space
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 from ruleguard.models.quantize import quantized_model
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -41,7 +41,7 @@ def per_call_ms(fn, min_time_s: float = 0.3) -> float:
             return 1e3 * elapsed / n
 
 
-def flexible_plant(order: int, seed: int = 0) -> ZPK:
+def flexible_plant(order: int, seed: int = 0) -> Factored:
     rng = np.random.default_rng(seed)
     m = max((order - 2) // 2, 0)
     wp = 2 * np.pi * np.sort(10 ** rng.uniform(1, 3.3, size=m))
@@ -50,21 +50,21 @@ def flexible_plant(order: int, seed: int = 0) -> ZPK:
     zz = 10 ** rng.uniform(-3, -1, size=m)
     p = -zp * wp + 1j * wp * np.sqrt(1 - zp**2)
     z = -zz * wz + 1j * wz * np.sqrt(1 - zz**2)
-    blk = ZPK(np.concatenate([z, z.conj()]), np.concatenate([p, p.conj(), [-0.5, -5.0]]), 1.0)
+    blk = Factored(np.concatenate([z, z.conj()]), np.concatenate([p, p.conj(), [-0.5, -5.0]]), 1.0)
     return blk.scaled(1.0 / abs(blk.evaluate(1j)[()]))
 
 
-def lowpass2(fc: float, zeta: float) -> ZPK:
+def lowpass2(fc: float, zeta: float) -> Factored:
     w = 2 * math.pi * fc
     p = complex(-zeta * w, w * math.sqrt(1 - zeta**2))
-    return ZPK([], [p, p.conjugate()], w * w)
+    return Factored([], [p, p.conjugate()], w * w)
 
 
 def sampled_loop(h: float = 1e-4) -> LoopModel:
-    pi_cont = ZPK([-2000.0], [0.0], 0.2)
+    pi_cont = Factored([-2000.0], [0.0], 0.2)
     lp = lowpass2(100.0, 0.707)
     c, f = discretize_block(pi_cont, "tustin", h), discretize_block(lp, "tustin", h)
-    plant = ZPK([], [-2000.0], 2000.0 / 1.5)
+    plant = Factored([], [-2000.0], 2000.0 / 1.5)
     zoh = zoh_equivalent(plant, h, delay_s=h)
     return LoopModel(
         name="bench", sample_rate_hz=1 / h, open_loop=OpenLoop(c * f * zoh),
@@ -93,9 +93,9 @@ def main() -> None:
             print(f"{order:>6} {label:>10} {ms:>9.3f} {dev:>14.2e}")
 
     print("\ndiscretize_block")
-    notch = ZPK([complex(-10, 2 * math.pi * 1800), complex(-10, -2 * math.pi * 1800)],
+    notch = Factored([complex(-10, 2 * math.pi * 1800), complex(-10, -2 * math.pi * 1800)],
                 [complex(-300, 2 * math.pi * 1800), complex(-300, -2 * math.pi * 1800)], 1.0)
-    pid = ZPK([-100.0, -2000.0], [0.0, -4000.0], 3.0)
+    pid = Factored([-100.0, -2000.0], [0.0, -4000.0], 3.0)
     for name, blk, method, pw in (
         ("notch tustin_prewarp", notch, "tustin_prewarp", 2 * math.pi * 1800),
         ("pid tustin", pid, "tustin", None),

@@ -91,15 +91,15 @@ def transfer_function(
     """
     import numpy as np
 
-    from ruleguard.models.lti import ZPK
+    from ruleguard.models.lti import Factored
 
     num = np.trim_zeros(np.asarray(numerator, dtype=float), "f")
     den = np.trim_zeros(np.asarray(denominator, dtype=float), "f")
     if den.size == 0:
         raise ValueError("the denominator is all zeros")
     if num.size == 0:
-        return ZPK([], np.roots(den), 0.0, delay_s, _sample_time(sample_rate_hz))
-    return ZPK(
+        return Factored([], np.roots(den), 0.0, delay_s, _sample_time(sample_rate_hz))
+    return Factored(
         np.roots(num), np.roots(den), num[0] / den[0], delay_s, _sample_time(sample_rate_hz)
     )
 
@@ -113,20 +113,20 @@ def zero_pole_gain(
     sample_rate_hz: float | None = None,
 ):
     """A block ``gain * prod(x - zeros) / prod(x - poles)`` (leading-coefficient gain)."""
-    from ruleguard.models.lti import ZPK
+    from ruleguard.models.lti import Factored
 
-    return ZPK(zeros, poles, gain, delay_s, _sample_time(sample_rate_hz))
+    return Factored(zeros, poles, gain, delay_s, _sample_time(sample_rate_hz))
 
 
 def series(*blocks, gain: float = 1.0):
     """The open loop ``gain * blocks[0] * blocks[1] * ...`` (negative feedback)."""
     from ruleguard.analysis.openloop import OpenLoop
-    from ruleguard.models.lti import ZPK
+    from ruleguard.models.lti import Factored
 
     rational = None
     factors = []
     for block in blocks:
-        if isinstance(block, ZPK):
+        if isinstance(block, Factored):
             rational = block if rational is None else rational * block
         else:
             factors.append(block)
@@ -139,9 +139,9 @@ def analyse(loop):
     """Nyquist verdict and every margin of an open loop (or of a single block as L)."""
     from ruleguard.analysis.margins import analyse_open_loop
     from ruleguard.analysis.openloop import OpenLoop
-    from ruleguard.models.lti import ZPK
+    from ruleguard.models.lti import Factored
 
-    if isinstance(loop, ZPK):
+    if isinstance(loop, Factored):
         loop = OpenLoop(loop)
     return analyse_open_loop(loop)
 

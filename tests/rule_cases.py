@@ -218,7 +218,7 @@ def analysed(zeros, poles, gain, delay_s: float = 0.0, sample_time_s: float | No
     """A real analysis of L = gain prod(s - z)/prod(s - p) e^{-s delay} (H1's analysis)."""
     from ruleguard.analysis.margins import analyse_open_loop
     from ruleguard.analysis.openloop import OpenLoop
-    from ruleguard.models.lti import ZPK
+    from ruleguard.models.lti import Factored
 
-    block = ZPK(zeros, poles, gain, delay_s=delay_s, sample_time_s=sample_time_s)
+    block = Factored(zeros, poles, gain, delay_s=delay_s, sample_time_s=sample_time_s)
     return analyse_open_loop(OpenLoop(block))

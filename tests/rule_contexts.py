@@ -20,7 +20,7 @@ from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.analysis.results import Crossover, LoopAnalysis, Margins, Stability
 from ruleguard.load.spec import ControllerEntry, FilterEntry, LoopSpec, PlantEntry, Project
 from ruleguard.location import Location
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 from ruleguard.rules.base import Evaluation, LoopContext
 
 FIRMWARE = "firmware/axis.toml"
@@ -235,8 +235,8 @@ def evaluation(variant_id, loop_model, loop_analysis) -> Evaluation:
     return Evaluation(Variant(variant_id), loop_model, loop_analysis)
 
 
-def zpk(zeros=(), poles=(), gain=1.0, h=None, delay_s=0.0) -> ZPK:
-    return ZPK(np.asarray(zeros, complex), np.asarray(poles, complex), gain, delay_s, h)
+def factored(zeros=(), poles=(), gain=1.0, h=None, delay_s=0.0) -> Factored:
+    return Factored(np.asarray(zeros, complex), np.asarray(poles, complex), gain, delay_s, h)
 
 
 def pair(freq_hz, damping):
@@ -247,7 +247,7 @@ def pair(freq_hz, damping):
     return [complex(re, im), complex(re, -im)]
 
 
-def loop_evaluation(spec, loop_zpk: ZPK, loop_analysis, variant_id="nominal") -> Evaluation:
+def loop_evaluation(spec, loop_zpk: Factored, loop_analysis, variant_id="nominal") -> Evaluation:
     """An evaluation whose whole open loop sits in the controller block (plant = 1)."""
     discrete = loop_zpk.sample_time_s is not None
     ctrl = controller_block(
@@ -256,7 +256,7 @@ def loop_evaluation(spec, loop_zpk: ZPK, loop_analysis, variant_id="nominal") ->
         discrete=loop_zpk if discrete else None,
         method="given" if discrete else None,
     )
-    unity = ZPK.unity(loop_zpk.sample_time_s)
+    unity = Factored.unity(loop_zpk.sample_time_s)
     plant = block(
         "plant",
         "mechanics (zero_pole_gain)",

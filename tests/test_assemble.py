@@ -27,7 +27,7 @@ from ruleguard.models.assemble import build_loop, closed_loop_zpk
 from ruleguard.models.discretize import DelayFactor, HoldFactor
 from ruleguard.models.factors import ClosedLoopResponse
 from ruleguard.models.families import Variant, loop_variants
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 TWO_PI = 2 * math.pi
 NOMINAL = Variant("nominal", {})
@@ -60,7 +60,7 @@ def zoh_integrator_lag(z, gain, a, h):
     return (b1 * z + b0) / ((z - 1) * (z - e))
 
 
-def c2d(num, den, h, method):
+def to_discrete_polynomials(num, den, h, method):
     """scipy.signal.cont2discrete of a transfer function: (numd, dend)."""
     numd, dend, _ = scipy.signal.cont2discrete((num, den), h, method=method)
     return np.trim_zeros(np.ravel(numd), "f"), np.ravel(dend)
@@ -175,9 +175,9 @@ class TestSampled:
         wc = TWO_PI * 100
         # References: scipy.signal.cont2discrete bilinear (Tustin, the default) for C and F,
         # zoh for the plant, and z^-3 for 0.002 s + 1 sample at 1 kHz.
-        cn, cd = c2d([0.8, 40.0], [1.0, 0.0], h, "bilinear")
-        fn, fd = c2d([1.0], [1 / wc, 1.0], h, "bilinear")
-        gn, gd = c2d([2.0], [0.02, 1.0], h, "zoh")
+        cn, cd = to_discrete_polynomials([0.8, 40.0], [1.0, 0.0], h, "bilinear")
+        fn, fd = to_discrete_polynomials([1.0], [1 / wc, 1.0], h, "bilinear")
+        gn, gd = to_discrete_polynomials([2.0], [0.02, 1.0], h, "zoh")
         theta = np.linspace(0.01, math.pi - 0.01, 400)
         z = np.exp(1j * theta)
         ref = polyval_ratio(cn, cd, z) * polyval_ratio(fn, fd, z) * polyval_ratio(gn, gd, z) \
@@ -220,7 +220,7 @@ class TestSampled:
         proj = project([self.first_order(0.0)], [loop("a", "motor", ctrl, rate=1000.0)])
         model = build_loop(proj, proj.loops[0], NOMINAL)
         wz, wp = TWO_PI * 20, TWO_PI * 80
-        cn, cd = c2d([1.5 / wz, 1.5], [1 / wp, 1.0], self.h, scipy_method)
+        cn, cd = to_discrete_polynomials([1.5 / wz, 1.5], [1 / wp, 1.0], self.h, scipy_method)
         theta = np.linspace(0.01, math.pi - 0.01, 200)
         ref = polyval_ratio(cn, cd, np.exp(1j * theta))
         assert rel_err(model.controller_path.response(theta / self.h), ref) < 1e-10
@@ -309,7 +309,7 @@ class TestSampled:
         assert any("aliasing" in n for n in model.notes)
         # Reference: C_d (cont2discrete bilinear) z^-1 (whole sample of 1.4 samples)
         # x hold (1 - e^{-j w h})/(j w h) x data x e^{-j w 0.4 h}
-        cn, cd = c2d([0.8, 40.0], [1.0, 0.0], h, "bilinear")
+        cn, cd = to_discrete_polynomials([0.8, 40.0], [1.0, 0.0], h, "bilinear")
         z = np.exp(1j * w * h)
         hold = (1 - np.exp(-1j * w * h)) / (1j * w * h)
         ref = polyval_ratio(cn, cd, z) / z * hold * g * np.exp(-1j * w * 0.4 * h)
@@ -346,7 +346,7 @@ class TestCascades:
         a, b, c, d = scipy.signal.tf2ss(num, den)
         ref_poles = np.linalg.eigvals(a - b @ c / (1 + d[0, 0]))
         inner_t = closed_loop_zpk(
-            ZPK([-400.0], [0.0, -1.3 / 4e-3], 5.0 / 4e-3),
+            Factored([-400.0], [0.0, -1.3 / 4e-3], 5.0 / 4e-3),
             model.inner.open_loop.rational)
         np.testing.assert_allclose(np.sort_complex(inner_t.poles), np.sort_complex(ref_poles),
                                    rtol=1e-9)
@@ -406,10 +406,12 @@ class TestCascades:
         # References (scipy.signal.cont2discrete): C_i, C_o bilinear; the inner forward path
         # ZOH(G_i) z^-1 and the inner loop ZOH(G_i H_i) z^-1; the outer plant ZOH(G_o) z^-1
         # in closed form (zoh_integrator_lag).
-        cin, cid = c2d([0.5, 200.0], [1.0, 0.0], h, "bilinear")
-        con, cod = c2d([0.4, 1.0], [1.0, 0.0], h, "bilinear")
-        gn, gd = c2d([1.0], [4e-3, 1.3], h, "zoh")
-        ghn, ghd = c2d([1.0], np.polymul([4e-3, 1.3], [1 / 5000.0, 1.0]), h, "zoh")
+        cin, cid = to_discrete_polynomials([0.5, 200.0], [1.0, 0.0], h, "bilinear")
+        con, cod = to_discrete_polynomials([0.4, 1.0], [1.0, 0.0], h, "bilinear")
+        gn, gd = to_discrete_polynomials([1.0], [4e-3, 1.3], h, "zoh")
+        ghn, ghd = to_discrete_polynomials(
+            [1.0], np.polymul([4e-3, 1.3], [1 / 5000.0, 1.0]), h, "zoh"
+        )
         theta = np.linspace(0.02, math.pi - 0.02, 300)
         z = np.exp(1j * theta)
         ci_z = polyval_ratio(cin, cid, z)
@@ -451,9 +453,9 @@ class TestCascades:
         assert any("Nyquist" in n and "aliasing" in n for n in model.notes)
         # Reference: C_o(e^{jwh_o}) hold_o(w) e^{-jw 0.5 h_o} T_i(e^{jw h_i}) G_o(jw), with
         # T_i = C_i G_i^zoh/(1 + C_i G_i^zoh) at the inner rate (scipy.signal.cont2discrete).
-        cin, cid = c2d([0.5, 200.0], [1.0, 0.0], hi, "bilinear")
-        gn, gd = c2d([1.0], [4e-3, 1.3], hi, "zoh")
-        con, cod = c2d([0.4, 1.0], [1.0, 0.0], ho, "bilinear")
+        cin, cid = to_discrete_polynomials([0.5, 200.0], [1.0, 0.0], hi, "bilinear")
+        gn, gd = to_discrete_polynomials([1.0], [4e-3, 1.3], hi, "zoh")
+        con, cod = to_discrete_polynomials([0.4, 1.0], [1.0, 0.0], ho, "bilinear")
         w = np.linspace(0.5, 0.99 * math.pi / ho, 300)
         zi, zo = np.exp(1j * w * hi), np.exp(1j * w * ho)
         li = polyval_ratio(cin, cid, zi) * polyval_ratio(gn, gd, zi)
@@ -483,8 +485,8 @@ class TestCascades:
         assert [type(x) for x in model.open_loop.factors] == [ClosedLoopResponse]
         # Reference: T_i = C_i hold G / (1 + C_i hold G) with C_i by cont2discrete bilinear
         # and the hold (1 - e^{-jwh})/(jwh); the outer plant ZOH in closed form.
-        cin, cid = c2d([0.5, 200.0], [1.0, 0.0], h, "bilinear")
-        con, cod = c2d([0.4, 1.0], [1.0, 0.0], h, "bilinear")
+        cin, cid = to_discrete_polynomials([0.5, 200.0], [1.0, 0.0], h, "bilinear")
+        con, cod = to_discrete_polynomials([0.4, 1.0], [1.0, 0.0], h, "bilinear")
         w = wdata[(wdata > 1.0) & (wdata < 0.99 * math.pi / h)]
         gw = 1 / (4e-3j * w + 1.3)
         z = np.exp(1j * w * h)
@@ -496,7 +498,7 @@ class TestCascades:
     def test_biproper_inner_loop_closed_form(self):
         # L = 3 (s + 2)/(s + 1): T = L/(1 + L) = 3 (s + 2)/(4 s + 7), so the closed
         # loop has its pole at -7/4, its zero at -2 and leading gain 3/4 (by hand).
-        t = closed_loop_zpk(ZPK([-2.0], [-1.0], 3.0), ZPK([-2.0], [-1.0], 3.0))
+        t = closed_loop_zpk(Factored([-2.0], [-1.0], 3.0), Factored([-2.0], [-1.0], 3.0))
         np.testing.assert_allclose(t.poles, [-1.75], rtol=1e-14)
         np.testing.assert_allclose(t.zeros, [-2.0], rtol=1e-14)
         assert t.gain == pytest.approx(0.75, rel=1e-14)
@@ -580,8 +582,8 @@ class TestBuiltLoopsAnalysed:
         g = plant("g", "first_order_dead_time", gain=2.0, time_constant_s=tau_t)
         proj = project([g], [loop("a", "g", controller("pid", kp=kp, ki=ki), rate=1 / h,
                                   delay_samples=float(d))])
-        cn, cd = c2d([kp, ki], [1.0, 0.0], h, "bilinear")
-        gn, gd = c2d([2.0], [tau_t, 1.0], h, "zoh")
+        cn, cd = to_discrete_polynomials([kp, ki], [1.0, 0.0], h, "bilinear")
+        gn, gd = to_discrete_polynomials([2.0], [tau_t, 1.0], h, "zoh")
         den = np.polymul(np.polymul(cd, gd), np.r_[1.0, np.zeros(d)])
         char = np.polyadd(den, np.polymul(cn, gn))
         return proj, bool(np.all(np.abs(np.roots(char)) < 1.0))
@@ -613,7 +615,7 @@ def random_block(rng, n_poles, n_zeros, discrete):
             else:
                 out.append(rng.uniform(-0.9, 0.9) if discrete else -rng.uniform(0.1, 50.0))
         return np.array(out, dtype=complex)
-    return ZPK(roots(n_zeros), roots(n_poles), rng.uniform(0.2, 5.0) * rng.choice([-1, 1]),
+    return Factored(roots(n_zeros), roots(n_poles), rng.uniform(0.2, 5.0) * rng.choice([-1, 1]),
                0.0, 1e-3 if discrete else None)
 
 
@@ -628,7 +630,7 @@ def test_closed_loop_zpk_against_mpmath_roots_and_direct_evaluation(seed):
     fwd = random_block(rng, nf, int(rng.integers(0, nf + 1)), discrete)
     nh = int(rng.integers(0, 3))
     sensor = random_block(rng, nh, int(rng.integers(0, nh + 1)), discrete)
-    sensor = ZPK(sensor.zeros, sensor.poles, abs(sensor.gain), 0.0, sensor.sample_time_s)
+    sensor = Factored(sensor.zeros, sensor.poles, abs(sensor.gain), 0.0, sensor.sample_time_s)
     t = closed_loop_zpk(fwd, fwd * sensor)
     with mpmath.workdps(60):
         def poly(roots, k=1):

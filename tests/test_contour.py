@@ -14,11 +14,11 @@ import pytest
 
 from ruleguard.analysis.contour import ccw_encirclements, sample_contour
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 
 def loop(zeros, poles, gain, delay=0.0, h=None):
-    return OpenLoop(ZPK(zeros, poles, gain, delay, h))
+    return OpenLoop(Factored(zeros, poles, gain, delay, h))
 
 
 class TestContinuous:
@@ -165,7 +165,7 @@ class TestFactors:
             return 1.0 / ((s + 1) * (0.1 * s + 1))
 
         for k, ccw in [(5.0, 0), (15.0, -2)]:
-            L = OpenLoop(ZPK([], [0.0], k), (_SmoothFactor(plant, 1000.0),))
+            L = OpenLoop(Factored([], [0.0], k), (_SmoothFactor(plant, 1000.0),))
             assert ccw_encirclements(L) == ccw
 
 
@@ -212,8 +212,8 @@ class TestBlockFactor:
         # stable iff k < 2 zeta wn (as in TestContinuous), zeta = 0.001
         zeta, wn = 0.001, 10.0
         p = complex(-zeta * wn, wn * math.sqrt(1 - zeta**2))
-        factor = _BlockFactor(ZPK([], [p, p.conjugate()], wn**2))
-        L = OpenLoop(ZPK([], [0.0], ratio * 2 * zeta * wn), (factor,))
+        factor = _BlockFactor(Factored([], [p, p.conjugate()], wn**2))
+        L = OpenLoop(Factored([], [0.0], ratio * 2 * zeta * wn), (factor,))
         assert ccw_encirclements(L) == ccw
 
 

@@ -36,13 +36,13 @@ from ruleguard.models.discretize import (
     zoh_equivalent,
     zoh_state_space,
 )
-from ruleguard.models.lti import ZPK, StateSpace
+from ruleguard.models.lti import Factored, StateSpace
 
 METHODS = ("tustin", "backward_euler", "forward_euler")
 
 
-def pulse_response_of(block: ZPK, samples: int) -> np.ndarray:
-    """Unit-pulse response of a z-plane ZPK, simulated by scipy.signal.dlsim."""
+def pulse_response_of(block: Factored, samples: int) -> np.ndarray:
+    """Unit-pulse response of a z-plane Factored, simulated by scipy.signal.dlsim."""
     system = (block.zeros, block.poles, block.gain, block.sample_time_s)
     u = np.zeros(samples)
     u[0] = 1.0
@@ -50,7 +50,7 @@ def pulse_response_of(block: ZPK, samples: int) -> np.ndarray:
     return np.asarray(y).reshape(-1)
 
 
-def random_block(rng, n_poles: int, n_zeros: int, w_lo=1.0, w_hi=1e3) -> ZPK:
+def random_block(rng, n_poles: int, n_zeros: int, w_lo=1.0, w_hi=1e3) -> Factored:
     """A stable real block with conjugate pairs and real roots spread over decades."""
 
     def roots(k):
@@ -67,11 +67,11 @@ def random_block(rng, n_poles: int, n_zeros: int, w_lo=1.0, w_hi=1e3) -> ZPK:
 
     poles = roots(n_poles)
     zeros = roots(n_zeros)
-    blk = ZPK(zeros, poles, 1.0)
+    blk = Factored(zeros, poles, 1.0)
     return blk.scaled(1.0 / abs(blk.evaluate(0.0)[()]))
 
 
-def scipy_discretized_response(blk: ZPK, h: float, method: str, w: np.ndarray) -> np.ndarray:
+def scipy_discretized_response(blk: Factored, h: float, method: str, w: np.ndarray) -> np.ndarray:
     """Frequency response of scipy.signal.cont2discrete(method) of the block.
 
     scipy works on a state-space realization (its polynomial route loses
@@ -123,7 +123,7 @@ class TestZohPulseResponseClosedForm:
     def test_first_order_with_delay(self, delay_samples):
         a, h = 300.0, 1e-3
         tau = delay_samples * h
-        plant = ZPK([], [-a], a, delay_s=tau)
+        plant = Factored([], [-a], a, delay_s=tau)
         zd = zoh_equivalent(plant, h)
         expected = self.continuous_samples(a, h, tau, 40)
         # closed form derived above
@@ -138,7 +138,7 @@ class TestZohPulseResponseClosedForm:
         # (Astrom & Wittenmark, Computer-Controlled Systems, 1997, section 2.3,
         # the first-order example with a fractional delay).
         a, h, tp = 50.0, 0.01, 0.004
-        zd = zoh_equivalent(ZPK([], [-a], a), h, delay_s=2 * h + tp)
+        zd = zoh_equivalent(Factored([], [-a], a), h, delay_s=2 * h + tp)
         g0 = 1 - math.exp(-a * (h - tp))
         g1 = math.exp(-a * (h - tp)) * (1 - math.exp(-a * tp))
         assert zd.gain == pytest.approx(g0, rel=1e-13)
@@ -167,24 +167,24 @@ class TestZohPulseResponseClosedForm:
 
         t = np.arange(200) * h
         expected = step(t - tau) - step(t - tau - h)
-        zd = zoh_equivalent(ZPK([], [p, p.conjugate()], w * w, delay_s=tau), h)
+        zd = zoh_equivalent(Factored([], [p, p.conjugate()], w * w, delay_s=tau), h)
         np.testing.assert_allclose(pulse_response_of(zd, 200), expected, rtol=0, atol=1e-12)
 
     def test_pure_gain_with_delay(self):
         # K e^{-s tau}: y[k] = K u(kh - tau); with u held, a fractional delay
         # reads the previous sample: K z^-(d+1) for f > 0, K z^-d for f = 0.
         h = 0.01
-        zd = zoh_equivalent(ZPK([], [], 2.5), h, delay_s=2.3 * h)
+        zd = zoh_equivalent(Factored([], [], 2.5), h, delay_s=2.3 * h)
         assert zd.zeros.size == 0 and zd.poles.size == 3 and np.all(zd.poles == 0)
         assert zd.gain == pytest.approx(2.5, rel=1e-14)
-        zd = zoh_equivalent(ZPK([], [], 2.5), h, delay_s=2 * h)
+        zd = zoh_equivalent(Factored([], [], 2.5), h, delay_s=2 * h)
         assert zd.poles.size == 2 and zd.gain == pytest.approx(2.5, rel=1e-14)
 
     def test_direct_feedthrough_with_fraction(self):
         # G(s) = 2 (s + 3)/(s + 1) = 2 + 4/(s + 1): the feedthrough reads
         # u(kh - tau'), i.e. the previous sample for 0 < tau' < h.
         h = 0.01
-        plant = ZPK([-3.0], [-1.0], 2.0)
+        plant = Factored([-3.0], [-1.0], 2.0)
         zd = zoh_equivalent(plant, h, delay_s=0.5 * h)
         t = np.arange(30) * h
 
@@ -199,7 +199,7 @@ class TestZohPulseResponseClosedForm:
         # Powell & Workman, 1998, ZOH equivalent of the double integrator);
         # the poles stay exactly at z = 1 (boundary classification needs it).
         h = 0.02
-        zd = zoh_equivalent(ZPK([], [0.0, 0.0], 1.0), h)
+        zd = zoh_equivalent(Factored([], [0.0, 0.0], 1.0), h)
         assert np.all(zd.poles == 1.0)
         np.testing.assert_allclose(zd.zeros, [-1.0], atol=1e-12)
         assert zd.gain == pytest.approx(h * h / 2, rel=1e-12)
@@ -237,7 +237,7 @@ class TestZohAgainstScipy:
     def test_unstable_and_boundary_plants(self, zeros, poles, gain):
         # scipy.signal.cont2discrete("zoh") as the independent computation;
         # poles stay exactly exp(p h) (on the unit circle for boundary poles)
-        blk = ZPK(zeros, poles, gain)
+        blk = Factored(zeros, poles, gain)
         h = 5e-3
         zd = zoh_equivalent(blk, h)
         np.testing.assert_allclose(
@@ -250,7 +250,7 @@ class TestZohAgainstScipy:
             assert zd.boundary_poles().size == sum(1 for p in poles if p == 0)
 
     def test_zero_block(self):
-        zd = zoh_equivalent(ZPK([], [-1.0], 0.0), 0.1, delay_s=0.05)
+        zd = zoh_equivalent(Factored([], [-1.0], 0.0), 0.1, delay_s=0.05)
         assert zd.gain == 0.0 and zd.zeros.size == 0 and zd.poles.size == 2
 
     def test_state_space_input_against_scipy(self):
@@ -266,7 +266,7 @@ class TestZohAgainstScipy:
         np.testing.assert_allclose(zd.response(w), ref, rtol=1e-10)
 
     def test_zpk_and_state_space_inputs_agree(self):
-        blk = ZPK([-20.0], [-5.0, complex(-3, 40), complex(-3, -40)], 800.0, delay_s=0.0031)
+        blk = Factored([-20.0], [-5.0, complex(-3, 40), complex(-3, -40)], 800.0, delay_s=0.0031)
         ss = scaled_cascade_realization(blk)
         ss = StateSpace(ss.a, ss.b, ss.c, ss.d, delay_s=blk.delay_s)
         h = 0.002
@@ -279,7 +279,7 @@ class TestZohAgainstScipy:
 # ---------------------------------------------------------------------------
 # ZOH at high order against an independent 50-digit modal computation
 # ---------------------------------------------------------------------------
-def modal_zoh_response_mp(block: ZPK, h: float, tau_frac: float, z_points) -> np.ndarray:
+def modal_zoh_response_mp(block: Factored, h: float, tau_frac: float, z_points) -> np.ndarray:
     """ZOH equivalent of a block with distinct poles by partial fractions, in mpmath.
 
     G(s) = D + sum_i r_i / (s - p_i), r_i = K prod(p_i - z) / prod_{j != i}(p_i - p_j).
@@ -335,7 +335,9 @@ class TestZohHighOrder:
         zz = 10 ** rng.uniform(-3, -1, size=m)
         p = -zp * wp + 1j * wp * np.sqrt(1 - zp**2)
         z = -zz * wz + 1j * wz * np.sqrt(1 - zz**2)
-        blk = ZPK(np.concatenate([z, z.conj()]), np.concatenate([p, p.conj(), [-0.5, -5.0]]), 1.0)
+        blk = Factored(
+            np.concatenate([z, z.conj()]), np.concatenate([p, p.conj(), [-0.5, -5.0]]), 1.0
+        )
         blk = blk.scaled(1.0 / abs(blk.evaluate(1j)[()]))
         h = 1e-4
         with warnings.catch_warnings():
@@ -431,7 +433,7 @@ class TestSubstitution:
     def test_tustin_frequency_warping_closed_form(self):
         # Bilinear rule: H_d(e^{j theta}) = H(j (2/h) tan(theta / 2)) for all
         # theta (Franklin, Powell & Workman, 1998, section 6.3.2).
-        blk = ZPK([-30.0], [complex(-5, 200), complex(-5, -200), -1000.0], 5e4)
+        blk = Factored([-30.0], [complex(-5, 200), complex(-5, -200), -1000.0], 5e4)
         h = 1e-3
         zd = discretize_block(blk, "tustin", h)
         theta = np.linspace(0.01, math.pi - 0.01, 200)
@@ -439,7 +441,7 @@ class TestSubstitution:
         np.testing.assert_allclose(zd.evaluate(np.exp(1j * theta)), expected, rtol=1e-11)
 
     def test_tustin_excess_poles_give_zeros_at_minus_one(self):
-        blk = ZPK([], [-10.0, -20.0, -30.0], 6000.0)
+        blk = Factored([], [-10.0, -20.0, -30.0], 6000.0)
         zd = discretize_block(blk, "tustin", 0.01)
         assert np.sum(zd.zeros == -1.0) == 3
         # Nyquist: |H_d(-1)| = 0 exactly (all three zeros there)
@@ -449,7 +451,7 @@ class TestSubstitution:
         # PID kp + ki/s + kd s = (kd s^2 + kp s + ki)/s: improper.
         kp, ki, kd, h = 2.0, 50.0, 0.01, 1e-3
         disc = np.roots([kd, kp, ki])
-        pid = ZPK(disc, [0.0], kd)
+        pid = Factored(disc, [0.0], kd)
         # Tustin: kd s -> kd (2/h)(z - 1)/(z + 1): a pole at z = -1
         zt = discretize_block(pid, "tustin", h)
         assert np.any(zt.poles == -1.0) and zt.is_proper
@@ -465,7 +467,7 @@ class TestSubstitution:
     def test_root_mapped_to_infinity(self):
         # Tustin maps s = 2/h to z = infinity: the factor is the constant -4/h.
         h = 0.01
-        blk = ZPK([2 / h], [-5.0], 1.0)
+        blk = Factored([2 / h], [-5.0], 1.0)
         zd = discretize_block(blk, "tustin", h)
         zpts = np.array([0.2 + 0.1j, -3.0])
         np.testing.assert_allclose(
@@ -483,7 +485,7 @@ class TestPrewarp:
         zz = zp * 10 ** (-depth_db / 20) if math.isfinite(depth_db) else 0.0
         pz = complex(-zz * w, w * math.sqrt(1 - zz**2))
         pp = complex(-zp * w, w * math.sqrt(1 - zp**2))
-        return ZPK([pz, pz.conjugate()], [pp, pp.conjugate()], 1.0), w
+        return Factored([pz, pz.conjugate()], [pp, pp.conjugate()], 1.0), w
 
     @pytest.mark.parametrize("center_hz,fs", [(1800.0, 8000.0), (300.0, 1000.0), (50.0, 2000.0)])
     def test_notch_depth_exact_at_centre(self, center_hz, fs):
@@ -539,15 +541,15 @@ class TestPrewarp:
 
 class TestBadBlocks:
     def test_errors(self):
-        blk = ZPK([], [-1.0], 1.0)
+        blk = Factored([], [-1.0], 1.0)
         with pytest.raises(ValueError, match="unknown discretization method"):
             discretize_block(blk, "matched", 0.1)
         with pytest.raises(ValueError, match="continuous"):
-            discretize_block(ZPK([], [0.5], 1.0, sample_time_s=0.1), "tustin", 0.1)
+            discretize_block(Factored([], [0.5], 1.0, sample_time_s=0.1), "tustin", 0.1)
         with pytest.raises(ValueError, match="transport delay"):
-            discretize_block(ZPK([], [-1.0], 1.0, delay_s=0.1), "tustin", 0.1)
+            discretize_block(Factored([], [-1.0], 1.0, delay_s=0.1), "tustin", 0.1)
         with pytest.raises(ValueError, match="improper"):
-            zoh_equivalent(ZPK([-1.0], [], 1.0), 0.1)
+            zoh_equivalent(Factored([-1.0], [], 1.0), 0.1)
         with pytest.raises(ValueError, match="sample_time_s"):
             zoh_equivalent(blk, 0.0)
         with pytest.raises(ValueError, match="delay"):
@@ -583,7 +585,7 @@ class TestFactors:
         hold = HoldFactor(0.01)
         assert isinstance(hold, ResponseFactor)
         assert isinstance(DelayFactor(0.002), ResponseFactor)
-        loop = OpenLoop(ZPK([], [], 1.0, sample_time_s=0.01), (hold, DelayFactor(0.002)))
+        loop = OpenLoop(Factored([], [], 1.0, sample_time_s=0.01), (hold, DelayFactor(0.002)))
         assert loop.w_max == pytest.approx(math.pi / 0.01)
         assert loop.response(10.0)[()] == pytest.approx(
             hold.response(10.0)[()] * np.exp(-0.02j), rel=1e-14

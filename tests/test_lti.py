@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from ruleguard.models.lti import ZPK, MeasuredResponse, StateSpace, zpk_to_state_space
+from ruleguard.models.lti import Factored, MeasuredResponse, StateSpace, zpk_to_state_space
 
 
 def _random_block(rng, order, discrete=False):
@@ -22,12 +22,12 @@ def _random_block(rng, order, discrete=False):
 
 @pytest.mark.parametrize("seed", range(5))
 def test_continuous_response_matches_scipy_freqresp(seed):
-    # Independent computation: scipy.signal.freqresp of the same zpk system.
+    # Independent computation: scipy.signal.freqresp of the same factored system.
     rng = np.random.default_rng(seed)
     z, p, k = _random_block(rng, 6)
     w = np.logspace(-2, 2, 200)
     _, expected = scipy.signal.freqresp(scipy.signal.ZerosPolesGain(z, p, k), w)
-    got = ZPK(z, p, k).response(w)
+    got = Factored(z, p, k).response(w)
     np.testing.assert_allclose(got, expected, rtol=1e-10)
 
 
@@ -39,31 +39,31 @@ def test_discrete_response_matches_scipy_freqz_zpk(seed):
     h = 1e-3
     w = np.linspace(1.0, np.pi / h, 300)
     _, expected = scipy.signal.freqz_zpk(z, p, k, worN=w * h)
-    got = ZPK(z, p, k, sample_time_s=h).response(w)
+    got = Factored(z, p, k, sample_time_s=h).response(w)
     np.testing.assert_allclose(got, expected, rtol=1e-10)
 
 
 def test_delay_is_exact():
     # exp(-j w tau) has unit modulus and phase -w tau (definition of a delay).
-    block = ZPK([], [-1.0], 1.0, delay_s=0.3)
+    block = Factored([], [-1.0], 1.0, delay_s=0.3)
     w = np.array([0.5, 2.0, 10.0])
-    ratio = block.response(w) / ZPK([], [-1.0], 1.0).response(w)
+    ratio = block.response(w) / Factored([], [-1.0], 1.0).response(w)
     np.testing.assert_allclose(ratio, np.exp(-0.3j * w), rtol=1e-14)
 
 
 def test_high_order_does_not_overflow():
     # 120 poles at -1e4 and 120 zeros at -2e4: |H(j w)| -> 2**120 * k for w >> 2e4.
-    block = ZPK(np.full(120, -2e4), np.full(120, -1e4), 1.0)
+    block = Factored(np.full(120, -2e4), np.full(120, -1e4), 1.0)
     value = block.response(np.array([1e9]))[0]
     assert np.isfinite(value)
     assert abs(value) == pytest.approx(1.0, rel=1e-6)
 
 
 def test_unstable_and_boundary_counts():
-    block = ZPK([], [0.0, 0.0, 2.0, -1.0, 3j, -3j, 1e-15 + 5j, 1e-15 - 5j], 1.0)
+    block = Factored([], [0.0, 0.0, 2.0, -1.0, 3j, -3j, 1e-15 + 5j, 1e-15 - 5j], 1.0)
     assert block.unstable_pole_count() == 1
     assert block.boundary_pole_frequencies() == [(0.0, 2), (3.0, 1), (5.0, 1)]
-    zblock = ZPK([], [1.0, 1.2, 0.5, -1.0], 1.0, sample_time_s=0.01)
+    zblock = Factored([], [1.0, 1.2, 0.5, -1.0], 1.0, sample_time_s=0.01)
     assert zblock.unstable_pole_count() == 1
     freqs = zblock.boundary_pole_frequencies()
     assert freqs[0] == (0.0, 1)
@@ -76,7 +76,7 @@ def test_state_space_round_trip(seed):
     # of the realization's matrices is the independent evaluation).
     rng = np.random.default_rng(200 + seed)
     z, p, k = _random_block(rng, 7)
-    block = ZPK(z, p, k)
+    block = Factored(z, p, k)
     ss = zpk_to_state_space(block)
     w = np.logspace(-2, 2, 100)
     _, expected = scipy.signal.freqresp(scipy.signal.StateSpace(ss.a, ss.b, ss.c, ss.d), w)

@@ -16,7 +16,7 @@ import pytest
 
 from ruleguard.analysis.margins import analyse_open_loop, disk_margin
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 REL = 1e-6
 DEG = 1e-4
@@ -24,7 +24,7 @@ TWO_PI = 2 * math.pi
 
 
 def loop(zeros, poles, gain, delay=0.0, h=None):
-    return OpenLoop(ZPK(zeros, poles, gain, delay, h))
+    return OpenLoop(Factored(zeros, poles, gain, delay, h))
 
 
 def db(x):
@@ -425,14 +425,14 @@ class _SampledPlant:
 class TestResponseFactors:
     def test_same_margins_as_the_rational_loop(self):
         rational = analyse_open_loop(loop([], [0, -1, -2], 1.0)).margins
-        a = analyse_open_loop(OpenLoop(ZPK([], [0.0], 1.0), (_SampledPlant(1e3),)))
+        a = analyse_open_loop(OpenLoop(Factored([], [0.0], 1.0), (_SampledPlant(1e3),)))
         assert a.stability.stable
         assert close(a.margins.gain_margin_db, rational.gain_margin_db)
         assert close(a.margins.phase_margin_deg, rational.phase_margin_deg)
         assert not any("closed by a straight segment" in n for n in a.notes)
 
     def test_note_when_data_ends_too_early(self):
-        a = analyse_open_loop(OpenLoop(ZPK([], [0.0], 1.0), (_SampledPlant(0.5),)))
+        a = analyse_open_loop(OpenLoop(Factored([], [0.0], 1.0), (_SampledPlant(0.5),)))
         assert any("closed by a straight segment" in n for n in a.notes)
 
 
@@ -465,7 +465,7 @@ class TestDiscreteWithFactor:
     def test_closure_at_nyquist_and_note(self):
         # K/(z-1) times a factor: the contour is closed at theta = pi by the
         # segment from L to conj(L); L(-1) = -K/2 = -0.75 lies left of -0.5
-        L = OpenLoop(ZPK([], [1.0], 1.5, sample_time_s=0.01), (_Constant(),))
+        L = OpenLoop(Factored([], [1.0], 1.5, sample_time_s=0.01), (_Constant(),))
         a = analyse_open_loop(L)
         assert a.stability.stable
         assert close(a.margins.gain_margin_db, db(2 / 1.5))
@@ -556,12 +556,12 @@ def test_phase_margin_is_the_smallest_over_all_crossovers():
 
     from ruleguard.analysis.margins import analyse_open_loop
     from ruleguard.analysis.openloop import OpenLoop
-    from ruleguard.models.lti import ZPK
+    from ruleguard.models.lti import Factored
 
     w1, w2 = 2 * np.pi * 150, 2 * np.pi * 180
     num = np.polymul([1.0, 50.0], [1.0, 2 * 0.04 * w1, w1**2]) * 1724 * 0.2
     den = np.polymul(np.polymul([1.0, 0.0], [1.0, 3.5]), [1.0, 2 * 0.03 * w2, w2**2])
-    loop = OpenLoop(ZPK(np.roots(num / num[0]), np.roots(den), num[0]))
+    loop = OpenLoop(Factored(np.roots(num / num[0]), np.roots(den), num[0]))
     result = analyse_open_loop(loop)
     closed = np.roots(np.polyadd(den, num))
     assert result.stability.stable == bool(np.all(closed.real < 0)) is True

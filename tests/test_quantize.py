@@ -24,7 +24,7 @@ import pytest
 from ruleguard.analysis.loop import BlockModel, LoopModel
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.models.discretize import discretize_block, zoh_equivalent
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 from ruleguard.models.quantize import (
     NumericFormat,
     parse_numeric_format,
@@ -34,11 +34,11 @@ from ruleguard.models.quantize import (
 )
 
 
-def lowpass2(cutoff_hz: float, damping: float) -> ZPK:
+def lowpass2(cutoff_hz: float, damping: float) -> Factored:
     # FORMATS.md section 3: w^2 / (s^2 + 2 zeta w s + w^2)
     w = 2 * math.pi * cutoff_hz
     p = complex(-damping * w, w * math.sqrt(1 - damping**2))
-    return ZPK([], [p, p.conjugate()], w * w)
+    return Factored([], [p, p.conjugate()], w * w)
 
 
 def reference_q_round(x: float, m: int, n: int) -> tuple[float, bool]:
@@ -156,7 +156,7 @@ class TestSections:
         if m >= 2 and rng.random() < 0.5:  # a complex zero pair (PID zeros)
             zc = 0.9 * np.exp(0.3j)
             zeros = np.concatenate([zeros[:-2], [zc, np.conj(zc)]])
-        blk = ZPK(zeros, poles, float(rng.uniform(0.1, 10)), sample_time_s=1e-3)
+        blk = Factored(zeros, poles, float(rng.uniform(0.1, 10)), sample_time_s=1e-3)
         cascade = second_order_sections(blk, "float64")
         w = np.linspace(1.0, math.pi / 1e-3, 50)
         np.testing.assert_allclose(cascade.to_zpk().response(w), blk.response(w), rtol=1e-9)
@@ -171,7 +171,7 @@ class TestSections:
         # PI by Tustin: kp + ki h/2 (z + 1)/(z - 1): the pole z = 1 sits in a
         # first-order section with a1 = -1, exact in every format
         h = 1e-3
-        pi_block = discretize_block(ZPK([-50.0], [0.0], 2.0), "tustin", h)
+        pi_block = discretize_block(Factored([-50.0], [0.0], 2.0), "tustin", h)
         lp = discretize_block(lowpass2(50.0, 0.7), "tustin", h)
         cascade = second_order_sections(pi_block * lp, "q1.15")
         firsts = [s for s in cascade.sections if s.order == 1]
@@ -215,7 +215,7 @@ class TestHazards:
         # (reference: exact rational rounding) gives a1 = -22938/32768 and
         # a2 = -9830/32768, whose sum with 1 is exactly 0: a pole on z = 1.
         p1, p2 = 1 - 1e-6, -0.3
-        blk = ZPK([], [p1, p2], 1e-3, sample_time_s=1e-4)
+        blk = Factored([], [p1, p2], 1e-3, sample_time_s=1e-4)
         a1, a2 = -(p1 + p2), p1 * p2
         ra1, _ = reference_q_round(a1, 1, 15)
         ra2, _ = reference_q_round(a2, 1, 15)
@@ -236,7 +236,7 @@ class TestHazards:
                 r = 1 - 10 ** rng.uniform(-7, -1)
                 theta = rng.uniform(0, math.pi)
                 p = r * np.exp(1j * theta)
-                blk = ZPK([], [p, np.conj(p)], 1.0, sample_time_s=1e-3)
+                blk = Factored([], [p, np.conj(p)], 1.0, sample_time_s=1e-3)
                 rebuilt, rep = quantize_block(blk, fmt)
                 assert rep.unstable_poles_after == 0
                 assert np.max(np.abs(np.roots(np.real(np.poly(rebuilt.poles))))) <= 1 + 1e-7
@@ -244,7 +244,7 @@ class TestHazards:
     def test_float32_moves_each_coefficient_by_at_most_2_pow_minus_24(self):
         h = 1e-4
         blk = discretize_block(lowpass2(30.0, 0.3), "tustin", h) * discretize_block(
-            ZPK([-300.0], [0.0], 1.5), "tustin", h
+            Factored([-300.0], [0.0], 1.5), "tustin", h
         )
         _, rep = quantize_block(blk, "float32")
         assert rep.coefficients
@@ -265,11 +265,11 @@ class TestHazards:
 # ---------------------------------------------------------------------------
 def sampled_loop(filter_hz: float = 100.0, h: float = 1e-4, inner: bool = False) -> LoopModel:
     """A PI current loop on an R-L plant with a low-pass filter, sampled with a ZOH."""
-    pi_cont = ZPK([-2000.0], [0.0], 0.2)  # 0.2 (s + 2000)/s: crossover near 42 Hz
+    pi_cont = Factored([-2000.0], [0.0], 0.2)  # 0.2 (s + 2000)/s: crossover near 42 Hz
     lp_cont = lowpass2(filter_hz, 0.707)
     controller = discretize_block(pi_cont, "tustin", h)
     filt = discretize_block(lp_cont, "tustin", h)
-    plant = ZPK([], [-2000.0], 2000.0 / 1.5)  # 1/(L s + R), R = 1.5 ohm
+    plant = Factored([], [-2000.0], 2000.0 / 1.5)  # 1/(L s + R), R = 1.5 ohm
     zoh = zoh_equivalent(plant, h, delay_s=h)
     path = controller * filt
     c_block = BlockModel("controller", "cur (pid)", "pid", pi_cont, controller, "tustin")
@@ -347,7 +347,7 @@ class TestQuantizedModel:
     def test_continuous_loop_is_returned_unchanged(self):
         model = sampled_loop()
         cont = LoopModel(**{**model.__dict__, "sample_rate_hz": None,
-                            "open_loop": OpenLoop(ZPK([], [-1.0], 1.0))})
+                            "open_loop": OpenLoop(Factored([], [-1.0], 1.0))})
         qmodel, report = quantized_model(cont, "q1.15")
         assert qmodel is cont and report.blocks == () and report.notes
 

@@ -304,7 +304,7 @@ class TestPlotGeometry:
         # -3 w^2 + j w (2 - w^2), real only at w = sqrt(2), where it is -6; so
         # L(j sqrt 2) = -K/6 (and the critical gain is 6).
         _, loop, doc = third_order
-        plot = plots.nyquist_plot(loop.curves, _analyses(loop), ident="loop-1-nyquist")
+        plot = plots.nyquist_chart(loop.curves, _analyses(loop), ident="loop-1-nyquist")
         svg = _svg(doc, "loop-1-nyquist")
         panel = plot.panel("nyquist")
         x, y = panel.x, panel.y

@@ -12,7 +12,7 @@ import math
 
 import numpy as np
 import pytest
-from rule_contexts import analysis, context, controller_entry, loop_evaluation, loop_spec, zpk
+from rule_contexts import analysis, context, controller_entry, factored, loop_evaluation, loop_spec
 
 from ruleguard.rules import bandwidth
 from ruleguard.rules.base import Severity
@@ -21,7 +21,7 @@ from ruleguard.rules.base import Severity
 def test_bandwidth_range_first_order_closed_form():
     spec = loop_spec(controller_entry())
     k = 2 * math.pi * 20.0  # T = K/(s + K): bandwidth 20 Hz
-    loop = zpk([], [0.0], k)
+    loop = factored([], [0.0], k)
     L = loop.response(np.array([k]))[0]
     assert abs(L / (1 + L)) == pytest.approx(1 / math.sqrt(2), rel=1e-12)
     ev = loop_evaluation(spec, loop, analysis(bandwidth_hz=20.0))
@@ -36,6 +36,6 @@ def test_bandwidth_range_first_order_closed_form():
 
 def test_bandwidth_unknown_is_a_note():
     spec = loop_spec(controller_entry(), sample_rate_hz=1000.0)
-    ev = loop_evaluation(spec, zpk([], [1.0], 1.0, h=1e-3), analysis(bandwidth_hz=None))
+    ev = loop_evaluation(spec, factored([], [1.0], 1.0, h=1e-3), analysis(bandwidth_hz=None))
     (n,) = bandwidth.bandwidth_range(context(spec, [ev]), {"min_hz": 1.0})
     assert n.severity is Severity.NOTE

@@ -18,10 +18,10 @@ from rule_contexts import (
     context,
     controller_entry,
     evaluation,
+    factored,
     loop_evaluation,
     loop_spec,
     model,
-    zpk,
 )
 
 from ruleguard.rules.base import Severity
@@ -33,7 +33,7 @@ INNER_BW_HZ = 100.0
 def inner_model():
     spec = loop_spec(controller_entry(path="current"), name="axis.current")
     k = 2 * math.pi * INNER_BW_HZ
-    return spec, loop_evaluation(spec, zpk([], [0.0], k), analysis(bandwidth_hz=INNER_BW_HZ))
+    return spec, loop_evaluation(spec, factored([], [0.0], k), analysis(bandwidth_hz=INNER_BW_HZ))
 
 
 def outer_ctx(crossovers, with_model=True, inner_ctx=None):
@@ -41,9 +41,9 @@ def outer_ctx(crossovers, with_model=True, inner_ctx=None):
     inner_spec, inner_ev = inner_model()
     evs = []
     for i, f_c in enumerate(crossovers):
-        ctrl = block("controller", "velocity", "pid", zpk([], [0.0], 2 * math.pi * f_c),
+        ctrl = block("controller", "velocity", "pid", factored([], [0.0], 2 * math.pi * f_c),
                      location=spec.controller.location)
-        plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [], 1.0))
+        plant = block("plant", "mechanics", "zero_pole_gain", factored([], [], 1.0))
         m = model(spec, ctrl, plant, inner=inner_ev.model if with_model else None)
         evs.append(evaluation(f"corner-{i + 1}", m, analysis(crossovers_hz=[f_c])))
     if inner_ctx is None and not with_model:
@@ -78,7 +78,7 @@ def test_unstable_inner_is_a_note_and_plain_loop_is_silent():
     (n,) = separation(ctx, {"min_ratio": 4.0})
     assert n.severity is Severity.NOTE and "unstable" in n.message
     plain = loop_spec(controller_entry())
-    ev = loop_evaluation(plain, zpk([], [0.0], 1.0), analysis(crossovers_hz=[0.16]))
+    ev = loop_evaluation(plain, factored([], [0.0], 1.0), analysis(crossovers_hz=[0.16]))
     assert list(separation(context(plain, [ev]), {"min_ratio": 4.0})) == []
 
 
@@ -88,9 +88,9 @@ def test_analysis_of_the_same_inner_model_is_reused():
     spec = loop_spec(controller_entry(), inner="axis.current")
     inner_spec, inner_ev = inner_model()
     stated = evaluation("nominal", inner_ev.model, analysis(bandwidth_hz=50.0))
-    ctrl = block("controller", "velocity", "pid", zpk([], [0.0], 2 * math.pi * 20.0),
+    ctrl = block("controller", "velocity", "pid", factored([], [0.0], 2 * math.pi * 20.0),
                  location=spec.controller.location)
-    plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [], 1.0))
+    plant = block("plant", "mechanics", "zero_pole_gain", factored([], [], 1.0))
     m = model(spec, ctrl, plant, inner=inner_ev.model)
     ctx = context(spec, [evaluation("nominal", m, analysis(crossovers_hz=[20.0]))],
                   inner=context(inner_spec, [stated]))

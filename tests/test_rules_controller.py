@@ -23,11 +23,11 @@ from rule_contexts import (
     controller_block,
     controller_entry,
     evaluation,
+    factored,
     loop_spec,
     model,
     velocity_manifest,
     write_files,
-    zpk,
 )
 
 from ruleguard.models.discretize import discretize_block
@@ -46,7 +46,7 @@ WD = 2 * math.pi * FD
 def filtered_pid():
     # kp + kd s/(s/wd + 1) = ((kp/wd + kd) s + kp)/(s/wd + 1)
     lead = KP / WD + KD
-    return zpk([-KP / lead], [-WD], lead * WD)
+    return factored([-KP / lead], [-WD], lead * WD)
 
 
 def ctx_with(spec, ctrl_c, filters=(), method="tustin"):
@@ -58,8 +58,8 @@ def ctx_with(spec, ctrl_c, filters=(), method="tustin"):
         fblocks.append(block("filter", f"velocity.filters.{i}", spec.controller.filters[i].kind,
                              c, d if d is not None else disc(c), "given" if d is not None else
                              method, spec.controller.filters[i].location))
-    unity = zpk([], [], 1.0, h=h)
-    plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [-1.0], 1.0),
+    unity = factored([], [], 1.0, h=h)
+    plant = block("plant", "mechanics", "zero_pole_gain", factored([], [-1.0], 1.0),
                   unity if h else None)
     return context(spec, [evaluation("nominal", model(spec, ctrl, plant, fblocks), analysis())])
 
@@ -68,21 +68,21 @@ def ctx_with(spec, ctrl_c, filters=(), method="tustin"):
 def test_stable_controller_and_filters_pass():
     spec = loop_spec(controller_entry(fields={"kp": 1.0, "ki": 10.0},
                                       filters=[("lowpass2", {"cutoff_hz": 500.0})]))
-    pi = zpk([-10.0], [0.0], 1.0)  # the integrator at s = 0 is allowed
+    pi = factored([-10.0], [0.0], 1.0)  # the integrator at s = 0 is allowed
     w = 2 * math.pi * 500
-    lp2 = zpk([], [complex(-0.7 * w, w * math.sqrt(0.51)), complex(-0.7 * w, -w * math.sqrt(0.51))],
-              w * w)
+    pair = [complex(-0.7 * w, w * math.sqrt(0.51)), complex(-0.7 * w, -w * math.sqrt(0.51))]
+    lp2 = factored([], pair, w * w)
     assert list(controller_stable(ctx_with(spec, pi, [(lp2, None)]), {})) == []
 
 
 def test_unstable_continuous_filter_is_located_at_its_entry():
     spec = loop_spec(controller_entry(fields={"kp": 1.0},
                                       filters=[("lowpass1", {"cutoff_hz": 50.0})]))
-    bad = zpk([], [2 * math.pi * 50], -2 * math.pi * 50)  # 1/(1 - s/wc): pole at +wc
-    (v,) = controller_stable(ctx_with(spec, zpk([], [], 1.0), [(bad, None)]), {})
+    bad = factored([], [2 * math.pi * 50], -2 * math.pi * 50)  # 1/(1 - s/wc): pole at +wc
+    (v,) = controller_stable(ctx_with(spec, factored([], [], 1.0), [(bad, None)]), {})
     assert v.location == spec.controller.filters[0].location
     assert v.measured == pytest.approx(2 * math.pi * 50) and v.limit == 0.0
-    assert list(controller_stable(ctx_with(spec, zpk([], [], 1.0), [(bad, None)]),
+    assert list(controller_stable(ctx_with(spec, factored([], [], 1.0), [(bad, None)]),
                                   {"allow_unstable": True})) == []
 
 
@@ -94,18 +94,18 @@ def test_biquad_outside_unit_circle_by_jury():
     h = 1e-3
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=[("biquad", {})]),
                      sample_rate_hz=1000.0)
-    bq = zpk([-1.0, -1.0], poles, 0.1, h=h)
-    (v,) = controller_stable(ctx_with(spec, zpk([], [], 1.0), [(None, bq)]), {})
+    bq = factored([-1.0, -1.0], poles, 0.1, h=h)
+    (v,) = controller_stable(ctx_with(spec, factored([], [], 1.0), [(None, bq)]), {})
     assert v.measured == pytest.approx(math.sqrt(1.3), rel=1e-12) and v.unit == "|z|"
     # a Jury-stable biquad passes
-    ok = zpk([-1.0, -1.0], np.roots([1.0, -1.2, 0.5]), 0.1, h=h)
-    assert list(controller_stable(ctx_with(spec, zpk([], [], 1.0), [(None, ok)]), {})) == []
+    ok = factored([-1.0, -1.0], np.roots([1.0, -1.2, 0.5]), 0.1, h=h)
+    assert list(controller_stable(ctx_with(spec, factored([], [], 1.0), [(None, ok)]), {})) == []
 
 
 # ------------------------------------------------------- derivative filter
 def test_unfiltered_derivative_under_tustin_has_pole_at_minus_one():
     spec = loop_spec(controller_entry(fields={"kp": KP, "kd": KD}), sample_rate_hz=1000.0)
-    pd = zpk([-KP / KD], [], KD)  # kp + kd s, improper
+    pd = factored([-KP / KD], [], KD)  # kp + kd s, improper
     ctx = ctx_with(spec, pd)
     poles = ctx.evaluations[0].model.controller.discrete.poles
     assert np.min(np.abs(poles + 1.0)) < 1e-12  # closed form: Tustin pole at z = -1
@@ -131,7 +131,7 @@ def test_standard_form_filter_at_n_over_td():
     fields = {"form": "standard", "gain": 1.0, "td_s": 1e-3, "n": 10.0}
     spec = loop_spec(controller_entry(fields=fields), sample_rate_hz=2000.0)
     # derivative filter pole at n/td_s = 1e4 rad/s = 1591.5 Hz > Nyquist 1000 Hz
-    c = zpk([-1.0 / 1e-3 * 0.5], [-1e4], 11.0)
+    c = factored([-1.0 / 1e-3 * 0.5], [-1e4], 11.0)
     (v,) = derivative_filter(ctx_with(spec, c), {})
     assert v.measured == pytest.approx(1e4 / (2 * math.pi))
     assert v.location == spec.controller.field_locations["n"]
@@ -139,7 +139,7 @@ def test_standard_form_filter_at_n_over_td():
 
 def test_no_derivative_or_not_analysed_is_silent():
     spec = loop_spec(controller_entry(fields={"kp": 1.0, "kd": 0.0}), sample_rate_hz=1000.0)
-    assert list(derivative_filter(ctx_with(spec, zpk([], [], 1.0)), {})) == []
+    assert list(derivative_filter(ctx_with(spec, factored([], [], 1.0)), {})) == []
     cont = loop_spec(controller_entry(fields={"kp": 1.0, "kd": 0.1}))
     ctx = context(cont, [], not_analysed_reason="improper controller")
     assert list(derivative_filter(ctx, {})) == []
@@ -221,7 +221,7 @@ def test_undamped_filter_pair_is_on_the_boundary():
     # a resonant filter 1/(s^2 + w^2): poles at +-j w, marginal (not an integrator)
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=[("transfer_function", {})]))
     w = 2 * math.pi * 50
-    res = zpk([], [1j * w, -1j * w], w * w)
-    (v,) = controller_stable(ctx_with(spec, zpk([], [], 1.0), [(res, None)]), {})
+    res = factored([], [1j * w, -1j * w], w * w)
+    (v,) = controller_stable(ctx_with(spec, factored([], [], 1.0), [(res, None)]), {})
     assert "on the stability boundary" in v.message
     assert v.frequency_hz == pytest.approx(50.0)

@@ -14,7 +14,7 @@ import math
 
 import numpy as np
 import pytest
-from rule_contexts import analysis, context, controller_entry, loop_evaluation, loop_spec, zpk
+from rule_contexts import analysis, context, controller_entry, factored, loop_evaluation, loop_spec
 
 from ruleguard.rules.base import Severity
 from ruleguard.rules.crossover import RULES, crossover_range
@@ -25,7 +25,7 @@ H = 1.0 / RATE
 
 def discrete_integrator_context(gain, variant="nominal"):
     spec = loop_spec(controller_entry(), sample_rate_hz=RATE)
-    loop = zpk([], [1.0], gain, h=H)
+    loop = factored([], [1.0], gain, h=H)
     theta = 2.0 * math.asin(gain / 2.0)
     # the test data itself: |L| = 1 at the closed-form crossover
     assert abs(abs(loop.response(np.array([theta / H]))[0]) - 1.0) < 1e-12
@@ -63,7 +63,7 @@ def test_sampled_crossover_above_fraction_fails():
 def test_continuous_min_and_max():
     spec = loop_spec(controller_entry())
     k = 2 * math.pi * 50.0  # K/s crosses at w = K: 50 Hz
-    ev = loop_evaluation(spec, zpk([], [0.0], k), analysis(crossovers_hz=[k / (2 * math.pi)]))
+    ev = loop_evaluation(spec, factored([], [0.0], k), analysis(crossovers_hz=[k / (2 * math.pi)]))
     ctx = context(spec, [ev])
     params = {"min_hz": 10.0, "max_hz": 100.0, "max_fraction_of_sample_rate": 0.08}
     assert list(crossover_range(ctx, params)) == []
@@ -75,18 +75,18 @@ def test_continuous_min_and_max():
 
 def test_several_crossovers_use_lowest_and_highest():
     spec = loop_spec(controller_entry())
-    ev = loop_evaluation(spec, zpk([], [0.0], 1.0), analysis(crossovers_hz=[20.0, 300.0]))
+    ev = loop_evaluation(spec, factored([], [0.0], 1.0), analysis(crossovers_hz=[20.0, 300.0]))
     out = list(crossover_range(context(spec, [ev]), {"min_hz": 25.0, "max_hz": 250.0}))
     assert sorted(v.measured for v in out) == [20.0, 300.0]
 
 
 def test_no_crossover_is_a_note_and_no_limits_is_silent():
     spec = loop_spec(controller_entry(), sample_rate_hz=RATE)
-    ev = loop_evaluation(spec, zpk([], [0.5], 0.1, h=H), analysis(crossovers_hz=[]))
+    ev = loop_evaluation(spec, factored([], [0.5], 0.1, h=H), analysis(crossovers_hz=[]))
     (v,) = crossover_range(context(spec, [ev]), RULES[0].defaults())
     assert v.severity is Severity.NOTE and "never crosses" in v.message
     cont = loop_spec(controller_entry())
-    ev = loop_evaluation(cont, zpk([], [0.0], 1.0), analysis(crossovers_hz=[0.16]))
+    ev = loop_evaluation(cont, factored([], [0.0], 1.0), analysis(crossovers_hz=[0.16]))
     assert list(crossover_range(context(cont, [ev]), RULES[0].defaults())) == []
 
 

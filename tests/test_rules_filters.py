@@ -25,12 +25,12 @@ from rule_contexts import (
     controller_block,
     controller_entry,
     evaluation,
+    factored,
     loop_spec,
     model,
     pair,
     velocity_manifest,
     write_files,
-    zpk,
 )
 
 from ruleguard.models.discretize import discretize_block
@@ -42,26 +42,26 @@ def notch(center_hz, width_hz, depth_db):
     w = 2 * math.pi * center_hz
     zp = width_hz / (2 * center_hz)
     zz = zp * 10 ** (-depth_db / 20)
-    return zpk(pair(center_hz, zz), pair(center_hz, zp), 1.0), w, zp, zz
+    return factored(pair(center_hz, zz), pair(center_hz, zp), 1.0), w, zp, zz
 
 
 def sampled_ctx(filters, rate, methods):
     h = 1.0 / rate
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=[(k, f) for k, f, _ in filters]),
                      sample_rate_hz=rate)
-    ctrl = controller_block(spec, zpk([], [], 1.0), zpk([], [], 1.0, h=h), "tustin")
+    ctrl = controller_block(spec, factored([], [], 1.0), factored([], [], 1.0, h=h), "tustin")
     fblocks = []
     for i, ((kind, _, c), method) in enumerate(zip(filters, methods, strict=True)):
         if c is None:
-            d = zpk([-1.0], [0.5], 1.0, h=h)
+            d = factored([-1.0], [0.5], 1.0, h=h)
         else:
             ffields = spec.controller.filters[i].fields
             prewarp = 2 * math.pi * ffields.get("prewarp_hz", ffields.get("center_hz", 0)) or None
             d = discretize_block(c, method, h, prewarp if method == "tustin_prewarp" else None)
         fblocks.append(block("filter", f"velocity.filters.{i} ({kind})", kind, c, d, method,
                              spec.controller.filters[i].location))
-    plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [-1.0], 1.0),
-                  zpk([], [0.5], 1.0, h=h), "zoh", PLANT_LOCATION)
+    plant = block("plant", "mechanics", "zero_pole_gain", factored([], [-1.0], 1.0),
+                  factored([], [0.5], 1.0, h=h), "zoh", PLANT_LOCATION)
     return spec, context(spec, [evaluation("nominal", model(spec, ctrl, plant, fblocks),
                                            analysis())])
 
@@ -116,7 +116,7 @@ def test_notch_prewarped_elsewhere_shift_closed_form():
 
 def test_filter_frequency_near_nyquist_fails_biquad_skipped():
     w = 2 * math.pi * 9000.0
-    lp2 = zpk([], pair(9000.0, 0.707), w * w)
+    lp2 = factored([], pair(9000.0, 0.707), w * w)
     spec, ctx = sampled_ctx(
         [("lowpass2", {"cutoff_hz": 9000.0, "damping": 0.707}, lp2), ("biquad", {}, None)],
         20000.0,
@@ -136,8 +136,8 @@ K_LOOP = 2 * math.pi * 20.0  # k w_r^2 / (s (s^2 + ...)): crossover near 20 Hz
 def resonant_ctx(filters=(), filter_zpks=(), f_r=F_R, crossover_hz=20.0):
     w_r = 2 * math.pi * f_r
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=list(filters)))
-    g = zpk([], [0.0, *pair(f_r, Z_R)], K_LOOP * w_r * w_r)
-    ctrl = controller_block(spec, zpk([], [], 1.0))
+    g = factored([], [0.0, *pair(f_r, Z_R)], K_LOOP * w_r * w_r)
+    ctrl = controller_block(spec, factored([], [], 1.0))
     fblocks = [block("filter", f"velocity.filters.{i}", kind, c,
                      location=spec.controller.filters[i].location)
                for i, ((kind, _), c) in enumerate(zip(filters, filter_zpks, strict=True))]
@@ -184,7 +184,7 @@ def test_resonance_below_crossover_or_well_damped_is_not_checked():
 
 def test_measured_plant_is_a_note():
     spec = loop_spec(controller_entry(fields={"kp": 1.0}))
-    ctrl = block("controller", "velocity", "pid", zpk([], [], 1.0))
+    ctrl = block("controller", "velocity", "pid", factored([], [], 1.0))
     plant = block("plant", "mechanics (measured_response)", "measured_response",
                   location=PLANT_LOCATION)
     m = model(spec, ctrl, plant)
@@ -275,9 +275,9 @@ def test_resonance_above_nyquist_is_measured_where_it_aliases():
 
     rate, h = 1000.0, 1e-3
     w_r = 2 * math.pi * 700.0
-    g = zpk([], [0.0, *pair(700.0, 0.01)], 2 * math.pi * 20.0 * w_r * w_r)
+    g = factored([], [0.0, *pair(700.0, 0.01)], 2 * math.pi * 20.0 * w_r * w_r)
     spec = loop_spec(controller_entry(fields={"kp": 1.0}), sample_rate_hz=rate)
-    ctrl = controller_block(spec, zpk([], [], 1.0), zpk([], [], 1.0, h=h), "tustin")
+    ctrl = controller_block(spec, factored([], [], 1.0), factored([], [], 1.0, h=h), "tustin")
     plant = block("plant", "mechanics", "zero_pole_gain", g, zoh_equivalent(g, h), "zoh",
                   PLANT_LOCATION)
     m = model(spec, ctrl, plant)

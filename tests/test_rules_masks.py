@@ -20,12 +20,12 @@ from rule_contexts import (
     analysis,
     context,
     controller_entry,
+    factored,
     loop_evaluation,
     loop_spec,
     pair,
     velocity_manifest,
     write_files,
-    zpk,
 )
 
 from ruleguard.rules.base import Severity
@@ -34,7 +34,7 @@ from ruleguard.rules.masks import mask_level, response_mask
 
 def integrator_ctx(stable=True):
     spec = loop_spec(controller_entry())
-    ev = loop_evaluation(spec, zpk([], [0.0], 2 * math.pi * 10.0), analysis(stable=stable))
+    ev = loop_evaluation(spec, factored([], [0.0], 2 * math.pi * 10.0), analysis(stable=stable))
     return spec, context(spec, [ev])
 
 
@@ -80,7 +80,7 @@ def test_narrow_resonance_between_breakpoints_is_found():
     zeta, f_n, k = 0.001, 300.0, 0.01
     w_n = 2 * math.pi * f_n
     spec = loop_spec(controller_entry())
-    ev = loop_evaluation(spec, zpk([], pair(f_n, zeta), k * w_n * w_n), analysis())
+    ev = loop_evaluation(spec, factored([], pair(f_n, zeta), k * w_n * w_n), analysis())
     (v,) = response_mask(context(spec, [ev]),
                          {"signal": "loop", "upper": [[100.0, -20.0], [1000.0, -20.0]]})
     assert v.measured == pytest.approx(
@@ -92,7 +92,7 @@ def test_narrow_resonance_between_breakpoints_is_found():
 def test_controller_mask_sampled_and_clipped_at_nyquist():
     h = 1e-3
     spec = loop_spec(controller_entry(), sample_rate_hz=1000.0)
-    ev = loop_evaluation(spec, zpk([1.0], [-0.5], 0.5, h=h), analysis())
+    ev = loop_evaluation(spec, factored([1.0], [-0.5], 0.5, h=h), analysis())
     # C = 0.5 (z - 1)/(z + 0.5) grows with frequency: |C(-1)| = 0.5 * 2/0.5 = 2 at 500 Hz
     out = list(response_mask(context(spec, [ev]),
                              {"signal": "controller", "upper": [[100.0, 0.0], [2000.0, 0.0]]}))
@@ -125,7 +125,7 @@ def test_worst_point_matches_brute_force_on_random_loops():
             poles += pair(10 ** rng.uniform(0.3, 2.7), 10 ** rng.uniform(-3, -0.5))
         poles += list(-(10 ** rng.uniform(0, 3, size=rng.integers(0, 3))))
         zeros += list(-(10 ** rng.uniform(0, 3, size=rng.integers(0, 2))))
-        loop = zpk(zeros, poles, 10 ** rng.uniform(0, 6))
+        loop = factored(zeros, poles, 10 ** rng.uniform(0, 6))
         ev = loop_evaluation(spec, loop, analysis())
         s = 2j * np.pi * f
         brute = 20 * np.log10(

@@ -30,10 +30,10 @@ from rule_contexts import (
     controller_block,
     controller_entry,
     evaluation,
+    factored,
     loop_spec,
     model,
     pair,
-    zpk,
 )
 
 from ruleguard.analysis.margins import analyse_open_loop
@@ -54,12 +54,12 @@ def lowpass_loop(numeric_format):
     lp_fields = {"cutoff_hz": 1000.0, "damping": 0.7}
     spec = loop_spec(controller_entry(fields=fields, filters=[("lowpass2", lp_fields)]),
                      sample_rate_hz=RATE)
-    ctrl = controller_block(spec, zpk([], [], KC), zpk([], [], KC, h=H), "tustin")
-    lp_c = zpk([], pair(1000.0, 0.7), W_LP * W_LP)
+    ctrl = controller_block(spec, factored([], [], KC), factored([], [], KC, h=H), "tustin")
+    lp_c = factored([], pair(1000.0, 0.7), W_LP * W_LP)
     lp = block("filter", "velocity.filters.0 (lowpass2)", "lowpass2", lp_c,
                discretize_block(lp_c, "tustin_prewarp", H, W_LP), "tustin_prewarp",
                spec.controller.filters[0].location)
-    g = zpk([], [A], 1.0)
+    g = factored([], [A], 1.0)
     plant = block("plant", "mechanics (zero_pole_gain)", "zero_pole_gain", g,
                   zoh_equivalent(g, H), "zoh", Location("models/plants.toml", 1, 1, "plants.m"))
     m = model(spec, ctrl, plant, [lp])
@@ -117,8 +117,8 @@ def test_margin_thresholds_from_the_pipeline():
 
 def test_continuous_loop_has_nothing_to_check():
     spec = loop_spec(controller_entry(fields={"kp": 1.0, "numeric_format": "q1.15"}))
-    ctrl = block("controller", "velocity", "pid", zpk([], [], 1.0))
-    plant = block("plant", "m", "zpk", zpk([], [0.0], 1.0))
+    ctrl = block("controller", "velocity", "pid", factored([], [], 1.0))
+    plant = block("plant", "m", "factored", factored([], [0.0], 1.0))
     m = model(spec, ctrl, plant)
     ctx = context(spec, [evaluation("nominal", m, analyse_open_loop(m.open_loop))])
     assert list(quantization_robust(ctx, {})) == []
@@ -132,11 +132,11 @@ def test_marginal_biquad_from_rounding_is_reported():
     assert np.max(np.abs(np.roots([1.0, 0.5, -0.5]))) == pytest.approx(1.0)
     fields = {"kp": 0.1, "numeric_format": "q1.15"}
     spec = loop_spec(controller_entry(fields=fields, filters=[("biquad", {})]), sample_rate_hz=RATE)
-    ctrl = block("controller", "velocity (pid)", "pid", None, zpk([], [], 0.1, h=H), "tustin",
+    ctrl = block("controller", "velocity (pid)", "pid", None, factored([], [], 0.1, h=H), "tustin",
                  spec.controller.location)
     bq = block("filter", "velocity.filters.0 (biquad)", "biquad", None,
-               zpk([0.3, 0.2], poles, 0.5, h=H), "given", spec.controller.filters[0].location)
-    plant = block("plant", "m", "zpk", None, zpk([], [0.9], 0.1, h=H), "zoh")
+               factored([0.3, 0.2], poles, 0.5, h=H), "given", spec.controller.filters[0].location)
+    plant = block("plant", "m", "factored", None, factored([], [0.9], 0.1, h=H), "zoh")
     m = model(spec, ctrl, plant, [bq])
     ctx = context(spec, [evaluation("nominal", m, analyse_open_loop(m.open_loop))])
     out = list(quantization_robust(ctx, {}))
@@ -160,9 +160,10 @@ def test_controller_path_with_zero_gain_is_a_note():
 
     fields = {"kp": 0.0, "numeric_format": "q1.15"}
     spec = loop_spec(controller_entry(fields=fields), sample_rate_hz=RATE)
-    ctrl = block("controller", "velocity (pid)", "pid", zpk([], [], 0.0), zpk([], [], 0.0, h=H),
-                 "tustin", spec.controller.location)
-    plant = block("plant", "m", "zpk", zpk([], [-1.0], 1.0), zpk([], [0.5], 1.0, h=H), "zoh")
+    ctrl = block("controller", "velocity (pid)", "pid", factored([], [], 0.0),
+                 factored([], [], 0.0, h=H), "tustin", spec.controller.location)
+    plant = block("plant", "m", "factored", factored([], [-1.0], 1.0),
+                  factored([], [0.5], 1.0, h=H), "zoh")
     m = model(spec, ctrl, plant)
     ctx = context(spec, [evaluation("nominal", m, analyse_open_loop(m.open_loop))])
     (n,) = quantization_robust(ctx, {})

@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 import pytest
-from rule_contexts import analysis, context, controller_entry, loop_evaluation, loop_spec, zpk
+from rule_contexts import analysis, context, controller_entry, factored, loop_evaluation, loop_spec
 
 from ruleguard.rules import sampling
 from ruleguard.rules.base import Severity
@@ -29,7 +29,7 @@ def theta_bandwidth(k):
 
 def sampled(k, variant="nominal", bw_known=True):
     spec = loop_spec(controller_entry(), sample_rate_hz=RATE)
-    loop = zpk([], [1.0], k, h=H)
+    loop = factored([], [1.0], k, h=H)
     bw_hz = None
     if bw_known:
         theta = theta_bandwidth(k)
@@ -69,9 +69,9 @@ def test_bandwidth_beyond_range_bounds_the_ratio():
 
 def test_sampling_rate_skips_continuous_and_notes_unstable():
     cont = loop_spec(controller_entry())
-    ev = loop_evaluation(cont, zpk([], [0.0], 1.0), analysis(bandwidth_hz=0.16))
+    ev = loop_evaluation(cont, factored([], [0.0], 1.0), analysis(bandwidth_hz=0.16))
     assert list(sampling.sampling_rate(context(cont, [ev]), {"min_ratio": 10.0})) == []
     spec = loop_spec(controller_entry(), sample_rate_hz=RATE)
-    ev = loop_evaluation(spec, zpk([], [1.0], 3.0, h=H), analysis(stable=False))
+    ev = loop_evaluation(spec, factored([], [1.0], 3.0, h=H), analysis(stable=False))
     (n,) = sampling.sampling_rate(context(spec, [ev]), {"min_ratio": 10.0})
     assert n.severity is Severity.NOTE and "unstable" in n.message

@@ -18,9 +18,9 @@ from rule_contexts import (
     controller_block,
     controller_entry,
     evaluation,
+    factored,
     loop_spec,
     model,
-    zpk,
 )
 
 from ruleguard.analysis.openloop import OpenLoop
@@ -31,7 +31,7 @@ from ruleguard.rules.steady_state import loop_type, steady_state_type
 
 def pi_loop(spec, plant_zpk, h=None):
     kp, ki = 2.0, 50.0
-    c = zpk([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
+    c = factored([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
     d = discretize_block(c, "tustin", h) if h else None
     ctrl = controller_block(spec, c, d, "tustin" if h else None)
     pd = None
@@ -45,14 +45,14 @@ def pi_loop(spec, plant_zpk, h=None):
 
 def test_pi_gives_type_one_continuous_and_sampled():
     spec = loop_spec(controller_entry(fields={"kp": 2.0, "ki": 50.0}))
-    ev = pi_loop(spec, zpk([], [-1.0], 1.0))
+    ev = pi_loop(spec, factored([], [-1.0], 1.0))
     assert loop_type(ev.model.open_loop) == 1
     assert list(steady_state_type(context(spec, [ev]), {"min_integrators": 1})) == []
     (v,) = steady_state_type(context(spec, [ev]), {"min_integrators": 2})
     assert v.measured == 1.0 and v.limit == 2.0
     assert v.location == spec.controller.field_locations["ki"]
     dspec = loop_spec(controller_entry(fields={"kp": 2.0, "ki": 50.0}), sample_rate_hz=1000.0)
-    dev = pi_loop(dspec, zpk([], [-1.0], 1.0), h=1e-3)
+    dev = pi_loop(dspec, factored([], [-1.0], 1.0), h=1e-3)
     assert np.min(np.abs(dev.model.controller.discrete.poles - 1.0)) < 1e-15  # Tustin: z = 1
     assert loop_type(dev.model.open_loop) == 1
 
@@ -60,9 +60,9 @@ def test_pi_gives_type_one_continuous_and_sampled():
 def test_zero_at_origin_cancels_plant_integrator():
     # washout s/(s + 1) on the plant 1/s: the integrator does not reach L (type 0)
     spec = loop_spec(controller_entry(kind="transfer_function", fields={}))
-    c = zpk([0.0], [-1.0], 1.0)
+    c = factored([0.0], [-1.0], 1.0)
     ctrl = block("controller", "velocity (transfer_function)", "transfer_function", c)
-    plant = block("plant", "mechanics", "zero_pole_gain", zpk([], [0.0], 3.0))
+    plant = block("plant", "mechanics", "zero_pole_gain", factored([], [0.0], 3.0))
     ev = evaluation("nominal", model(spec, ctrl, plant), analysis())
     assert loop_type(ev.model.open_loop) == 0
     (v,) = steady_state_type(context(spec, [ev]), {"min_integrators": 1})
@@ -72,14 +72,14 @@ def test_zero_at_origin_cancels_plant_integrator():
 def test_measured_factor_integrators_count():
     w = np.logspace(0, 3, 50)
     meas = MeasuredResponse(w, -20 * np.log10(w), np.full_like(w, -90.0), integrators=1)
-    ol = OpenLoop(zpk([], [], 2.0), (meas,))
+    ol = OpenLoop(factored([], [], 2.0), (meas,))
     assert loop_type(ol) == 1
 
 
 def test_default_checks_nothing():
     spec = loop_spec(controller_entry(kind="transfer_function"))
-    c = zpk([], [-1.0], 1.0)
+    c = factored([], [-1.0], 1.0)
     ev = evaluation("nominal", model(spec, block("controller", "c", "tf", c),
-                                     block("plant", "p", "zpk", zpk([], [-2.0], 1.0))),
+                                     block("plant", "p", "factored", factored([], [-2.0], 1.0))),
                     analysis())
     assert list(steady_state_type(context(spec, [ev]), {"min_integrators": 0})) == []

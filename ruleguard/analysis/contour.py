@@ -57,7 +57,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 #: The curve passes through a point ``p`` when ``min |L - p| <= CRITICAL_TOL * max(1, |p|)``.
 CRITICAL_TOL = 1e-8
@@ -90,7 +90,7 @@ class RationalResponse:
     complex arithmetic for the root finders.
     """
 
-    def __init__(self, block: ZPK, extras: tuple[RationalResponse, ...] = ()) -> None:
+    def __init__(self, block: Factored, extras: tuple[RationalResponse, ...] = ()) -> None:
         #: factored blocks inside response factors (their roots also bound the steps)
         self.extras = extras
         if not block.is_proper:
@@ -637,7 +637,7 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
     extras = []
     for f in open_loop.factors:
         block = getattr(f, "block", None)  # a factored block seen through its response
-        if isinstance(block, ZPK) and block.is_proper:
+        if isinstance(block, Factored) and block.is_proper:
             extras.append(RationalResponse(block))
     rational = RationalResponse(open_loop.rational, tuple(extras))
     notes: list[str] = []

@@ -12,7 +12,7 @@ from dataclasses import dataclass, field
 
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.location import Location
-from ruleguard.models.lti import ZPK, MeasuredResponse
+from ruleguard.models.lti import Factored, MeasuredResponse
 
 
 @dataclass(frozen=True, eq=False)
@@ -48,8 +48,8 @@ class BlockModel:
     role: str
     label: str
     kind: str
-    continuous: ZPK | None
-    discrete: ZPK | None
+    continuous: Factored | None
+    discrete: Factored | None
     method: str | None
     characteristic_hz: dict = field(default_factory=dict)
     location: Location = Location("")
@@ -72,7 +72,7 @@ class LoopModel:
     filters: tuple[BlockModel, ...]
     plant: BlockModel
     sensor: BlockModel | None
-    controller_path: ZPK
+    controller_path: Factored
     total_delay_s: float
     discretization: dict
     notes: tuple[str, ...] = ()

@@ -15,7 +15,7 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 
 @runtime_checkable
@@ -64,7 +64,7 @@ class OpenLoop:
         Frequency-response factors (see :class:`ResponseFactor`).
     """
 
-    rational: ZPK
+    rational: Factored
     factors: tuple = ()
 
     @property

@@ -80,7 +80,7 @@ from ruleguard.location import Location
 from ruleguard.models.blocks import DesignedBlock, controller_block, filter_block
 from ruleguard.models.factors import BlockResponse, ClosedLoopResponse
 from ruleguard.models.families import Variant, find_loop
-from ruleguard.models.lti import ZPK, MeasuredResponse, zpk_to_state_space
+from ruleguard.models.lti import Factored, MeasuredResponse, zpk_to_state_space
 from ruleguard.models.plants import plant_delay_s, plant_model
 
 #: Discretization of controller blocks when ``discretization`` is absent.
@@ -159,7 +159,7 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
     sensor, sensor_delay = (None, 0.0) if sensor_entry is None else _plant(sensor_entry, variant)
 
     inner_model: LoopModel | None = None
-    inner_t: ZPK | ClosedLoopResponse | None = None
+    inner_t: Factored | ClosedLoopResponse | None = None
     if spec.inner:
         inner_spec = find_loop(project, spec.inner, spec)
         try:
@@ -226,7 +226,7 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
 
 
 def _controller_side(spec: LoopSpec, h: float | None, notes: list[str]
-                     ) -> tuple[list[BlockModel], list[ZPK]]:
+                     ) -> tuple[list[BlockModel], list[Factored]]:
     """The controller and its filters as designed and as run (in the loop's domain)."""
     designed = [controller_block(spec.controller, h)]
     designed += [filter_block(f, h) for f in spec.controller.filters]
@@ -241,7 +241,7 @@ def _controller_side(spec: LoopSpec, h: float | None, notes: list[str]
     ):
         notes.append(f"no discretization given: {DEFAULT_DISCRETIZATION} (the default) used")
     block_models: list[BlockModel] = []
-    run_blocks: list[ZPK] = []
+    run_blocks: list[Factored] = []
     for i, block in enumerate(designed):
         if i == 0:
             role, label, own = "controller", f"{spec.controller.path} ({block.kind})", None
@@ -281,10 +281,10 @@ def _entry(project: Project, name: str, spec: LoopSpec, key: str) -> PlantEntry:
     return entry
 
 
-def _plant(entry: PlantEntry, variant: Variant) -> tuple[ZPK | MeasuredResponse, float]:
+def _plant(entry: PlantEntry, variant: Variant) -> tuple[Factored | MeasuredResponse, float]:
     values = variant.values_for(entry.name)
     model = plant_model(entry, values)
-    if isinstance(model, ZPK):
+    if isinstance(model, Factored):
         return model, model.delay_s
     return model, plant_delay_s(entry, values)
 
@@ -313,7 +313,7 @@ def _method(value, location: Location) -> str:
     return value
 
 
-def _run_block(block: DesignedBlock, method: str, h: float | None) -> tuple[ZPK, str | None]:
+def _run_block(block: DesignedBlock, method: str, h: float | None) -> tuple[Factored, str | None]:
     """The block as the loop runs it, and the method actually used."""
     if h is None:
         return block.model, None
@@ -335,53 +335,53 @@ def _run_block(block: DesignedBlock, method: str, h: float | None) -> tuple[ZPK,
 
 
 # ------------------------------------------------------------ plant paths
-def _continuous_path(controller_path: ZPK, inner_t, plant, sensor, delay_s: float) -> OpenLoop:
+def _continuous_path(controller_path: Factored, inner_t, plant, sensor, delay_s: float) -> OpenLoop:
     rational = controller_path
     factors: list = []
     for piece in (inner_t, plant, sensor):
         if piece is None:
             continue
-        if isinstance(piece, ZPK) and not piece.is_discrete:
+        if isinstance(piece, Factored) and not piece.is_discrete:
             rational = rational * piece.without_delay()
-        elif isinstance(piece, ZPK):
+        elif isinstance(piece, Factored):
             factors.append(BlockResponse(piece))
         else:
             factors.append(piece)
-    rational = ZPK(rational.zeros, rational.poles, rational.gain, delay_s, None)
+    rational = Factored(rational.zeros, rational.poles, rational.gain, delay_s, None)
     return OpenLoop(rational, tuple(factors))
 
 
-def _discrete_path(controller_path: ZPK, inner_t, plant, sensor, delay_s: float, h: float,
-                   notes: list[str]) -> tuple[OpenLoop, ZPK | None, str]:
+def _discrete_path(controller_path: Factored, inner_t, plant, sensor, delay_s: float, h: float,
+                   notes: list[str]) -> tuple[OpenLoop, Factored | None, str]:
     """The open loop of a sampled loop, the plant-path ZOH block, and the plant method."""
     from ruleguard.models.discretize import DelayFactor, HoldFactor, split_delay, zoh_equivalent
 
     rational = controller_path
-    continuous: list[ZPK] = []
+    continuous: list[Factored] = []
     same_rate: list = []  # z-domain responses at this rate: multiplied as they are
     responses: list = []  # continuous-time responses: seen through the hold
     for piece in (inner_t, plant, sensor):
         if piece is None:
             continue
-        if isinstance(piece, ZPK) and piece.is_discrete and _same_rate(piece.sample_time_s, h):
+        if isinstance(piece, Factored) and piece.is_discrete and _same_rate(piece.sample_time_s, h):
             rational = rational * piece
-        elif isinstance(piece, ZPK) and not piece.is_discrete:
+        elif isinstance(piece, Factored) and not piece.is_discrete:
             continuous.append(piece.without_delay())
-        elif isinstance(piece, ZPK):
+        elif isinstance(piece, Factored):
             responses.append(BlockResponse(piece))
         elif isinstance(piece, ClosedLoopResponse) and _same_rate(piece.loop.sample_time_s, h):
             same_rate.append(piece)
         else:
             responses.append(piece)
     if not responses:
-        path = ZPK.unity()
+        path = Factored.unity()
         for piece in continuous:
             path = path * piece
         zoh = zoh_equivalent(path, h, delay_s)
         return OpenLoop(rational * zoh, tuple(same_rate)), zoh, "zoh"
     whole, fraction = split_delay(delay_s, h)
     if whole:
-        rational = rational * ZPK([], np.zeros(whole), 1.0, 0.0, h)
+        rational = rational * Factored([], np.zeros(whole), 1.0, 0.0, h)
     factors: list = [HoldFactor(h)]
     if fraction:
         factors.append(DelayFactor(fraction * h))
@@ -399,12 +399,12 @@ def _same_rate(h1: float | None, h2: float | None) -> bool:
     return abs(h1 - h2) <= SAME_RATE_RTOL * max(h1, h2)
 
 
-def _plant_block(entry: PlantEntry, model, role: str, discrete: ZPK | None,
+def _plant_block(entry: PlantEntry, model, role: str, discrete: Factored | None,
                  method: str | None) -> BlockModel:
     measured = model if isinstance(model, MeasuredResponse) else None
     return BlockModel(
         role=role, label=f"{entry.name} ({entry.kind})", kind=entry.kind,
-        continuous=model if isinstance(model, ZPK) else None,
+        continuous=model if isinstance(model, Factored) else None,
         discrete=discrete, method=method, characteristic_hz={},
         location=entry.location, measured=measured,
     )
@@ -422,7 +422,7 @@ def _boundary_notes(loop: OpenLoop) -> list[str]:
 
 # ---------------------------------------------------------------- cascades
 def inner_closed_loop(forward: OpenLoop, loop: OpenLoop, location: Location
-                      ) -> ZPK | ClosedLoopResponse:
+                      ) -> Factored | ClosedLoopResponse:
     """The closed inner loop ``T = forward / (1 + loop)`` for the outer loop.
 
     Factored (:func:`closed_loop_zpk`) when both are rational without a
@@ -441,7 +441,7 @@ def inner_closed_loop(forward: OpenLoop, loop: OpenLoop, location: Location
     return ClosedLoopResponse(forward, loop)
 
 
-def closed_loop_zpk(forward: ZPK, loop: ZPK) -> ZPK:
+def closed_loop_zpk(forward: Factored, loop: Factored) -> Factored:
     """``T = forward / (1 + loop)`` in factored form.
 
     ``T = forward * S`` with ``S = 1/(1 + L)``: the zeros of ``S`` are the
@@ -482,7 +482,7 @@ def closed_loop_zpk(forward: ZPK, loop: ZPK) -> ZPK:
         closed_poles = np.zeros(0, complex)
     s_gain = 1.0 / (1.0 + d) if loop.relative_degree == 0 else 1.0
     leftover = _remove_matching(list(loop.poles), forward.poles)
-    return ZPK(np.concatenate([forward.zeros, np.asarray(leftover, dtype=complex)]),
+    return Factored(np.concatenate([forward.zeros, np.asarray(leftover, dtype=complex)]),
                closed_poles, forward.gain * s_gain, 0.0, loop.sample_time_s)
 
 

@@ -1,7 +1,7 @@
 """Controller and filter blocks as designed: factored s-plane or z-plane blocks.
 
 Each controller table and filter item (FORMATS.md section 3) becomes a
-:class:`DesignedBlock`: a :class:`~ruleguard.models.lti.ZPK` in the s-plane
+:class:`DesignedBlock`: a :class:`~ruleguard.models.lti.Factored` in the s-plane
 (``pid``, ``lead_lag``, ``lowpass1``, ``lowpass2``, ``notch``,
 ``transfer_function`` with ``domain = "s"``) or in the z-plane as given
 (``biquad``, ``transfer_function`` with ``domain = "z"``), with the
@@ -46,7 +46,7 @@ from ruleguard.errors import InputError
 from ruleguard.load.spec import ControllerEntry, FilterEntry
 from ruleguard.location import Location
 from ruleguard.models.fieldvalues import FieldReader
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 from ruleguard.models.polynomials import (
     second_order_roots,
     trim_common_trailing_zeros,
@@ -87,7 +87,7 @@ class DesignedBlock:
     """
 
     kind: str
-    model: ZPK
+    model: Factored
     given_in_z: bool
     characteristic_hz: Mapping[str, float] = field(default_factory=dict)
     prewarp_hz: float | None = None
@@ -241,7 +241,7 @@ def _lead_lag(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock
     fz = _positive(reader, "zero_hz")
     fp = _positive(reader, "pole_hz")
     wz, wp = TWO_PI * fz, TWO_PI * fp
-    model = ZPK([-wz], [-wp], gain * wp / wz)
+    model = Factored([-wz], [-wp], gain * wp / wz)
     mean = math.sqrt(fz * fp)
     chars = {"zero_hz": fz, "pole_hz": fp, "geometric_mean_hz": mean}
     return DesignedBlock("lead_lag", model, False, chars, mean)
@@ -250,14 +250,14 @@ def _lead_lag(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock
 def _lowpass1(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock:
     fc = _positive(reader, "cutoff_hz")
     wc = TWO_PI * fc
-    return DesignedBlock("lowpass1", ZPK([], [-wc], wc), False, {"cutoff_hz": fc}, fc)
+    return DesignedBlock("lowpass1", Factored([], [-wc], wc), False, {"cutoff_hz": fc}, fc)
 
 
 def _lowpass2(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock:
     fc = _positive(reader, "cutoff_hz")
     zeta = _positive(reader, "damping")
     w = TWO_PI * fc
-    model = ZPK([], second_order_roots(w, zeta), w * w)
+    model = Factored([], second_order_roots(w, zeta), w * w)
     return DesignedBlock("lowpass2", model, False, {"cutoff_hz": fc}, fc)
 
 
@@ -270,7 +270,7 @@ def _notch(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock:
     w = TWO_PI * fc
     zeta_p = width / (2.0 * fc)
     zeta_z = zeta_p * 10.0 ** (-depth / 20.0)
-    model = ZPK(second_order_roots(w, zeta_z), second_order_roots(w, zeta_p), 1.0)
+    model = Factored(second_order_roots(w, zeta_z), second_order_roots(w, zeta_p), 1.0)
     return DesignedBlock("notch", model, False, {"center_hz": fc, "width_hz": width}, fc)
 
 

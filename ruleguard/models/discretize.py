@@ -37,7 +37,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ruleguard.errors import NumericalWarning
-from ruleguard.models.lti import ZPK, StateSpace
+from ruleguard.models.lti import Factored, StateSpace
 
 #: Methods accepted by :func:`discretize_block`.
 DISCRETIZATION_METHODS = ("tustin", "tustin_prewarp", "backward_euler", "forward_euler")
@@ -91,11 +91,11 @@ def tustin_constant(sample_time_s: float, prewarp_rad_s: float | None = None) ->
 
 
 def discretize_block(
-    block: ZPK,
+    block: Factored,
     method: str,
     sample_time_s: float,
     prewarp_rad_s: float | None = None,
-) -> ZPK:
+) -> Factored:
     """Map a continuous controller or filter block to the z-plane.
 
     Each factor ``(s - q)`` of the block is substituted individually, so the
@@ -145,7 +145,7 @@ def discretize_block(
 
     Returns
     -------
-    ZPK
+    Factored
         The z-plane block, ``sample_time_s = h``.
 
     Raises
@@ -163,8 +163,8 @@ def discretize_block(
     Astrom & Wittenmark, Computer-Controlled Systems, 3rd ed., 1997,
     section 8.2 (approximations of continuous-time controllers).
     """
-    if not isinstance(block, ZPK):
-        raise TypeError(f"block must be a ZPK, got {type(block).__name__}")
+    if not isinstance(block, Factored):
+        raise TypeError(f"block must be a Factored, got {type(block).__name__}")
     if block.is_discrete:
         raise ValueError("discretize_block needs a continuous (s-plane) block")
     if block.delay_s:
@@ -227,7 +227,7 @@ def discretize_block(
     gain = block.gain * _ratio_of_products(
         np.concatenate([za, zconst]), np.concatenate([pa, pconst])
     )
-    return ZPK(zeros, poles, gain, 0.0, h)
+    return Factored(zeros, poles, gain, 0.0, h)
 
 
 def _map_roots(roots: np.ndarray, factor, degenerate, scale: float):
@@ -395,7 +395,7 @@ def split_delay(delay_s: float, sample_time_s: float) -> tuple[int, float]:
 
 
 def zoh_state_space(
-    block: ZPK | StateSpace, sample_time_s: float, delay_s: float = 0.0
+    block: Factored | StateSpace, sample_time_s: float, delay_s: float = 0.0
 ) -> DiscreteStateSpace:
     """Exact discrete realization of hold -> block (with delay) -> sampler.
 
@@ -418,14 +418,14 @@ def zoh_state_space(
     ``e^{A h} - I`` for slow modes. For ``f > 0`` the state is augmented with
     ``u[k-1]``, which adds a pole at ``z = 0``; the ``d`` whole samples are
     kept as ``delay_samples``. Nothing is rounded and no rational
-    approximation of the delay is used. A ZPK block is realised by
+    approximation of the delay is used. A Factored block is realised by
     :func:`scaled_cascade_realization`; a StateSpace block is balanced by a
     diagonal similarity first.
 
     Parameters
     ----------
     block:
-        Continuous proper block (ZPK or StateSpace); its own ``delay_s`` is
+        Continuous proper block (Factored or StateSpace); its own ``delay_s`` is
         part of the total delay.
     sample_time_s:
         Sample period h (s).
@@ -482,8 +482,8 @@ def zoh_state_space(
 
 
 def zoh_equivalent(
-    block: ZPK | StateSpace, sample_time_s: float, delay_s: float = 0.0
-) -> ZPK:
+    block: Factored | StateSpace, sample_time_s: float, delay_s: float = 0.0
+) -> Factored:
     """Exact zero-order-hold equivalent of a continuous block with transport delay.
 
     The discrete realization of :func:`zoh_state_space` is put in factored
@@ -508,7 +508,7 @@ def zoh_equivalent(
     Parameters
     ----------
     block:
-        Continuous proper block (ZPK or StateSpace), delay included.
+        Continuous proper block (Factored or StateSpace), delay included.
     sample_time_s:
         Sample period h (s).
     delay_s:
@@ -516,7 +516,7 @@ def zoh_equivalent(
 
     Returns
     -------
-    ZPK
+    Factored
         z-plane block with ``sample_time_s = h``.
 
     Warns
@@ -536,7 +536,7 @@ def zoh_equivalent(
     """
     h = _check_sample_time(sample_time_s)
     dss = zoh_state_space(block, h, delay_s)
-    if isinstance(block, ZPK):
+    if isinstance(block, Factored):
         cont_poles = block.poles
     else:
         cont_poles = np.linalg.eigvals(block.a) if block.order else np.zeros(0, complex)
@@ -544,10 +544,10 @@ def zoh_equivalent(
     augmented = dss.order - np.asarray(cont_poles).size
     poles = np.concatenate([poles, np.zeros(augmented + dss.delay_samples, complex)])
     if not np.any(dss.c) and dss.d[0, 0] == 0.0:
-        return ZPK([], poles, 0.0, 0.0, h)  # a zero block has no zeros to speak of
+        return Factored([], poles, 0.0, 0.0, h)  # a zero block has no zeros to speak of
     zeros = discrete_zeros(dss)
     gain = _fit_gain(dss, zeros, poles)
-    return ZPK(zeros, poles, gain, 0.0, h)
+    return Factored(zeros, poles, gain, 0.0, h)
 
 
 def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
@@ -623,7 +623,7 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
     x = 1j * theta
     target = dss._evaluate(np.exp(x), np.expm1(x))
     with np.errstate(all="ignore"):
-        shape = ZPK(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
+        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
     mag = np.abs(target)
     top = float(np.max(mag, initial=0.0))
     if top == 0.0:
@@ -644,7 +644,7 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
     return gain
 
 
-def _as_state_space(block: ZPK | StateSpace) -> tuple[StateSpace, float]:
+def _as_state_space(block: Factored | StateSpace) -> tuple[StateSpace, float]:
     if isinstance(block, StateSpace):
         if block.order == 0:
             return block, block.delay_s
@@ -657,13 +657,13 @@ def _as_state_space(block: ZPK | StateSpace) -> tuple[StateSpace, float]:
         b = block.b / scale[:, None]
         c = block.c * scale[None, :]
         return StateSpace(a, b, c, block.d, block.delay_s), block.delay_s
-    if isinstance(block, ZPK):
+    if isinstance(block, Factored):
         if block.is_discrete:
             raise ValueError("zoh_equivalent needs a continuous (s-plane) block")
         if not block.is_proper:
             raise ValueError("an improper block has no zero-order-hold equivalent")
         return scaled_cascade_realization(block), block.delay_s
-    raise TypeError(f"block must be a ZPK or StateSpace, got {type(block).__name__}")
+    raise TypeError(f"block must be a Factored or StateSpace, got {type(block).__name__}")
 
 
 # --------------------------------------------------------------------------
@@ -802,7 +802,7 @@ def section_groups(
     return [(tuple(assigned[k]), groups[k]) for k in order]
 
 
-def scaled_cascade_realization(block: ZPK) -> StateSpace:
+def scaled_cascade_realization(block: Factored) -> StateSpace:
     """A well-scaled real state-space realization of a proper s-plane block.
 
     A cascade of sections (:func:`section_groups`, each pole pair with its

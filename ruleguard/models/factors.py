@@ -18,10 +18,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 
-def _integrator_count(block: ZPK) -> int:
+def _integrator_count(block: Factored) -> int:
     """Boundary poles at zero frequency (s = 0, or z = 1)."""
     for w0, m in block.boundary_pole_frequencies():
         if w0 == 0.0 or abs(w0) <= 1e-12:
@@ -38,7 +38,7 @@ class BlockResponse:
     up to its own Nyquist frequency (``w_max = pi / h``).
     """
 
-    block: ZPK
+    block: Factored
 
     @property
     def unstable_poles(self) -> int:

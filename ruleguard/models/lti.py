@@ -37,7 +37,7 @@ def _as_complex_vector(values, name: str) -> np.ndarray:
 
 
 @dataclass(frozen=True, eq=False)
-class ZPK:
+class Factored:
     """A single-input single-output rational block in factored form.
 
     Parameters
@@ -185,15 +185,15 @@ class ZPK:
         return np.unique(w)
 
     # ----------------------------------------------------------- composition
-    def __mul__(self, other: ZPK) -> ZPK:
-        if not isinstance(other, ZPK):
+    def __mul__(self, other: Factored) -> Factored:
+        if not isinstance(other, Factored):
             return NotImplemented
         if self.sample_time_s != other.sample_time_s:
             raise ValueError(
                 "cannot multiply blocks of different domains "
                 f"(sample_time_s {self.sample_time_s} and {other.sample_time_s})"
             )
-        return ZPK(
+        return Factored(
             np.concatenate([self.zeros, other.zeros]),
             np.concatenate([self.poles, other.poles]),
             self.gain * other.gain,
@@ -201,15 +201,17 @@ class ZPK:
             self.sample_time_s,
         )
 
-    def scaled(self, factor: float) -> ZPK:
-        return ZPK(self.zeros, self.poles, self.gain * factor, self.delay_s, self.sample_time_s)
+    def scaled(self, factor: float) -> Factored:
+        return Factored(
+            self.zeros, self.poles, self.gain * factor, self.delay_s, self.sample_time_s
+        )
 
-    def without_delay(self) -> ZPK:
-        return ZPK(self.zeros, self.poles, self.gain, 0.0, self.sample_time_s)
+    def without_delay(self) -> Factored:
+        return Factored(self.zeros, self.poles, self.gain, 0.0, self.sample_time_s)
 
     @staticmethod
-    def unity(sample_time_s: float | None = None) -> ZPK:
-        return ZPK([], [], 1.0, 0.0, sample_time_s)
+    def unity(sample_time_s: float | None = None) -> Factored:
+        return Factored([], [], 1.0, 0.0, sample_time_s)
 
 
 @dataclass(frozen=True, eq=False)
@@ -246,7 +248,7 @@ class StateSpace:
     def order(self) -> int:
         return self.a.shape[0]
 
-    def to_zpk(self) -> ZPK:
+    def to_zpk(self) -> Factored:
         """Factored form: poles = eig(A), zeros = finite invariant zeros.
 
         The invariant zeros are the finite generalized eigenvalues of the
@@ -260,7 +262,7 @@ class StateSpace:
         n = self.order
         poles = np.linalg.eigvals(self.a) if n else np.zeros(0, complex)
         if n == 0:
-            return ZPK([], [], float(self.d[0, 0]), self.delay_s)
+            return Factored([], [], float(self.d[0, 0]), self.delay_s)
         m = np.block([[self.a, self.b], [self.c, self.d]])
         e = np.zeros((n + 1, n + 1))
         e[:n, :n] = np.eye(n)
@@ -272,11 +274,11 @@ class StateSpace:
         scale = 1.0 + float(np.max(np.abs(np.concatenate([poles, zeros])), initial=1.0))
         probe = complex(0.37 * scale, 1.13 * scale)
         h = complex(self.evaluate(probe).reshape(-1)[0]) * np.exp(probe * self.delay_s)
-        shape = complex(ZPK(zeros, poles, 1.0).evaluate(probe).reshape(-1)[0])
+        shape = complex(Factored(zeros, poles, 1.0).evaluate(probe).reshape(-1)[0])
         if h == 0 or shape == 0:
-            return ZPK([], poles, 0.0, self.delay_s)
+            return Factored([], poles, 0.0, self.delay_s)
         gain = (h / shape).real
-        return ZPK(zeros, poles, gain, self.delay_s)
+        return Factored(zeros, poles, gain, self.delay_s)
 
     def evaluate(self, x) -> np.ndarray:
         """Transfer function ``C (xI - A)^-1 B + D`` at complex points (delay included)."""
@@ -295,7 +297,7 @@ class StateSpace:
         return out
 
 
-def zpk_to_state_space(block: ZPK) -> StateSpace:
+def zpk_to_state_space(block: Factored) -> StateSpace:
     """A real state-space realization of a proper rational block (delay dropped).
 
     Built as a series connection of real first- and second-order sections,
@@ -337,7 +339,7 @@ def _pair_roots(roots: np.ndarray) -> tuple[list[float], list[complex]]:
     return real, upper
 
 
-def _real_sections(block: ZPK) -> list[tuple[np.ndarray, np.ndarray]]:
+def _real_sections(block: Factored) -> list[tuple[np.ndarray, np.ndarray]]:
     """Monic real (numerator, denominator) sections of degree <= 2 whose product is the block."""
     zr, zc = _pair_roots(block.zeros)
     pr, pc = _pair_roots(block.poles)

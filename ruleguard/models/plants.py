@@ -1,7 +1,7 @@
 """Plant (and sensor) registry entries as factored blocks or measured responses.
 
 :func:`plant_model` turns a :class:`~ruleguard.load.spec.PlantEntry` into an
-s-plane :class:`~ruleguard.models.lti.ZPK` (transport delay exact in
+s-plane :class:`~ruleguard.models.lti.Factored` (transport delay exact in
 ``delay_s``) or a :class:`~ruleguard.models.lti.MeasuredResponse`, once a
 variant has fixed its parameter values. Every kind of FORMATS.md section 2:
 
@@ -40,7 +40,7 @@ import numpy as np
 from ruleguard.errors import InputError
 from ruleguard.load.spec import PlantEntry
 from ruleguard.models.fieldvalues import FieldReader, is_expression, resolve_parameters
-from ruleguard.models.lti import ZPK, MeasuredResponse, StateSpace
+from ruleguard.models.lti import Factored, MeasuredResponse, StateSpace
 from ruleguard.models.polynomials import polynomial_roots, second_order_roots
 
 TWO_PI = 2.0 * math.pi
@@ -54,7 +54,7 @@ def plant_reader(entry: PlantEntry, overrides: Mapping[str, float]) -> FieldRead
 
 
 def plant_model(entry: PlantEntry, overrides: Mapping[str, float] | None = None
-                ) -> ZPK | MeasuredResponse:
+                ) -> Factored | MeasuredResponse:
     """The entry as an s-plane block (or a measured response) for one variant.
 
     Parameters
@@ -75,7 +75,7 @@ def plant_model(entry: PlantEntry, overrides: Mapping[str, float] | None = None
         raise InputError.at(entry.location,
                             f"unknown plant kind {entry.kind!r}; expected one of {sorted(_KINDS)}")
     model = builder(entry, reader)
-    if isinstance(model, ZPK) and not model.is_proper:
+    if isinstance(model, Factored) and not model.is_proper:
         raise InputError.at(entry.location,
                             f"plant {entry.name!r} is improper (more zeros than poles)")
     return model
@@ -101,7 +101,7 @@ def _coefficients(reader: FieldReader, key: str) -> list[float]:
     return [reader.item(v, key) for v in raw]
 
 
-def _from_coefficients(reader: FieldReader, num, den, what: str) -> ZPK:
+def _from_coefficients(reader: FieldReader, num, den, what: str) -> Factored:
     den = np.asarray(den, dtype=float)
     if not np.any(den != 0.0):
         raise InputError.at(reader.where("denominator"), f"{what}: the denominator is zero")
@@ -109,12 +109,12 @@ def _from_coefficients(reader: FieldReader, num, den, what: str) -> ZPK:
     nz = np.flatnonzero(num != 0.0)
     dz = np.flatnonzero(den != 0.0)
     if nz.size == 0:
-        return ZPK([], polynomial_roots(den), 0.0, _delay(reader))
+        return Factored([], polynomial_roots(den), 0.0, _delay(reader))
     num, den = num[nz[0]:], den[dz[0]:]
-    return ZPK(polynomial_roots(num), polynomial_roots(den), num[0] / den[0], _delay(reader))
+    return Factored(polynomial_roots(num), polynomial_roots(den), num[0] / den[0], _delay(reader))
 
 
-def _transfer_function(entry: PlantEntry, reader: FieldReader) -> ZPK:
+def _transfer_function(entry: PlantEntry, reader: FieldReader) -> Factored:
     num = _coefficients(reader, "numerator")
     den = _coefficients(reader, "denominator")
     return _from_coefficients(reader, num, den, "transfer_function")
@@ -148,8 +148,8 @@ def _roots(reader: FieldReader, key: str) -> np.ndarray:
     return np.asarray(roots, dtype=complex)
 
 
-def _zero_pole_gain(entry: PlantEntry, reader: FieldReader) -> ZPK:
-    return ZPK(_roots(reader, "zeros"), _roots(reader, "poles"), reader.number("gain"),
+def _zero_pole_gain(entry: PlantEntry, reader: FieldReader) -> Factored:
+    return Factored(_roots(reader, "zeros"), _roots(reader, "poles"), reader.number("gain"),
                _delay(reader))
 
 
@@ -168,7 +168,7 @@ def _matrix(reader: FieldReader, key: str) -> np.ndarray:
     return np.array(rows, dtype=float).reshape(len(rows), widths.pop() if widths else 0)
 
 
-def _state_space(entry: PlantEntry, reader: FieldReader) -> ZPK:
+def _state_space(entry: PlantEntry, reader: FieldReader) -> Factored:
     a = _matrix(reader, "a")
     n = a.shape[0]
     b = _matrix(reader, "b")
@@ -183,26 +183,26 @@ def _state_space(entry: PlantEntry, reader: FieldReader) -> ZPK:
     return StateSpace(a, b, c, d, _delay(reader)).to_zpk()
 
 
-def _first_order_dead_time(entry: PlantEntry, reader: FieldReader) -> ZPK:
+def _first_order_dead_time(entry: PlantEntry, reader: FieldReader) -> Factored:
     gain = reader.number("gain")
     tau = reader.number("time_constant_s")
     if not tau > 0:
         raise InputError.at(reader.where("time_constant_s"), "time_constant_s must be positive")
-    return ZPK([], [-1.0 / tau], gain / tau, _delay(reader))
+    return Factored([], [-1.0 / tau], gain / tau, _delay(reader))
 
 
-def _second_order(entry: PlantEntry, reader: FieldReader) -> ZPK:
+def _second_order(entry: PlantEntry, reader: FieldReader) -> Factored:
     gain = reader.number("gain")
     f = reader.number("freq_hz")
     if not f > 0:
         raise InputError.at(reader.where("freq_hz"), "freq_hz must be positive")
     zeta = reader.number("damping")
     w = TWO_PI * f
-    return ZPK([], second_order_roots(w, zeta), gain * w * w, _delay(reader))
+    return Factored([], second_order_roots(w, zeta), gain * w * w, _delay(reader))
 
 
-def _integrator_dead_time(entry: PlantEntry, reader: FieldReader) -> ZPK:
-    return ZPK([], [0.0], reader.number("gain"), _delay(reader))
+def _integrator_dead_time(entry: PlantEntry, reader: FieldReader) -> Factored:
+    return Factored([], [0.0], reader.number("gain"), _delay(reader))
 
 
 def dc_motor_coefficients(resistance_ohm: float, inductance_h: float, torque_constant: float,
@@ -233,7 +233,7 @@ def dc_motor_coefficients(resistance_ohm: float, inductance_h: float, torque_con
     raise ValueError(f"unknown output {output!r}")
 
 
-def _dc_motor(entry: PlantEntry, reader: FieldReader) -> ZPK:
+def _dc_motor(entry: PlantEntry, reader: FieldReader) -> Factored:
     output = reader.text("output", "speed")
     if output not in ("speed", "current"):
         raise InputError.at(reader.where("output"),
@@ -292,7 +292,7 @@ def two_mass_coefficients(inertia_motor: float, inertia_load: float, stiffness: 
     raise ValueError(f"unknown output {output!r}")
 
 
-def _two_mass(entry: PlantEntry, reader: FieldReader) -> ZPK:
+def _two_mass(entry: PlantEntry, reader: FieldReader) -> Factored:
     output = reader.text("output", "motor_speed")
     if output not in ("motor_speed", "load_speed"):
         raise InputError.at(reader.where("output"),
@@ -310,7 +310,7 @@ def _two_mass(entry: PlantEntry, reader: FieldReader) -> ZPK:
                             "damping_nm_s_per_rad must not be negative")
     num, den = two_mass_coefficients(jm, jl, k, c, output)
     # The rigid-body pole s = 0 is kept exact: factor it out before rooting.
-    coupled = ZPK(polynomial_roots(num), np.concatenate([[0.0], polynomial_roots(den[:3])]),
+    coupled = Factored(polynomial_roots(num), np.concatenate([[0.0], polynomial_roots(den[:3])]),
                   _leading(num) / den[0], _delay(reader))
     return coupled
 

@@ -24,7 +24,7 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 
 def strip_leading_zeros(coefficients: Sequence[float]) -> np.ndarray:
@@ -124,10 +124,10 @@ def zpk_from_coefficients(
     *,
     sample_time_s: float | None = None,
     delay_s: float = 0.0,
-) -> ZPK:
+) -> Factored:
     """A factored block from numerator and denominator in descending powers.
 
-    The gain is the leading-coefficient ratio (ZPK convention). A numerator
+    The gain is the leading-coefficient ratio (Factored convention). A numerator
     that is all zero gives the zero block (gain 0, no zeros).
 
     Raises
@@ -141,6 +141,6 @@ def zpk_from_coefficients(
     num = strip_leading_zeros(numerator)
     poles = polynomial_roots(den)
     if num.size == 0:
-        return ZPK([], poles, 0.0, delay_s, sample_time_s)
+        return Factored([], poles, 0.0, delay_s, sample_time_s)
     zeros = polynomial_roots(num)
-    return ZPK(zeros, poles, num[0] / den[0], delay_s, sample_time_s)
+    return Factored(zeros, poles, num[0] / den[0], delay_s, sample_time_s)

@@ -58,7 +58,7 @@ import numpy as np
 from ruleguard.analysis.loop import BlockModel, LoopModel
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.models.discretize import section_groups
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 _Q_FORMAT = re.compile(r"^q(\d+)\.(\d+)$")
 
@@ -219,7 +219,7 @@ class SectionCascade:
     advance: int
     sample_time_s: float
 
-    def to_zpk(self) -> ZPK:
+    def to_zpk(self) -> Factored:
         """The block in factored form, from the stored coefficients."""
         zeros: list[np.ndarray] = []
         poles: list[np.ndarray] = []
@@ -240,10 +240,10 @@ class SectionCascade:
             ps = np.array(ps, dtype=complex)
         if gain == 0.0:
             zs = np.zeros(0, complex)
-        return ZPK(zs, ps, gain, 0.0, self.sample_time_s)
+        return Factored(zs, ps, gain, 0.0, self.sample_time_s)
 
 
-def second_order_sections(block: ZPK, numeric_format: NumericFormat | str = "float64"
+def second_order_sections(block: Factored, numeric_format: NumericFormat | str = "float64"
                           ) -> SectionCascade:
     """Realise a z-plane block as a cascade of second-order sections.
 
@@ -437,8 +437,8 @@ def _largest(changes) -> CoefficientChange | None:
 # --------------------------------------------------------------------------
 # Quantizing blocks and loops
 # --------------------------------------------------------------------------
-def quantize_block(block: ZPK, numeric_format: NumericFormat | str, label: str = "",
-                   role: str = "", kind: str = "") -> tuple[ZPK, BlockQuantization]:
+def quantize_block(block: Factored, numeric_format: NumericFormat | str, label: str = "",
+                   role: str = "", kind: str = "") -> tuple[Factored, BlockQuantization]:
     """Round one z-plane block's section coefficients and rebuild it.
 
     Parameters
@@ -452,7 +452,7 @@ def quantize_block(block: ZPK, numeric_format: NumericFormat | str, label: str =
 
     Returns
     -------
-    (ZPK, BlockQuantization)
+    (Factored, BlockQuantization)
         The block rebuilt from the rounded coefficients, and what changed.
     """
     fmt = _as_format(numeric_format)
@@ -620,20 +620,20 @@ def _root_shift(before: np.ndarray, after: np.ndarray) -> float:
     return float(min(straight, crossed))
 
 
-def _product(blocks: list[ZPK], like: ZPK) -> ZPK:
-    out = ZPK.unity(like.sample_time_s)
+def _product(blocks: list[Factored], like: Factored) -> Factored:
+    out = Factored.unity(like.sample_time_s)
     for b in blocks:
         out = out * b
     return out
 
 
-def _divide(total: ZPK, part: ZPK) -> ZPK:
+def _divide(total: Factored, part: Factored) -> Factored:
     """``total / part`` where ``part``'s roots are among ``total``'s (a product built with it)."""
     zeros = _remove_roots(total.zeros, part.zeros, "zeros")
     poles = _remove_roots(total.poles, part.poles, "poles")
     if part.gain == 0.0:
         raise ValueError("the controller path has zero gain: the open loop cannot be rebuilt")
-    return ZPK(zeros, poles, total.gain / part.gain, total.delay_s, total.sample_time_s)
+    return Factored(zeros, poles, total.gain / part.gain, total.delay_s, total.sample_time_s)
 
 
 def _remove_roots(roots: np.ndarray, remove: np.ndarray, what: str) -> np.ndarray:

@@ -441,7 +441,7 @@ def _plots(loop: LoopResult, ident: str) -> list[str]:
         c.variant if c.role == "nominal" else f"{c.variant} ({c.role})" for c in loop.curves
     )
     figures = [
-        (plots.nyquist_plot(loop.curves, analyses, ident=f"{ident}-nyquist"),
+        (plots.nyquist_chart(loop.curves, analyses, ident=f"{ident}-nyquist"),
          "Nyquist plot of L near the critical point -1 (red cross) with the unit circle. "
          "Diamonds: crossings of the negative real axis at the reported gain margins; "
          "circles: gain crossovers; the dotted circle around -1 has radius 1/Ms."),

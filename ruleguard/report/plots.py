@@ -3,7 +3,7 @@
 Three plots per loop, from the :class:`~ruleguard.report.model.ResponseCurve`
 samples of the nominal and the worst variant:
 
-* :func:`nyquist_plot` - L in the complex plane near the critical point, with
+* :func:`nyquist_chart` - L in the complex plane near the critical point, with
   -1 marked, the unit circle, the circle |1 + L| = 1/Ms of the closest
   approach, and the gain and phase crossings;
 * :func:`loop_gain_plot` - |L| in dB and the (unwrapped) phase of L over a
@@ -299,7 +299,7 @@ def _real_axis_crossings(analysis: LoopAnalysis | None) -> list[float]:
     return out
 
 
-def nyquist_plot(
+def nyquist_chart(
     curves: Sequence[ResponseCurve],
     analyses: Mapping[str, LoopAnalysis],
     *,

@@ -87,11 +87,11 @@ def controller_stable(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
     for ev in ctx.evaluations:
         model = ev.model
         for block in (model.controller, *model.filters):
-            zpk = domain_block(block, discrete)
-            if zpk is None:
+            factored = domain_block(block, discrete)
+            if factored is None:
                 missing.setdefault(block.label, block)
                 continue
-            for p in zpk.poles:
+            for p in factored.poles:
                 p = complex(p)
                 if _is_integrator(p, discrete) or _tustin_derivative_pole(block, p):
                     continue
@@ -182,11 +182,11 @@ def derivative_filter(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
     nyq = nyquist_hz(ctx)
     if filter_hz is None:
         discrete = ctx.spec.sample_rate_hz is not None
-        zpk = domain_block(model.controller, discrete)
+        factored = domain_block(model.controller, discrete)
         pole_at_minus_one = (
             discrete
-            and zpk is not None
-            and bool(np.any(np.abs(zpk.poles + 1.0) <= _MINUS_ONE_TOLERANCE))
+            and factored is not None
+            and bool(np.any(np.abs(factored.poles + 1.0) <= _MINUS_ONE_TOLERANCE))
         )
         if pole_at_minus_one or (discrete and method.startswith("tustin")):
             message = (

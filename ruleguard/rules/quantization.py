@@ -59,10 +59,10 @@ def _rule_params(ctx: LoopContext, spec: RuleSpec) -> Mapping[str, Any]:
 
 def _pole_radius(block) -> float:
     """Largest |z| of a discretized block's poles, integrators (z = 1) left out."""
-    zpk = block.discrete
-    if zpk is None or zpk.poles.size == 0:
+    factored = block.discrete
+    if factored is None or factored.poles.size == 0:
         return 0.0
-    poles = np.asarray(zpk.poles, dtype=complex)
+    poles = np.asarray(factored.poles, dtype=complex)
     free = poles[np.abs(poles - 1.0) > 1e-9]
     return float(np.max(np.abs(free), initial=0.0))
 

@@ -35,15 +35,15 @@ from ruleguard.rules.locations import block_location, key, plant_location
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 
-def _not_stable_mask(zpk, roots: np.ndarray) -> np.ndarray:
+def _not_stable_mask(factored, roots: np.ndarray) -> np.ndarray:
     """Roots that are unstable or on the boundary (marginal) in the block's domain."""
     roots = np.asarray(roots, dtype=complex)
-    return zpk.unstable_mask(roots) | zpk.on_boundary(roots)
+    return factored.unstable_mask(roots) | factored.on_boundary(roots)
 
 
 def _is_unstable(block, discrete: bool, pole: complex) -> bool:
-    zpk = domain_block(block, discrete)
-    return bool(zpk.unstable_mask(np.array([pole]))[0])
+    factored = domain_block(block, discrete)
+    return bool(factored.unstable_mask(np.array([pole]))[0])
 
 
 def _reference_scale(blocks) -> float:

@@ -25,7 +25,7 @@ import pytest
 
 from ruleguard.analysis.margins import analyse_open_loop
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import ZPK, zpk_to_state_space
+from ruleguard.models.lti import Factored, zpk_to_state_space
 
 N_CONTINUOUS = 1040  # enough draws that at least 1,000 are compared after skips
 N_DISCRETE = 1000
@@ -58,14 +58,14 @@ def _conjugate_roots(rng, count, unstable_fraction, axis_prob, scale=(0.05, 50.0
     return np.array(roots, dtype=complex)
 
 
-def _closed_loop_poles(block: ZPK, k: float = 1.0) -> np.ndarray:
+def _closed_loop_poles(block: Factored, k: float = 1.0) -> np.ndarray:
     ss = zpk_to_state_space(block.scaled(k))
     d = ss.d[0, 0]
     a_cl = ss.a - ss.b @ ss.c / (1.0 + d)
     return np.linalg.eigvals(a_cl)
 
 
-def _mp_closed_loop_roots(block: ZPK, dps: int = 80) -> np.ndarray:
+def _mp_closed_loop_roots(block: Factored, dps: int = 80) -> np.ndarray:
     """Roots of den + num by mpmath.polyroots at ``dps`` digits (products formed exactly)."""
     import mpmath
 
@@ -100,13 +100,13 @@ def _random_continuous(rng):
     if np.count_nonzero(np.abs(zeros.imag) > 0) % 2 or len(zeros) != nz:
         zeros = zeros[np.abs(zeros.imag) == 0]
     # random gain, scaled so that |L| ~ 1 somewhere in the pole range
-    probe = ZPK(zeros, poles, 1.0).response(np.array([1.0]))[0]
+    probe = Factored(zeros, poles, 1.0).response(np.array([1.0]))[0]
     k = float(np.exp(rng.uniform(np.log(0.05), np.log(20.0)))) / max(abs(probe), 1e-300)
     if rng.random() < 0.3:
         k *= float(np.exp(rng.uniform(np.log(1e-4), np.log(0.1))))  # low gains: more stable
     if rng.random() < 0.1:
         k = -k
-    return ZPK(zeros, poles, k)
+    return Factored(zeros, poles, k)
 
 
 def test_state_space_realization_matches_scipy_freqresp():
@@ -253,11 +253,11 @@ def _random_discrete(rng):
     zeros = roots(nz, 0.3, 0.0)
     if len(zeros) > nz:
         zeros = zeros[:nz] if np.all(zeros[:nz].imag == 0) else zeros[np.abs(zeros.imag) == 0]
-    probe = ZPK(zeros, poles, 1.0, sample_time_s=h).response(np.array([0.3 / h]))[0]
+    probe = Factored(zeros, poles, 1.0, sample_time_s=h).response(np.array([0.3 / h]))[0]
     k = float(np.exp(rng.uniform(np.log(0.05), np.log(5.0)))) / max(abs(probe), 1e-300)
     if rng.random() < 0.1:
         k = -k
-    return ZPK(zeros, poles, k, sample_time_s=h)
+    return Factored(zeros, poles, k, sample_time_s=h)
 
 
 def test_random_discrete_verdicts_against_numpy_roots():
@@ -288,7 +288,7 @@ def test_random_discrete_verdicts_against_numpy_roots():
 
 @pytest.mark.parametrize("seed", [1, 2, 3])
 def test_frequency_response_against_scipy(seed):
-    # scipy.signal.freqresp (continuous, zpk form) and dfreqresp (discrete).
+    # scipy.signal.freqresp (continuous, factored form) and dfreqresp (discrete).
     import scipy.signal
 
     from ruleguard.analysis.contour import sample_contour
@@ -314,7 +314,7 @@ class _ResponseOnly:
     integrators = 0
     w_min = 0.0
 
-    def __init__(self, block: ZPK):
+    def __init__(self, block: Factored):
         self._block = block
         self.unstable_poles = block.unstable_pole_count()
         self.w_max = np.inf if block.sample_time_s is None else np.pi / block.sample_time_s
@@ -326,7 +326,7 @@ class _ResponseOnly:
         return self._block.corner_frequencies()
 
 
-def _split(block: ZPK, rng) -> OpenLoop | None:
+def _split(block: Factored, rng) -> OpenLoop | None:
     """The same loop with its stable, off-boundary poles and some zeros moved into a factor."""
     movable = ~block.on_boundary(block.poles) & ~block.unstable_mask(block.poles)
     real_p = [p for p, ok in zip(block.poles, movable, strict=True) if ok and p.imag == 0]
@@ -341,8 +341,8 @@ def _split(block: ZPK, rng) -> OpenLoop | None:
     if len(rest_z) > len(rest_p):
         return None
     h = block.sample_time_s
-    factor = _ResponseOnly(ZPK(fac_z, fac_p, 1.0, sample_time_s=h))
-    return OpenLoop(ZPK(rest_z, rest_p, block.gain, sample_time_s=h), (factor,))
+    factor = _ResponseOnly(Factored(fac_z, fac_p, 1.0, sample_time_s=h))
+    return OpenLoop(Factored(rest_z, rest_p, block.gain, sample_time_s=h), (factor,))
 
 
 def test_loops_with_response_factors_match_the_rational_verdict():
@@ -388,7 +388,7 @@ def test_delay_margin_is_the_destabilising_delay():
         if rng.random() < 0.5:
             poles[0] = 0.0
         zeros = -np.exp(rng.uniform(np.log(0.1), np.log(30.0), int(rng.integers(0, n))))
-        shape = ZPK(zeros, poles, 1.0)
+        shape = Factored(zeros, poles, 1.0)
         w0 = float(np.exp(rng.uniform(np.log(0.03), np.log(3.0))))
         block = shape.scaled(1.0 / abs(shape.response(np.array([w0]))[0]))
         a = analyse_open_loop(OpenLoop(block))
@@ -400,7 +400,7 @@ def test_delay_margin_is_the_destabilising_delay():
         if slope >= 0 or m.delay_margin_s > 1e3:
             continue
         for factor, stable in ((0.98, True), (1.02, False)):
-            delayed = ZPK(block.zeros, block.poles, block.gain, factor * m.delay_margin_s)
+            delayed = Factored(block.zeros, block.poles, block.gain, factor * m.delay_margin_s)
             assert analyse_open_loop(OpenLoop(delayed)).stability.stable == stable
         checked += 1
         if checked >= 40:
@@ -413,11 +413,11 @@ def test_delay_margin_in_samples_is_exact_for_whole_samples():
     # z^-2 more keeps it stable, z^-3 more destabilises it (|z^-n| = 1 leaves the
     # crossover where it is and takes n theta_c of phase)
     h = 0.01
-    m = analyse_open_loop(OpenLoop(ZPK([], [1.0], 0.5, sample_time_s=h))).margins
+    m = analyse_open_loop(OpenLoop(Factored([], [1.0], 0.5, sample_time_s=h))).margins
     n = m.delay_margin_samples
     assert 2 < n < 3
     for extra, stable in ((2, True), (3, False)):
-        block = ZPK([], [1.0] + [0.0] * extra, 0.5, sample_time_s=h)
+        block = Factored([], [1.0] + [0.0] * extra, 0.5, sample_time_s=h)
         assert analyse_open_loop(OpenLoop(block)).stability.stable == stable
 
 
@@ -435,10 +435,10 @@ def _unit_pade(order: int):
     return np.array(zeros), np.array(poles), gain
 
 
-def _pade_delay(tau: float, order: int = 10) -> ZPK:
+def _pade_delay(tau: float, order: int = 10) -> Factored:
     """[order/order] Pade approximant of e^{-s tau} (x = s tau scaled from the unit one)."""
     zeros, poles, gain = _unit_pade(order)
-    return ZPK(zeros / tau, poles / tau, gain)
+    return Factored(zeros / tau, poles / tau, gain)
 
 
 def test_random_delay_loops_against_pade_eigenvalues():
@@ -456,7 +456,7 @@ def test_random_delay_loops_against_pade_eigenvalues():
         nz = int(rng.integers(0, n))
         zeros = _conjugate_roots(rng, nz, unstable_fraction=0.2, axis_prob=0.0,
                                  scale=(0.1, 10.0))
-        shape = ZPK(zeros, poles, 1.0)
+        shape = Factored(zeros, poles, 1.0)
         k = float(np.exp(rng.uniform(np.log(0.1), np.log(10.0)))) / abs(
             shape.response(np.array([1.0]))[0])
         tau = float(np.exp(rng.uniform(np.log(0.01), np.log(2.0))))
@@ -472,7 +472,7 @@ def test_random_delay_loops_against_pade_eigenvalues():
             skipped += 1
             continue
         z_ref = int(np.count_nonzero(poles_cl.real > 0))
-        delayed = ZPK(rational.zeros, rational.poles, rational.gain, tau)
+        delayed = Factored(rational.zeros, rational.poles, rational.gain, tau)
         result = analyse_open_loop(OpenLoop(delayed)).stability
         if result.closed_loop_unstable_poles != z_ref:
             # arbitrate an ill-conditioned eigenvalue problem with mpmath (80 digits)

@@ -21,7 +21,7 @@ import scipy.signal
 from ruleguard.analysis.margins import analyse_open_loop
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.models.discretize import discretize_block, zoh_equivalent
-from ruleguard.models.lti import ZPK
+from ruleguard.models.lti import Factored
 
 CASES = 1000
 BOUNDARY_GAP = 1e-6  # cases with a closed-loop root this close to |z| = 1 are skipped
@@ -50,14 +50,14 @@ def _random_case(rng):
     if kind == "pi":
         kp = float(10 ** rng.uniform(-1.5, 0.5))
         ki = float(kp * w0 * 10 ** rng.uniform(-1.5, 0.0))
-        controller = ZPK([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
+        controller = Factored([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
     else:
         wz = w0 * 10 ** rng.uniform(-0.5, 0.5)
         wp = min(wz * 10 ** rng.uniform(0.3, 1.0), 0.8 / h)
         k = float(10 ** rng.uniform(-1.5, 0.5))
-        controller = ZPK([-wz], [-wp], k * wp / wz)  # k (s/wz + 1)/(s/wp + 1)
+        controller = Factored([-wz], [-wp], k * wp / wz)  # k (s/wz + 1)/(s/wp + 1)
     method = rng.choice(["tustin", "backward_euler"])
-    return h, ZPK([], poles, gain), controller, delay, str(method)
+    return h, Factored([], poles, gain), controller, delay, str(method)
 
 
 def _reference_polynomials(h, plant, controller, delay, method):
