@@ -23,7 +23,11 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-import tomllib
+
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python 3.10
+    import tomli as tomllib
 
 from ruleguard.cli import run
 
