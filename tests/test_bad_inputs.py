@@ -169,8 +169,8 @@ def _allowed_roots(folder: Path) -> list[Path]:
         import ruleguard.rulesets as shipped
 
         roots.add(Path(shipped.__file__).resolve().parent)
-    except ImportError:  # pragma: no cover
-        pass
+    except ImportError:  # imported from a source checkout: its top-level rulesets/
+        roots.add(Path(ruleguard.__file__).resolve().parents[1] / "rulesets")
     return list(roots)
 
 

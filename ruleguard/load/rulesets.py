@@ -41,9 +41,27 @@ BUILTIN_PREFIX = "<builtin>/"
 _MAX_CHAIN = 32
 
 
+def _builtin_folder():
+    """The folder of the built-in rulesets.
+
+    Installed, they are the package data of ``ruleguard.rulesets`` (the
+    repository's top-level ``rulesets/``, mapped by pyproject.toml). When the
+    package is imported straight from a source checkout (``python -m
+    ruleguard`` or ``python -m pytest`` run in the repository root, which
+    puts the checkout first on ``sys.path``), that mapping does not exist, and
+    the checkout's own ``rulesets/`` folder is used.
+    """
+    try:
+        return resources.files("ruleguard.rulesets")
+    except ModuleNotFoundError:
+        from pathlib import Path
+
+        return Path(__file__).resolve().parents[2] / "rulesets"
+
+
 def builtin_names() -> tuple[str, ...]:
     """Names of the built-in rulesets shipped in the package, sorted."""
-    folder = resources.files("ruleguard.rulesets")
+    folder = _builtin_folder()
     return tuple(
         sorted(
             entry.name[: -len(".toml")]
@@ -57,7 +75,7 @@ def builtin_text(name: str) -> str:
     """The text of built-in ruleset ``name`` (``KeyError`` when there is none)."""
     if name not in builtin_names():
         raise KeyError(name)
-    return resources.files("ruleguard.rulesets").joinpath(f"{name}.toml").read_text("utf-8")
+    return _builtin_folder().joinpath(f"{name}.toml").read_text("utf-8")
 
 
 def is_path_reference(ref: str) -> bool:
