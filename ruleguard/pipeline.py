@@ -101,7 +101,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         "skip": list(options.skip),
         "today": today.isoformat(),
     }
-    ruleset_print = _ruleset_fingerprint(ruleset)
+    ruleset_print = ruleset.fingerprint()
 
     deadline = None
     if options.time_budget_s is not None:
@@ -222,15 +222,6 @@ def _selected_loops(project, options: CheckOptions) -> set[str]:
     from ruleguard.selection import loops_for_files
 
     return set(loops_for_files(project, list(options.changed_files), options.cwd)) & names
-
-
-def _ruleset_fingerprint(ruleset) -> str:
-    fp = getattr(ruleset, "fingerprint", None)
-    if callable(fp):
-        return fp()
-    if isinstance(fp, str):
-        return fp
-    return repr(ruleset)
 
 
 def analyse_loop(
