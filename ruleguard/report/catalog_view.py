@@ -17,16 +17,7 @@ def render_rules_table(ruleset, *, color: bool = False) -> str:
     table.add_column("severity")
     table.add_column("summary", overflow="fold")
     for rule_id, spec in sorted(RULES.items()):
-        table.add_row(rule_id, severity_in(ruleset, rule_id, spec), spec.summary)
+        table.add_row(rule_id, ruleset.severity_of(rule_id).value, spec.summary)
     buffer = io.StringIO()
     Console(file=buffer, force_terminal=color, no_color=not color, width=120).print(table)
     return buffer.getvalue()
-
-
-def severity_in(ruleset, rule_id: str, spec) -> str:
-    """The severity a ruleset gives a rule, before any override."""
-    getter = getattr(ruleset, "severity_of", None)
-    if callable(getter):
-        value = getter(rule_id)
-        return getattr(value, "value", str(value))
-    return spec.default_severity.value
