@@ -858,14 +858,21 @@ delay_s = 0.5
     assert m["gain_margin_hz"] == pytest.approx(hz(w180), rel=1e-6)
 
 
-def _sweep_csv(f_hz: np.ndarray, k: float = 1.0) -> str:
-    s = 2j * np.pi * f_hz
-    g = k / (s * (s + 1) * (s + 2))
+def _csv_of(f_hz: np.ndarray, g: np.ndarray, *, linear: bool = False) -> str:
+    """A measured-response CSV of the values ``g`` at ``f_hz`` (dB, or linear)."""
     rows = ["freq_hz,magnitude_db,phase_deg"]
     # phase given wrapped to (-180, 180]: the reader unwraps it
-    rows += [f"{float(f)!r},{float(20 * np.log10(abs(x)))!r},{math.degrees(cmath.phase(x))!r}"
-             for f, x in zip(f_hz, g, strict=True)]
+    rows += [
+        f"{float(f)!r},{float(abs(x) if linear else 20 * np.log10(abs(x)))!r},"
+        f"{math.degrees(cmath.phase(x))!r}"
+        for f, x in zip(f_hz, g, strict=True)
+    ]
     return "\n".join(rows) + "\n"
+
+
+def _sweep_csv(f_hz: np.ndarray, k: float = 1.0) -> str:
+    s = 2j * np.pi * f_hz
+    return _csv_of(f_hz, k / (s * (s + 1) * (s + 2)))
 
 
 def test_measured_response_kind(tmp_path):
@@ -1574,9 +1581,6 @@ def test_measured_linear_magnitude(tmp_path):
     f = np.logspace(-3, 2, 2000)
     s = 2j * np.pi * f
     g = 1 / (s * (s + 1) * (s + 2))
-    rows = ["freq_hz,magnitude_db,phase_deg"] + [
-        f"{float(a)!r},{float(abs(x))!r},{float(np.degrees(np.angle(x)))!r}"
-        for a, x in zip(f, g, strict=True)]
     plants = PLANTS + """
 [plants.swept]
 kind = "measured_response"
@@ -1586,7 +1590,7 @@ unstable_poles = 0
 integrators = 1
 """
     folder = simple_project(tmp_path, 3.0, "swept", files={
-        "plants.toml": plants, "data/sweep_abs.csv": "\n".join(rows) + "\n"})
+        "plants.toml": plants, "data/sweep_abs.csv": _csv_of(f, g, linear=True)})
     _, report, _ = check(folder)
     assert only_variant(report)["margins"]["gain_margin_db"] == pytest.approx(db(2.0), abs=0.02)
 
@@ -1821,9 +1825,6 @@ def test_measured_plant_with_declared_unstable_pole(tmp_path):
     # gain margin 20 log10(1/4) (closed-loop pole s = 1 - K, stable iff K > 1).
     f = np.logspace(-4, 3, 3000)
     g = 1 / (2j * np.pi * f - 1)
-    rows = ["freq_hz,magnitude_db,phase_deg"] + [
-        f"{float(a)!r},{float(20 * np.log10(abs(x)))!r},{float(np.degrees(np.angle(x)))!r}"
-        for a, x in zip(f, g, strict=True)]
     plants = PLANTS + """
 [plants.swept]
 kind = "measured_response"
@@ -1832,7 +1833,7 @@ unstable_poles = 1
 integrators = 0
 """
     folder = simple_project(tmp_path, 4.0, "swept", files={
-        "plants.toml": plants, "sweep.csv": "\n".join(rows) + "\n"})
+        "plants.toml": plants, "sweep.csv": _csv_of(f, g)})
     _, report, _ = check(folder)
     v = only_variant(report)
     assert (v["stability"]["open_loop_unstable_poles"], v["stability"]["ccw_encirclements"],
