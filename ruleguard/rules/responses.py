@@ -6,12 +6,9 @@ the sensitivity ``S = 1/(1 + L)``, the complementary sensitivity
 logarithmic, with the open loop's corner frequencies added and extra points
 across every lightly damped root (width about zeta * wn, METHODS.md
 "Margins"), so a resonance with damping 0.001 is not stepped over. Peaks are
-refined by golden-section search on the exact response.
-
-References
-----------
-J. Kiefer, "Sequential minimax search for a maximum", Proceedings of the
-American Mathematical Society 4(3), 1953 (golden-section search).
+refined on the exact response with Brent's localmin (golden section with
+parabolic steps; R. P. Brent, Algorithms for Minimization without
+Derivatives, 1973).
 """
 
 from __future__ import annotations
@@ -21,8 +18,6 @@ from collections.abc import Callable
 import numpy as np
 
 SIGNALS = ("loop", "sensitivity", "complementary", "controller")
-
-_GOLDEN = (np.sqrt(5.0) - 1.0) / 2.0
 
 
 def signal_response(model, signal: str, w) -> np.ndarray:
@@ -98,37 +93,29 @@ def refine_maximum(
     index: int,
     iterations: int = 60,
 ) -> tuple[float, float]:
-    """Refine a grid maximum of a real function of frequency by golden-section search.
+    """Refine a grid maximum of a real function of frequency.
 
     ``values(w)`` gives the function at an array of frequencies; ``w, y`` are
-    the grid and its values, ``index`` the grid maximum. The search runs in
+    the grid and its values, ``index`` the grid maximum. Brent's localmin
+    (:func:`ruleguard.analysis.scalar.brent_minimize`) runs on ``-values`` in
     log-frequency between the neighbours of the maximum. Returns
     ``(w_peak, y_peak)``, never below the grid value.
     """
+    from ruleguard.analysis.scalar import brent_minimize
+
     lo = w[max(index - 1, 0)]
     hi = w[min(index + 1, w.size - 1)]
     best_w, best_y = float(w[index]), float(y[index])
     if not (hi > lo > 0):
         return best_w, best_y
-    a, b = np.log(lo), np.log(hi)
-    c = b - _GOLDEN * (b - a)
-    d = a + _GOLDEN * (b - a)
-    fc = float(values(np.array([np.exp(c)]))[0])
-    fd = float(values(np.array([np.exp(d)]))[0])
-    for _ in range(iterations):
-        if not (np.isfinite(fc) and np.isfinite(fd)):
-            break
-        if fc > fd:
-            b, d, fd = d, c, fc
-            c = b - _GOLDEN * (b - a)
-            fc = float(values(np.array([np.exp(c)]))[0])
-        else:
-            a, c, fc = c, d, fd
-            d = a + _GOLDEN * (b - a)
-            fd = float(values(np.array([np.exp(d)]))[0])
-        if b - a < 1e-12:
-            break
-    for wc, fv in ((np.exp(c), fc), (np.exp(d), fd)):
-        if np.isfinite(fv) and fv > best_y:
-            best_w, best_y = float(wc), float(fv)
+
+    def negated(log_w: float) -> float:
+        v = float(values(np.array([np.exp(log_w)]))[0])
+        return -v if np.isfinite(v) else np.inf
+
+    log_peak, neg = brent_minimize(
+        negated, float(np.log(lo)), float(np.log(hi)), xatol=1e-12, maxiter=iterations
+    )
+    if np.isfinite(neg) and -neg > best_y:
+        best_w, best_y = float(np.exp(log_peak)), float(-neg)
     return best_w, best_y
