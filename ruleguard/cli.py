@@ -260,14 +260,7 @@ def _render(report, fmt: str, *, stream: TextIO | None, quiet: bool) -> str:
         return html.render(report)
     from ruleguard.report import text
 
-    return text.render(report, color=_wants_color(stream), quiet=quiet, base_dir=os.getcwd())
-
-
-def _wants_color(stream: TextIO | None) -> bool:
-    if stream is None or os.environ.get("NO_COLOR"):
-        return False
-    isatty = getattr(stream, "isatty", None)
-    return bool(isatty and isatty())
+    return text.render(report, color=text.wants_color(stream), quiet=quiet, base_dir=os.getcwd())
 
 
 def _progress_for(stderr: TextIO, *, quiet: bool):
@@ -318,7 +311,9 @@ def _cmd_rules(args: argparse.Namespace, stdout: TextIO) -> int:
     from ruleguard.report.catalog_view import render_rules_table
 
     ruleset = _ruleset_for_listing(args)
-    stdout.write(render_rules_table(ruleset, color=_wants_color(stdout)))
+    from ruleguard.report.text import wants_color
+
+    stdout.write(render_rules_table(ruleset, color=wants_color(stdout)))
     return EXIT_CLEAN
 
 

@@ -8,7 +8,7 @@ straight lines in log-frequency (dB linear in log10 f) and applies between
 its first and last point. The response is evaluated on a dense logarithmic
 grid that includes every breakpoint and resolves lightly damped roots
 (:mod:`ruleguard.rules.responses`), and the worst point is refined by
-golden-section search.
+Brent's localmin.
 """
 
 from __future__ import annotations
