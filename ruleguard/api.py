@@ -11,7 +11,7 @@ Two ways in:
 * A loop built in code, for a quick stability and margin verdict::
 
       plant = api.transfer_function([1.0], [1.0, 3.0, 2.0, 0.0])   # 1/(s(s+1)(s+2))
-      result = api.analyse(api.series(plant, gain=2.0))
+      result = api.analyse(api.open_loop(plant, gain=2.0))
       result.stability.stable, result.margins.gain_margin_db       # True, 9.54...
 
 Everything returned is a frozen dataclass (:mod:`ruleguard.analysis.results`,
@@ -31,8 +31,8 @@ __all__ = [
     "LoopNotAnalysable",
     "analyse",
     "check",
+    "open_loop",
     "report_as_dict",
-    "series",
     "transfer_function",
     "zero_pole_gain",
 ]
@@ -118,7 +118,7 @@ def zero_pole_gain(
     return Factored(zeros, poles, gain, delay_s, _sample_time(sample_rate_hz))
 
 
-def series(*blocks, gain: float = 1.0):
+def open_loop(*blocks, gain: float = 1.0):
     """The open loop ``gain * blocks[0] * blocks[1] * ...`` (negative feedback)."""
     from ruleguard.analysis.openloop import OpenLoop
     from ruleguard.models.lti import Factored
@@ -131,7 +131,7 @@ def series(*blocks, gain: float = 1.0):
         else:
             factors.append(block)
     if rational is None:
-        raise ValueError("series() needs at least one rational block")
+        raise ValueError("open_loop() needs at least one rational block")
     return OpenLoop(rational.scaled(gain), tuple(factors))
 
 

@@ -169,8 +169,8 @@ def model(
     path = pick(controller)
     for f in filters:
         path = path * pick(f)
-    plant_zpk = pick(plant)
-    rational = path if plant_zpk is None else path * plant_zpk
+    plant_factored = pick(plant)
+    rational = path if plant_factored is None else path * plant_factored
     return LoopModel(
         name=spec.name,
         sample_rate_hz=spec.sample_rate_hz,
@@ -247,16 +247,16 @@ def pair(freq_hz, damping):
     return [complex(re, im), complex(re, -im)]
 
 
-def loop_evaluation(spec, loop_zpk: Factored, loop_analysis, variant_id="nominal") -> Evaluation:
+def loop_evaluation(spec, loop_factored: Factored, loop_analysis, variant_id="nominal") -> Evaluation:
     """An evaluation whose whole open loop sits in the controller block (plant = 1)."""
-    discrete = loop_zpk.sample_time_s is not None
+    discrete = loop_factored.sample_time_s is not None
     ctrl = controller_block(
         spec,
-        continuous=None if discrete else loop_zpk,
-        discrete=loop_zpk if discrete else None,
+        continuous=None if discrete else loop_factored,
+        discrete=loop_factored if discrete else None,
         method="given" if discrete else None,
     )
-    unity = Factored.unity(loop_zpk.sample_time_s)
+    unity = Factored.unity(loop_factored.sample_time_s)
     plant = block(
         "plant",
         "mechanics (zero_pole_gain)",

@@ -15,7 +15,7 @@ def test_analyse_third_order_loop_closed_form():
     # stable iff 0 < K < 6, the boundary at s = j sqrt(2). So the gain margin is
     # 20 log10(6/2) dB at sqrt(2)/(2 pi) Hz (closed form).
     plant = api.transfer_function([1.0], [1.0, 3.0, 2.0, 0.0])
-    result = api.analyse(api.series(plant, gain=2.0))
+    result = api.analyse(api.open_loop(plant, gain=2.0))
     assert result.stability.stable
     assert result.margins.gain_margin_db == pytest.approx(20 * math.log10(3.0), rel=1e-6)
     assert result.margins.gain_margin_hz == pytest.approx(math.sqrt(2) / (2 * math.pi), rel=1e-6)

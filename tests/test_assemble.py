@@ -23,7 +23,7 @@ from model_builders import controller, filt, loop, plant, project, vary
 
 from ruleguard.errors import InputError, LoopNotAnalysable
 from ruleguard.load.spec import MeasuredData
-from ruleguard.models.assemble import build_loop, closed_loop_zpk
+from ruleguard.models.assemble import build_loop, closed_loop_factored
 from ruleguard.models.discretize import DelayFactor, HoldFactor
 from ruleguard.models.factors import ClosedLoopResponse
 from ruleguard.models.families import Variant, loop_variants
@@ -345,7 +345,7 @@ class TestCascades:
         den = np.polymul(np.polymul([1.0, 0.0], [4e-3, 1.3]), [1 / 5000.0, 1.0])
         a, b, c, d = scipy.signal.tf2ss(num, den)
         ref_poles = np.linalg.eigvals(a - b @ c / (1 + d[0, 0]))
-        inner_t = closed_loop_zpk(
+        inner_t = closed_loop_factored(
             Factored([-400.0], [0.0, -1.3 / 4e-3], 5.0 / 4e-3),
             model.inner.open_loop.rational)
         np.testing.assert_allclose(np.sort_complex(inner_t.poles), np.sort_complex(ref_poles),
@@ -498,7 +498,7 @@ class TestCascades:
     def test_biproper_inner_loop_closed_form(self):
         # L = 3 (s + 2)/(s + 1): T = L/(1 + L) = 3 (s + 2)/(4 s + 7), so the closed
         # loop has its pole at -7/4, its zero at -2 and leading gain 3/4 (by hand).
-        t = closed_loop_zpk(Factored([-2.0], [-1.0], 3.0), Factored([-2.0], [-1.0], 3.0))
+        t = closed_loop_factored(Factored([-2.0], [-1.0], 3.0), Factored([-2.0], [-1.0], 3.0))
         np.testing.assert_allclose(t.poles, [-1.75], rtol=1e-14)
         np.testing.assert_allclose(t.zeros, [-2.0], rtol=1e-14)
         assert t.gain == pytest.approx(0.75, rel=1e-14)
@@ -620,7 +620,7 @@ def random_block(rng, n_poles, n_zeros, discrete):
 
 
 @pytest.mark.parametrize("seed", range(40))
-def test_closed_loop_zpk_against_mpmath_roots_and_direct_evaluation(seed):
+def test_closed_loop_factored_against_mpmath_roots_and_direct_evaluation(seed):
     # Reference 1: closed-loop poles = roots of den_F den_H + num_F num_H, found by
     # mpmath.polyroots at 60 digits from the multiplied-out polynomials (exact products
     # at that precision). Reference 2: T = F/(1 + F H) evaluated directly.
@@ -631,7 +631,7 @@ def test_closed_loop_zpk_against_mpmath_roots_and_direct_evaluation(seed):
     nh = int(rng.integers(0, 3))
     sensor = random_block(rng, nh, int(rng.integers(0, nh + 1)), discrete)
     sensor = Factored(sensor.zeros, sensor.poles, abs(sensor.gain), 0.0, sensor.sample_time_s)
-    t = closed_loop_zpk(fwd, fwd * sensor)
+    t = closed_loop_factored(fwd, fwd * sensor)
     with mpmath.workdps(60):
         def poly(roots, k=1):
             p = [mpmath.mpf(k)]

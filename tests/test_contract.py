@@ -705,13 +705,13 @@ gain = 1.0
 freq_hz = "5/(2*pi)"
 damping = 0.04
 
-[plants.zpk_pair]
+[plants.factored_pair]
 kind = "zero_pole_gain"
 gain = 25.0
 zeros = []
 poles = [{ re = -0.2, im = "sqrt(25 - 0.04)" }]
 
-[plants.zpk_fd]
+[plants.factored_fd]
 kind = "zero_pole_gain"
 gain = 25.0
 zeros = []
@@ -730,7 +730,7 @@ def test_plant_kinds_of_one_resonance_agree_with_closed_form(tmp_path):
     # L = 2 * 25/(s^2 + 0.4 s + 25). |L| = 1: (25 - w^2)^2 + 0.16 w^2 = 2500,
     # x = w^2: x^2 - 49.84 x - 1875 = 0 (closed form); PM = 180 - atan2(0.4 w,
     # 25 - w^2); phase never reaches -180: no gain margin (null = unbounded).
-    kinds = ["tf", "so", "zpk_pair", "zpk_fd", "ss"]
+    kinds = ["tf", "so", "factored_pair", "factored_fd", "ss"]
     loops = "".join(loop(f"k.{k}", k, "c") for k in kinds)
     folder = write(tmp_path, {"ruleguard.toml": manifest(loops), "plants.toml": RESONANT,
                               "ctl.toml": p_table("c", 2.0)})

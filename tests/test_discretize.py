@@ -265,7 +265,7 @@ class TestZohAgainstScipy:
         ref = state_space_response(ad, bd, cd, dd, np.exp(1j * w * h))
         np.testing.assert_allclose(zd.response(w), ref, rtol=1e-10)
 
-    def test_zpk_and_state_space_inputs_agree(self):
+    def test_factored_and_state_space_inputs_agree(self):
         blk = Factored([-20.0], [-5.0, complex(-3, 40), complex(-3, -40)], 800.0, delay_s=0.0031)
         ss = scaled_cascade_realization(blk)
         ss = StateSpace(ss.a, ss.b, ss.c, ss.d, delay_s=blk.delay_s)

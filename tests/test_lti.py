@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from ruleguard.models.lti import Factored, MeasuredResponse, StateSpace, zpk_to_state_space
+from ruleguard.models.lti import Factored, MeasuredResponse, StateSpace, factored_to_state_space
 
 
 def _random_block(rng, order, discrete=False):
@@ -77,22 +77,22 @@ def test_state_space_round_trip(seed):
     rng = np.random.default_rng(200 + seed)
     z, p, k = _random_block(rng, 7)
     block = Factored(z, p, k)
-    ss = zpk_to_state_space(block)
+    ss = factored_to_state_space(block)
     w = np.logspace(-2, 2, 100)
     _, expected = scipy.signal.freqresp(scipy.signal.StateSpace(ss.a, ss.b, ss.c, ss.d), w)
     np.testing.assert_allclose(block.response(w), expected, rtol=1e-8)
-    back = ss.to_zpk()
+    back = ss.to_factored()
     np.testing.assert_allclose(back.response(w), expected, rtol=1e-7)
     assert back.poles.size == p.size
 
 
-def test_state_space_to_zpk_matches_scipy_ss2zpk():
+def test_state_space_to_factored_matches_scipy_ss2zpk():
     a = [[0.0, 1.0], [-25.0, -0.4]]
     b = [[0.0], [1.0]]
     c = [[25.0, 3.0]]
     d = [[0.0]]
     zeros, poles, gain = scipy.signal.ss2zpk(a, b, c, d)
-    got = StateSpace(a, b, c, d).to_zpk()
+    got = StateSpace(a, b, c, d).to_factored()
     np.testing.assert_allclose(np.sort_complex(got.poles), np.sort_complex(poles), rtol=1e-12)
     np.testing.assert_allclose(np.sort_complex(got.zeros), np.sort_complex(zeros), rtol=1e-10)
     assert got.gain == pytest.approx(gain, rel=1e-12)
@@ -113,7 +113,7 @@ def test_measured_response_interpolates_in_log_frequency():
 
 def test_state_space_delay_kept_in_factored_form():
     # 1/(s+2) realised as x' = -2x + u, y = x, with a 0.1 s delay.
-    block = StateSpace([[-2.0]], [[1.0]], [[1.0]], [[0.0]], delay_s=0.1).to_zpk()
+    block = StateSpace([[-2.0]], [[1.0]], [[1.0]], [[0.0]], delay_s=0.1).to_factored()
     assert block.gain == pytest.approx(1.0)
     assert block.delay_s == 0.1
     np.testing.assert_allclose(block.poles, [-2.0])

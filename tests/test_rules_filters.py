@@ -133,14 +133,14 @@ W_R = 2 * math.pi * F_R
 K_LOOP = 2 * math.pi * 20.0  # k w_r^2 / (s (s^2 + ...)): crossover near 20 Hz
 
 
-def resonant_ctx(filters=(), filter_zpks=(), f_r=F_R, crossover_hz=20.0):
+def resonant_ctx(filters=(), filter_factored=(), f_r=F_R, crossover_hz=20.0):
     w_r = 2 * math.pi * f_r
     spec = loop_spec(controller_entry(fields={"kp": 1.0}, filters=list(filters)))
     g = factored([], [0.0, *pair(f_r, Z_R)], K_LOOP * w_r * w_r)
     ctrl = controller_block(spec, factored([], [], 1.0))
     fblocks = [block("filter", f"velocity.filters.{i}", kind, c,
                      location=spec.controller.filters[i].location)
-               for i, ((kind, _), c) in enumerate(zip(filters, filter_zpks, strict=True))]
+               for i, ((kind, _), c) in enumerate(zip(filters, filter_factored, strict=True))]
     plant = block("plant", "mechanics", "zero_pole_gain", g, location=PLANT_LOCATION)
     m = model(spec, ctrl, plant, fblocks)
     return spec, context(spec, [evaluation("nominal", m, analysis(crossovers_hz=[crossover_hz]))])

@@ -29,7 +29,7 @@ from ruleguard.models.lti import MeasuredResponse
 from ruleguard.rules.steady_state import loop_type, steady_state_type
 
 
-def pi_loop(spec, plant_zpk, h=None):
+def pi_loop(spec, plant_factored, h=None):
     kp, ki = 2.0, 50.0
     c = factored([-ki / kp], [0.0], kp)  # kp + ki/s = kp (s + ki/kp)/s
     d = discretize_block(c, "tustin", h) if h else None
@@ -38,8 +38,8 @@ def pi_loop(spec, plant_zpk, h=None):
     if h:
         from ruleguard.models.discretize import zoh_equivalent
 
-        pd = zoh_equivalent(plant_zpk, h)
-    plant = block("plant", "mechanics", "zero_pole_gain", plant_zpk, pd)
+        pd = zoh_equivalent(plant_factored, h)
+    plant = block("plant", "mechanics", "zero_pole_gain", plant_factored, pd)
     return evaluation("nominal", model(spec, ctrl, plant), analysis())
 
 

@@ -80,7 +80,7 @@ from ruleguard.location import Location
 from ruleguard.models.blocks import DesignedBlock, controller_block, filter_block
 from ruleguard.models.factors import BlockResponse, ClosedLoopResponse
 from ruleguard.models.families import Variant, find_loop
-from ruleguard.models.lti import Factored, MeasuredResponse, zpk_to_state_space
+from ruleguard.models.lti import Factored, MeasuredResponse, factored_to_state_space
 from ruleguard.models.plants import plant_delay_s, plant_model
 
 #: Discretization of controller blocks when ``discretization`` is absent.
@@ -425,14 +425,14 @@ def inner_closed_loop(forward: OpenLoop, loop: OpenLoop, location: Location
                       ) -> Factored | ClosedLoopResponse:
     """The closed inner loop ``T = forward / (1 + loop)`` for the outer loop.
 
-    Factored (:func:`closed_loop_zpk`) when both are rational without a
+    Factored (:func:`closed_loop_factored`) when both are rational without a
     continuous delay, else a :class:`ClosedLoopResponse`.
     """
     rational = (forward.is_rational and loop.is_rational and not forward.rational.delay_s
                 and not loop.rational.delay_s)
     if rational and loop.rational.is_proper and forward.rational.is_proper:
         try:
-            return closed_loop_zpk(forward.rational, loop.rational)
+            return closed_loop_factored(forward.rational, loop.rational)
         except ZeroDivisionError:
             raise LoopNotAnalysable("the inner loop is ill-posed (1 + L is zero at infinite "
                                     "frequency)", "stability.closed-loop", location) from None
@@ -441,14 +441,14 @@ def inner_closed_loop(forward: OpenLoop, loop: OpenLoop, location: Location
     return ClosedLoopResponse(forward, loop)
 
 
-def closed_loop_zpk(forward: Factored, loop: Factored) -> Factored:
+def closed_loop_factored(forward: Factored, loop: Factored) -> Factored:
     """``T = forward / (1 + loop)`` in factored form.
 
     ``T = forward * S`` with ``S = 1/(1 + L)``: the zeros of ``S`` are the
     poles of ``L``; its poles are the closed-loop poles, the eigenvalues of
     ``A - B C / (1 + D)`` for a realization ``(A, B, C, D)`` of ``L`` (the
     series-of-sections realization of
-    :func:`~ruleguard.models.lti.zpk_to_state_space`, no polynomial is
+    :func:`~ruleguard.models.lti.factored_to_state_space`, no polynomial is
     multiplied out); its gain is ``1/(1 + D)`` when ``L`` is biproper, else 1.
     The poles of ``forward`` are poles of ``L`` too (``L = forward H``, or
     ``C F ZOH(G H)`` against ``C F ZOH(G)``, whose poles are the same
@@ -471,7 +471,7 @@ def closed_loop_zpk(forward: Factored, loop: Factored) -> Factored:
     """
     if forward.sample_time_s != loop.sample_time_s:
         raise ValueError("forward path and loop must be in the same domain")
-    ss = zpk_to_state_space(loop.without_delay())
+    ss = factored_to_state_space(loop.without_delay())
     d = float(ss.d[0, 0])
     if 1.0 + d == 0.0:
         raise ZeroDivisionError("1 + D = 0")

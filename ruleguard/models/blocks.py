@@ -48,9 +48,9 @@ from ruleguard.location import Location
 from ruleguard.models.fieldvalues import FieldReader
 from ruleguard.models.lti import Factored
 from ruleguard.models.polynomials import (
+    factored_from_coefficients,
     second_order_roots,
     trim_common_trailing_zeros,
-    zpk_from_coefficients,
 )
 
 TWO_PI = 2.0 * math.pi
@@ -232,7 +232,7 @@ def _pid(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock:
     else:
         raise InputError.at(reader.where("form"),
                             f"unknown pid form {form!r}; expected parallel, standard or series")
-    model = zpk_from_coefficients(total[0], total[1])
+    model = factored_from_coefficients(total[0], total[1])
     return DesignedBlock("pid", model, False, chars, None, unfiltered)
 
 
@@ -303,7 +303,7 @@ def _biquad(reader: FieldReader, sample_time_s: float | None) -> DesignedBlock:
     b = b + [0.0] * (3 - len(b))
     a = a + [0.0] * (3 - len(a))
     num, den = trim_common_trailing_zeros(b, a)
-    model = zpk_from_coefficients(num, den, sample_time_s=h)
+    model = factored_from_coefficients(num, den, sample_time_s=h)
     return DesignedBlock("biquad", model, True, {}, None)
 
 
@@ -314,11 +314,11 @@ def _transfer_function(reader: FieldReader, sample_time_s: float | None) -> Desi
     if all(c == 0.0 for c in den):
         raise InputError.at(reader.where("denominator"), "the denominator is zero")
     if domain == "s":
-        model = zpk_from_coefficients(num, den)
+        model = factored_from_coefficients(num, den)
         return DesignedBlock("transfer_function", model, False, {}, None)
     if domain == "z":
         h = _needs_rate(reader, sample_time_s, "transfer_function (domain z)")
-        model = zpk_from_coefficients(num, den, sample_time_s=h)
+        model = factored_from_coefficients(num, den, sample_time_s=h)
         return DesignedBlock("transfer_function", model, True, {}, None)
     raise InputError.at(reader.where("domain"), f"domain must be 's' or 'z', got {domain!r}")
 

@@ -248,7 +248,7 @@ class StateSpace:
     def order(self) -> int:
         return self.a.shape[0]
 
-    def to_zpk(self) -> Factored:
+    def to_factored(self) -> Factored:
         """Factored form: poles = eig(A), zeros = finite invariant zeros.
 
         The invariant zeros are the finite generalized eigenvalues of the
@@ -297,7 +297,7 @@ class StateSpace:
         return out
 
 
-def zpk_to_state_space(block: Factored) -> StateSpace:
+def factored_to_state_space(block: Factored) -> StateSpace:
     """A real state-space realization of a proper rational block (delay dropped).
 
     Built as a series connection of real first- and second-order sections,

@@ -11,7 +11,7 @@ variant has fixed its parameter values. Every kind of FORMATS.md section 2:
   conjugate pair ``re +- j im``) or ``{freq_hz, damping}`` (the roots of
   ``s^2 + 2 zeta omega s + omega^2``, omega = 2 pi freq_hz).
 * ``state_space``: ``a, b, c, d`` (SISO), factored by
-  :meth:`~ruleguard.models.lti.StateSpace.to_zpk`.
+  :meth:`~ruleguard.models.lti.StateSpace.to_factored`.
 * ``first_order_dead_time``: ``gain exp(-delay_s s)/(time_constant_s s + 1)``.
 * ``second_order``: ``gain omega^2/(s^2 + 2 zeta omega s + omega^2)``
   (``gain`` is the DC gain).
@@ -180,7 +180,7 @@ def _state_space(entry: PlantEntry, reader: FieldReader) -> Factored:
             raise InputError.at(reader.where(key),
                                 f"{key}: expected shape {shape[0]}x{shape[1]}, "
                                 f"got {arr.shape[0]}x{arr.shape[1]}")
-    return StateSpace(a, b, c, d, _delay(reader)).to_zpk()
+    return StateSpace(a, b, c, d, _delay(reader)).to_factored()
 
 
 def _first_order_dead_time(entry: PlantEntry, reader: FieldReader) -> Factored:

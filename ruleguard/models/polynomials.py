@@ -118,7 +118,7 @@ def trim_common_trailing_zeros(
     return num, den
 
 
-def zpk_from_coefficients(
+def factored_from_coefficients(
     numerator: Sequence[float],
     denominator: Sequence[float],
     *,

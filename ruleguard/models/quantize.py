@@ -219,7 +219,7 @@ class SectionCascade:
     advance: int
     sample_time_s: float
 
-    def to_zpk(self) -> Factored:
+    def to_factored(self) -> Factored:
         """The block in factored form, from the stored coefficients."""
         zeros: list[np.ndarray] = []
         poles: list[np.ndarray] = []
@@ -476,7 +476,7 @@ def quantize_block(block: Factored, numeric_format: NumericFormat | str, label: 
         changes.append(_change(label, "scale", cascade.scale, scale_q, False))
     rounded_cascade = SectionCascade(tuple(new_sections), scale_q, cascade.advance,
                                      cascade.sample_time_s)
-    rebuilt = rounded_cascade.to_zpk()
+    rebuilt = rounded_cascade.to_factored()
     report = BlockQuantization(
         label=label, role=role, kind=kind, sections=len(new_sections),
         coefficients=tuple(changes),

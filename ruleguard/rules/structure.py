@@ -101,10 +101,10 @@ def hidden_cancellation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
         plant_side = [(b, z) for b, z in plant_side if b is not None and z is not None]
         if domain_block(model.plant, dom) is None:
             unknown_plant = unknown_plant or ev
-        all_zpk = [z for _, z in ctrl_blocks + plant_side]
-        if not all_zpk:
+        all_factored = [z for _, z in ctrl_blocks + plant_side]
+        if not all_factored:
             continue
-        floor = _reference_scale(all_zpk)
+        floor = _reference_scale(all_factored)
         pairs = (("plant", plant_side, ctrl_blocks), ("controller", ctrl_blocks, plant_side))
         used: set[tuple[int, int]] = set()  # one zero cancels one pole (and its conjugate)
         for side, pole_blocks, zero_blocks in pairs:

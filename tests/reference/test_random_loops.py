@@ -25,7 +25,7 @@ import pytest
 
 from ruleguard.analysis.margins import analyse_open_loop
 from ruleguard.analysis.openloop import OpenLoop
-from ruleguard.models.lti import Factored, zpk_to_state_space
+from ruleguard.models.lti import Factored, factored_to_state_space
 
 N_CONTINUOUS = 1040  # enough draws that at least 1,000 are compared after skips
 N_DISCRETE = 1000
@@ -59,7 +59,7 @@ def _conjugate_roots(rng, count, unstable_fraction, axis_prob, scale=(0.05, 50.0
 
 
 def _closed_loop_poles(block: Factored, k: float = 1.0) -> np.ndarray:
-    ss = zpk_to_state_space(block.scaled(k))
+    ss = factored_to_state_space(block.scaled(k))
     d = ss.d[0, 0]
     a_cl = ss.a - ss.b @ ss.c / (1.0 + d)
     return np.linalg.eigvals(a_cl)
@@ -113,13 +113,13 @@ def test_state_space_realization_matches_scipy_freqresp():
     # scipy.signal.freqresp on the realization's matrices (orders <= 12, where
     # its internal polynomial form is well conditioned) and numpy.linalg.solve
     # of C (jwI - A)^-1 B + D (all orders) versus the factored response:
-    # validates zpk_to_state_space independently of the factored form.
+    # validates factored_to_state_space independently of the factored form.
     import scipy.signal
 
     rng = np.random.default_rng(7)
     for _ in range(60):
         block = _random_continuous(rng)
-        ss = zpk_to_state_space(block)
+        ss = factored_to_state_space(block)
         w = np.geomspace(0.013, 170.0, 37)
         w = w[np.min(np.abs(1j * w[:, None] - block.poles[None, :]), axis=1) > 1e-6]
         ref = block.response(w)
