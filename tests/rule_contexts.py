@@ -247,7 +247,9 @@ def pair(freq_hz, damping):
     return [complex(re, im), complex(re, -im)]
 
 
-def loop_evaluation(spec, loop_factored: Factored, loop_analysis, variant_id="nominal") -> Evaluation:
+def loop_evaluation(
+    spec, loop_factored: Factored, loop_analysis, variant_id="nominal"
+) -> Evaluation:
     """An evaluation whose whole open loop sits in the controller block (plant = 1)."""
     discrete = loop_factored.sample_time_s is not None
     ctrl = controller_block(
