@@ -371,3 +371,103 @@ def _closure_notes(open_loop: OpenLoop, contour: SampledContour) -> list[str]:
         out.append(f"the closing segment at {top_hz:g} Hz passes left of -0.5 (at "
                    f"{Le.real:.3g}): the verdict depends on the closure")
     return out
+
+
+# ---------------------------------------------------------------- skewed disk margin
+def skewed_disk_range(alpha: float, skew: float) -> tuple[float | None, float | None]:
+    """Gain range (dB) of the skewed disk ``D(alpha, skew)``, ``None`` = unbounded.
+
+    The disk holds the factors ``f = (1 + (1 - s) d / 2) / (1 - (1 + s) d / 2)``
+    with ``|d| <= alpha`` (Seiler, Packard & Gahinet 2020, eq. for D(alpha, sigma)).
+    ``f`` increases with real ``d`` (``df/dd = 1 / (1 - (1 + s) d / 2)^2 > 0``),
+    so the real factors around 1 run from ``d = -alpha`` to ``d = alpha``:
+    ``[(2 - a(1 - s)) / (2 + a(1 + s)), (2 + a(1 - s)) / (2 - a(1 + s))]``
+    (METHODS.md). The upper end is unbounded when ``2 - a(1 + s) <= 0`` (the
+    pole of ``f`` lies inside the disk), the lower one when
+    ``2 - a(1 - s) <= 0`` (the factor 0 lies inside the disk).
+    """
+    low_num = 2.0 - alpha * (1.0 - skew)
+    high_den = 2.0 - alpha * (1.0 + skew)
+    low = _db(low_num / (2.0 + alpha * (1.0 + skew))) if low_num > 0 else None
+    high = _db((2.0 + alpha * (1.0 - skew)) / high_den) if high_den > 0 else None
+    return (low, high)
+
+
+def skewed_disk_phase_deg(alpha: float, skew: float) -> float:
+    """Phase variation (deg, +-) the skewed disk ``D(alpha, skew)`` tolerates.
+
+    Derivation: ``e^{j theta}`` is in the disk when ``|d| <= alpha`` for
+    ``d = (e^{j theta} - 1) / ((1 - s)/2 + (1 + s)/2 e^{j theta})`` (the
+    inverse of the disk's map). ``|e^{j theta} - 1|^2 = 4u`` with
+    ``u = sin^2(theta/2)``, and the denominator's squared modulus is
+    ``(1 + s^2)/2 + (1 - s^2)/2 cos theta = 1 - (1 - s^2) u``. So the condition
+    is ``u (4 + a^2 (1 - s^2)) <= a^2``, i.e.
+    ``tan(theta/2) = a / sqrt(4 - a^2 s^2)`` at the edge, and every phase
+    (180 deg) when ``a |s| >= 2``. For ``s = 0`` this is METHODS.md's
+    ``2 atan(a/2)``.
+
+    References
+    ----------
+    P. J. Seiler, A. K. Packard, P. Gahinet, "An Introduction to Disk Margins",
+    IEEE Control Systems Magazine 40(5), 2020.
+    """
+    room = 4.0 - (alpha * skew) ** 2
+    if room <= 0.0:
+        return 180.0
+    return math.degrees(2.0 * math.atan(alpha / math.sqrt(room)))
+
+
+def skewed_disk_record(alpha: float, skew: float, hz: float | None) -> DiskMargin:
+    """The disk margin record of size ``alpha`` and skew ``skew`` (0: :func:`disk_margin`)."""
+    if skew == 0.0:
+        return disk_margin(alpha, hz)
+    return DiskMargin(float(alpha), skewed_disk_range(alpha, skew),
+                      skewed_disk_phase_deg(alpha, skew), hz, float(skew))
+
+
+def skewed_disk_margin(open_loop: OpenLoop, skew: float) -> DiskMargin:
+    """Disk margin of skew ``skew`` of a closed-loop stable ``open_loop``.
+
+    ``alpha = 1 / max_w |S(jw) + (skew - 1)/2|`` (Seiler, Packard & Gahinet
+    2020; METHODS.md): skew 0 is the balanced margin (``S - 1/2``), skew 1
+    judges ``|S|`` and skew -1 ``|S - 1| = |T|``. The peak is found on the
+    adaptively sampled Nyquist contour and refined by Brent's bounded
+    minimisation, like Ms; the limits at the indentation arcs (``L -> inf``,
+    ``S -> 0``: ``|c|``) and, for a strictly proper continuous loop, at
+    ``w -> inf`` (``S -> 1``: ``|1 + c|``) are included. The caller
+    ensures the loop is closed-loop stable (the margin is not defined
+    otherwise).
+
+    Returns
+    -------
+    DiskMargin
+        ``hz`` where the peak is (``None`` when it is the limit ``w -> inf``).
+
+    References
+    ----------
+    P. J. Seiler, A. K. Packard, P. Gahinet, "An Introduction to Disk Margins",
+    IEEE Control Systems Magazine 40(5), 2020.
+    R. P. Brent, Algorithms for Minimization without Derivatives, 1973, ch. 5.
+    """
+    shift = 0.5 * (float(skew) - 1.0)
+
+    def vec(L: np.ndarray) -> np.ndarray:
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.abs(1.0 / (1.0 + L) + shift)
+
+    def scalar(L: complex) -> float:
+        d = 1.0 + L
+        return math.inf if d == 0 else abs(1.0 / d + shift)
+
+    contour = sample_contour(open_loop)
+    contour.refine_for_point(-1.0)
+    value, w = peak(contour, vec, scalar)
+    hz = _hz(w) if math.isfinite(w) else None
+    for ind in contour.indentations:
+        if ind.order > 0 and abs(shift) > value:
+            value, hz = abs(shift), _hz(ind.w0)
+    if contour.end == "infinity" and contour.rational.relative_degree > 0 and \
+            abs(1.0 + shift) > value:
+        value, hz = abs(1.0 + shift), None
+    alpha = math.inf if value <= 0 else 1.0 / value
+    return skewed_disk_record(alpha, skew, hz)

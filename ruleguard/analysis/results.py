@@ -35,12 +35,17 @@ class Crossover:
 
 @dataclass(frozen=True)
 class DiskMargin:
-    """Balanced disk margin (Seiler, Packard & Gahinet, IEEE CSM 40(5), 2020)."""
+    """Disk margin (Seiler, Packard & Gahinet, IEEE CSM 40(5), 2020).
+
+    ``skew`` is the skew sigma of the disk: 0 (balanced, the report's
+    ``disk_margin``), or the skew ``margin.disk`` was asked to judge.
+    """
 
     alpha: float
     gain_range_db: tuple[float | None, float | None]
     phase_deg: float
     hz: float | None
+    skew: float = 0.0
 
 
 @dataclass(frozen=True)

@@ -46,6 +46,9 @@ class Violation:
     #: ``None``: the rule's configured severity. ``Severity.NOTE`` for
     #: "not computable here" observations, which must never pass silently.
     severity: Severity | None = None
+    #: What would pass (:class:`ruleguard.rules.hints.FixHint`), computed for
+    #: failing margin and sensitivity findings; never applied.
+    hint: Any = None
 
 
 @dataclass(frozen=True)
@@ -66,6 +69,8 @@ class Finding:
     waived: bool = False
     waiver_reason: str | None = None
     key_path: str = ""
+    #: A :class:`ruleguard.rules.hints.FixHint` or ``None``.
+    hint: Any = None
 
 
 @dataclass(frozen=True, eq=False)

@@ -189,6 +189,7 @@ def _finding(
         waived=waiver is not None,
         waiver_reason=waiver.reason if waiver is not None else None,
         key_path=violation.key_path,
+        hint=violation.hint,
     )
 
 

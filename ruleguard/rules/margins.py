@@ -237,19 +237,35 @@ def delay_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violat
 # --------------------------------------------------------------------------- disk
 
 
-def alpha_for_gain_db(gain_db: float) -> float:
-    """Balanced disk size giving a gain range of +-``gain_db``.
+def alpha_for_gain_db(gain_db: float, skew: float = 0.0) -> float:
+    """Smallest disk size whose gain range covers [-``gain_db``, +``gain_db``].
 
-    From the upper end (2 + a)/(2 - a) = K of the balanced disk's gain range
-    (Seiler, Packard & Gahinet 2020): a = 2 (K - 1)/(K + 1), K = 10^(dB/20).
+    Balanced (skew 0): from the upper end (2 + a)/(2 - a) = K of the disk's
+    gain range (Seiler, Packard & Gahinet 2020): a = 2 (K - 1)/(K + 1),
+    K = 10^(dB/20). Skewed (METHODS.md's range): the upper end
+    (2 + a(1 - s))/(2 - a(1 + s)) = K gives a = 2 (K - 1)/((1 - s) + K (1 + s)),
+    the lower end (2 - a(1 - s))/(2 + a(1 + s)) = 1/K gives
+    a = 2 (K - 1)/(K (1 - s) + (1 + s)); both ends grow with a, so the larger
+    of the two is needed.
     """
     k = 10.0 ** (gain_db / 20.0)
-    return 2.0 * (k - 1.0) / (k + 1.0)
+    if skew == 0.0:
+        return 2.0 * (k - 1.0) / (k + 1.0)
+    up = 2.0 * (k - 1.0) / ((1.0 - skew) + k * (1.0 + skew))
+    down = 2.0 * (k - 1.0) / (k * (1.0 - skew) + (1.0 + skew))
+    return max(up, down)
 
 
-def alpha_for_phase_deg(phase_deg: float) -> float:
-    """Balanced disk size giving +-``phase_deg``: phase = 2 atan(a/2), so a = 2 tan(phase/2)."""
-    return 2.0 * math.tan(math.radians(phase_deg) / 2.0)
+def alpha_for_phase_deg(phase_deg: float, skew: float = 0.0) -> float:
+    """Smallest disk size tolerating +-``phase_deg``.
+
+    Balanced: phase = 2 atan(a/2), so a = 2 tan(phase/2). Skewed: the phase of
+    :func:`ruleguard.analysis.margins.skewed_disk_phase_deg`,
+    tan(phase/2) = a / sqrt(4 - a^2 s^2), solved for a:
+    a = 2 t / sqrt(1 + t^2 s^2), t = tan(phase/2).
+    """
+    t = math.tan(math.radians(phase_deg) / 2.0)
+    return 2.0 * t / math.sqrt(1.0 + (t * skew) ** 2)
 
 
 def disk_gain_db(alpha: float) -> float | None:
@@ -264,53 +280,109 @@ def disk_phase_deg(alpha: float) -> float:
     return math.degrees(2.0 * math.atan(alpha / 2.0))
 
 
-def disk_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violation]:
-    """Balanced disk margin alpha >= the largest of the configured requirements."""
+def disk_skew(params: Mapping[str, Any]) -> float:
+    """The skew sigma ``margin.disk`` judges (0, balanced, when not set)."""
+    value = params.get("skew")
+    return 0.0 if value is None else float(value)
+
+
+def required_disk_alpha(params: Mapping[str, Any]) -> tuple[float, str] | None:
+    """The disk size ``margin.disk`` requires and the parameter that sets it.
+
+    The largest of ``min_alpha`` and the sizes implied by ``min_gain_db`` and
+    ``min_phase_deg`` at the rule's skew; ``None`` when none is configured.
+    """
+    skew = disk_skew(params)
     requirements: list[tuple[float, str]] = []
     if params.get("min_alpha") is not None:
         requirements.append((float(params["min_alpha"]), "min_alpha"))
     if params.get("min_gain_db") is not None:
-        requirements.append((alpha_for_gain_db(float(params["min_gain_db"])), "min_gain_db"))
+        requirements.append(
+            (alpha_for_gain_db(float(params["min_gain_db"]), skew), "min_gain_db")
+        )
     if params.get("min_phase_deg") is not None:
         requirements.append(
-            (alpha_for_phase_deg(float(params["min_phase_deg"])), "min_phase_deg")
+            (alpha_for_phase_deg(float(params["min_phase_deg"]), skew), "min_phase_deg")
         )
-    if not requirements:
+    return max(requirements) if requirements else None
+
+
+def _disk_of(ev: Evaluation, skew: float):
+    """The disk margin of skew ``skew`` of a stable variant (``None``: not computed).
+
+    Skew 0 is the analysis's balanced margin; another skew is computed here
+    from the variant's open loop
+    (:func:`ruleguard.analysis.margins.skewed_disk_margin`).
+    """
+    if skew == 0.0:
+        return ev.analysis.margins.disk_margin
+    open_loop = getattr(getattr(ev, "model", None), "open_loop", None)
+    if open_loop is None:
+        return None
+    from ruleguard.analysis.margins import skewed_disk_margin
+
+    return skewed_disk_margin(open_loop, skew)
+
+
+def _disk_gain_text(disk) -> str:
+    low, high = disk.gain_range_db
+    if disk.skew == 0.0:
+        if high is None:
+            return "any gain"
+        return f"+-{format_number(high)} dB"
+    lo_text = "-infinite" if low is None else format_number(low)
+    hi_text = "+infinite" if high is None else f"+{format_number(high)}"
+    return f"gain {lo_text} to {hi_text} dB"
+
+
+def disk_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violation]:
+    """Disk margin alpha (of skew ``skew``, default balanced) >= the largest requirement."""
+    required = required_disk_alpha(params)
+    if required is None:
         return
-    required_alpha, binding = max(requirements)
+    required_alpha, binding = required
+    skew = disk_skew(params)
     stable, why = judged_variants(ctx, "disk margin")
     if why is not None:
         yield why
     if not stable:
         return
-    missing = [ev for ev in stable if ev.analysis.margins.disk_margin is None]
-    judged = [ev for ev in stable if ev.analysis.margins.disk_margin is not None]
+    disks = {id(ev): _disk_of(ev, skew) for ev in stable}
+    missing = [ev for ev in stable if disks[id(ev)] is None]
+    judged = [ev for ev in stable if disks[id(ev)] is not None]
     failing, worst = beyond_limit(
-        judged, lambda ev: ev.analysis.margins.disk_margin.alpha, required_alpha, side="below"
+        judged, lambda ev: disks[id(ev)].alpha, required_alpha, side="below"
     )
     if worst is not None:
-        disk = worst.analysis.margins.disk_margin
+        disk = disks[id(worst)]
         alpha = disk.alpha
-        gain_db = disk_gain_db(alpha)
+        low, high = disk.gain_range_db
+        gain_text = _disk_gain_text(disk)
         tolerates = (
-            f"+-{format_number(gain_db)} dB and +-{format_number(disk_phase_deg(alpha))} deg"
-            if gain_db is not None
+            f"{gain_text} and +-{format_number(disk.phase_deg)} deg"
+            if gain_text != "any gain"
             else "any gain"
         )
         if binding == "min_gain_db":
-            measured, limit, unit = gain_db, float(params["min_gain_db"]), "dB"
+            if skew == 0.0:
+                measured = high
+            else:  # the smaller of the two ends, as a +- figure
+                ends = [abs(v) for v in (low, high) if v is not None]
+                measured = min(ends) if ends else None
+            limit, unit = float(params["min_gain_db"]), "dB"
             wanted = f"+-{format_number(limit)} dB"
         elif binding == "min_phase_deg":
-            measured, limit, unit = disk_phase_deg(alpha), float(params["min_phase_deg"]), "deg"
+            measured, limit, unit = disk.phase_deg, float(params["min_phase_deg"]), "deg"
             wanted = f"+-{format_number(limit)} deg"
         else:
             measured, limit, unit = alpha, required_alpha, None
             wanted = f"alpha {format_number(required_alpha)}"
+        kind = "disk margin" if skew == 0.0 else f"disk margin (skew {format_number(skew)})"
         yield loop_violation(
             ctx,
             params,
             worst,
-            f"disk margin alpha {format_number(alpha)} (simultaneous {tolerates}) is "
+            f"{kind} alpha {format_number(alpha)} (simultaneous {tolerates}) is "
             f"below the required {wanted} (alpha {format_number(required_alpha)})"
             f"{variants_phrase(len(failing), len(ctx.evaluations))}",
             measured,
@@ -424,7 +496,8 @@ RULES: tuple[RuleSpec, ...] = (
     RuleSpec(
         id="margin.disk",
         default_severity=Severity.ERROR,
-        summary="Balanced disk margin (simultaneous gain and phase variation) large enough.",
+        summary="Disk margin (simultaneous gain and phase variation) large enough; "
+        "balanced unless a skew is set.",
         explanation=(
             "The balanced disk margin alpha = 1/max_w |S(jw) - 1/2| (skew 0; "
             "S - 1/2 = (S - T)/2) is the size of the largest disk of simultaneous "
@@ -434,6 +507,15 @@ RULES: tuple[RuleSpec, ...] = (
             "alpha implied by `min_gain_db` (a = 2(K-1)/(K+1), K = 10^(dB/20)) or "
             "`min_phase_deg` (a = 2 tan(deg/2)); the largest configured requirement "
             "applies. With none set the rule checks nothing.\n\n"
+            "`skew` (sigma, default 0) judges the skewed disk instead: "
+            "alpha = 1/max_w |S + (sigma - 1)/2|, gain range "
+            "[(2 - a(1 - s))/(2 + a(1 + s)), (2 + a(1 - s))/(2 - a(1 + s))] (an end "
+            "unbounded when its numerator or denominator is <= 0) and phase "
+            "+-2 atan(a/sqrt(4 - a^2 s^2)). sigma = 1 gives alpha = 1/max|S| (the disk "
+            "Re f > 1/2: gain may rise without bound), sigma = -1 gives alpha = 1/max|T| "
+            "(gain may fall to 0); choose sigma > 0 when gain increases are the larger "
+            "uncertainty, sigma < 0 for decreases. `min_gain_db` then requires the disk's "
+            "gain range to cover [-min_gain_db, +min_gain_db].\n\n"
             "Why it matters: classical gain and phase margins each assume the other "
             "perturbation is zero; a loop can have good separate margins and still be "
             "close to -1 in between. The disk margin is a single robust measure.\n\n"
@@ -453,6 +535,9 @@ RULES: tuple[RuleSpec, ...] = (
             Parameter("min_phase_deg", "number", "deg", None,
                       "smallest allowed balanced disk phase margin (+- deg)",
                       minimum=0.0, maximum=179.0),
+            Parameter("skew", "number", None, 0.0,
+                      "skew sigma of the disk (0 balanced, 1: margin on S, -1: on T)",
+                      minimum=-10.0, maximum=10.0),
         ),
         function=disk_margin,
     ),
