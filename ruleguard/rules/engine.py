@@ -26,10 +26,13 @@ import fnmatch
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 
+import numpy as np
+
 from ruleguard.errors import InputError
 from ruleguard.location import Location
 from ruleguard.rules.base import Finding, LoopContext, Severity, Violation
 from ruleguard.rules.catalog import RULES, UnknownRule, check_patterns, is_selected, matches
+from ruleguard.rules.hints import HINTED_RULES, LoopHints
 from ruleguard.rules.spec import Override, ParameterValues, Ruleset, RuleSetting, Waiver
 
 CLOSED_LOOP = "stability.closed-loop"
@@ -193,6 +196,16 @@ def _finding(
     )
 
 
+def _with_hint(hints: LoopHints, rule_id: str, violation: Violation) -> Violation:
+    """``violation`` with its fix hint (unchanged when none can be computed)."""
+    try:
+        hint = hints.hint_for(rule_id, violation)
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError):
+        # a hint is advice: a numerical failure computing it never changes the verdict
+        return violation
+    return violation if hint is None else replace(violation, hint=hint)
+
+
 def _not_analysed_violation(ctx: LoopContext) -> Violation:
     extras = ctx.extras or {}
     location = extras.get("not_analysed_location") or ctx.spec.controller.location
@@ -263,6 +276,7 @@ def iter_findings(
         reason_rule = None
         if ctx.not_analysed_reason is not None and not ctx.evaluations:
             reason_rule = (ctx.extras or {}).get("not_analysed_rule") or CLOSED_LOOP
+        hints = None  # the loop's fix hints, computed at its first failing margin finding
         ids = loop_rules if reason_rule is None or reason_rule in loop_rules else sorted(
             [*loop_rules, reason_rule]
         )
@@ -281,6 +295,10 @@ def iter_findings(
                 severity = effective.severity
                 violations = RULES[rule_id].function(ctx, effective.parameters)
             for violation in violations:
+                if violation.severity is None and rule_id in HINTED_RULES and ctx.evaluations:
+                    if hints is None:
+                        hints = LoopHints(ctx)
+                    violation = _with_hint(hints, rule_id, violation)
                 waiver = next((w for w in active if waiver_applies(w, rule_id, name)), None)
                 if waiver is not None:
                     hits[id(waiver)] += 1
