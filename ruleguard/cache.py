@@ -43,7 +43,7 @@ from ruleguard.report.records import (
 from ruleguard.rules.base import Finding
 
 CACHE_FOLDER = ".ruleguard-cache"
-CACHE_FORMAT = 1
+CACHE_FORMAT = 2  # 2: findings carry fix hints
 CACHEDIR_TAG = (
     "Signature: 8a477f597d28d172789f06886806bc55\n"
     "# This file is a cache directory tag created by ruleguard.\n"

@@ -26,6 +26,7 @@ from collections.abc import Mapping, Sequence
 from html import escape
 
 from ruleguard.location import Location
+from ruleguard.report.hint_text import hint_line
 from ruleguard.report.model import LoopResult, Report, VariantResult
 from ruleguard.report.summary import VALUE, Figure, loop_summary, loop_verdict
 from ruleguard.report.text import CAUTION
@@ -83,6 +84,7 @@ td.num { text-align: right; white-space: nowrap; }
 .finding pre { background: var(--band); padding: .3rem .5rem; margin: .3rem 0 0;
                overflow-x: auto; }
 .finding .waiver { margin: .3rem 0 0; }
+.finding .hint { margin: .3rem 0 0; }
 .notes { color: var(--muted); }
 figure { margin: 1rem 0; break-inside: avoid; }
 figure svg { max-width: 100%; height: auto; border: 1px solid var(--rule); }
@@ -406,6 +408,9 @@ def _finding(report: Report, finding: Finding, summaries: Mapping[str, str]) -> 
     source = _source_line(report, finding.location)
     if source is not None:
         out.append(f"<pre>{_e(finding.location.line)} │ {_e(source)}</pre>")
+    hint = hint_line(finding.hint)
+    if hint:
+        out.append(f'<p class="hint"><strong>fix hint:</strong> {_e(hint)}</p>')
     if finding.waived:
         out.append(f'<p class="waiver"><strong>waiver:</strong> '
                    f"{_e(finding.waiver_reason or 'no reason recorded')}</p>")

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import re
 
+from ruleguard.report.hint_text import hint_line
 from ruleguard.report.model import LoopResult, Report
 from ruleguard.report.summary import UNBOUNDED, VALUE, Figure, loop_summary, loop_verdict
 from ruleguard.report.text import CAUTION
@@ -95,6 +96,9 @@ def _finding_item(finding: Finding) -> str:
     )
     if finding.waived:
         item += f"\n  - waiver: {escape(finding.waiver_reason or 'waived')}"
+    hint = hint_line(finding.hint)
+    if hint:
+        item += f"\n  - fix hint: {escape(hint)}"
     return item
 
 

@@ -30,6 +30,7 @@ from ruleguard.analysis.results import (
 from ruleguard.location import Location
 from ruleguard.report.model import LoopResult, VariantResult
 from ruleguard.rules.base import Finding, Severity
+from ruleguard.rules.hints import FixHint
 
 
 def plain(value: Any, *, finite_only: bool = True) -> Any:
@@ -164,7 +165,43 @@ def finding_to_dict(finding: Finding, *, finite_only: bool = True) -> dict:
         "waiver_reason": finding.waiver_reason,
         "key_path": finding.key_path,
         "related": [location_to_dict(r) for r in finding.related],
+        "hint": hint_to_dict(finding.hint, finite_only=finite_only),
     }
+
+
+def hint_to_dict(hint: FixHint | None, *, finite_only: bool = True) -> dict | None:
+    """A finding's ``hint`` object (docs/formats-additions.md), ``None`` without one."""
+    if hint is None:
+        return None
+    factor = None if hint.gain_factor_range is None else list(hint.gain_factor_range)
+    change = None if hint.gain_change_db_range is None else list(hint.gain_change_db_range)
+    return plain(
+        {
+            "gain_factor_range": factor,
+            "gain_change_db_range": change,
+            "suggested_gain_factor": hint.suggested_gain_factor,
+            "confirmed": bool(hint.confirmed),
+            "rules": list(hint.rules),
+            "max_extra_delay_s": hint.max_extra_delay_s,
+            "crossover_hz_at_most": hint.crossover_hz_at_most,
+        },
+        finite_only=finite_only,
+    )
+
+
+def hint_from_dict(data: Mapping[str, Any] | None) -> FixHint | None:
+    """The inverse of :func:`hint_to_dict` (the cache reads findings back)."""
+    if data is None:
+        return None
+    factor = data.get("gain_factor_range")
+    return FixHint(
+        gain_factor_range=None if factor is None else (float(factor[0]), _opt_float(factor[1])),
+        suggested_gain_factor=_opt_float(data.get("suggested_gain_factor")),
+        confirmed=bool(data.get("confirmed", False)),
+        rules=tuple(str(r) for r in data.get("rules", ())),
+        max_extra_delay_s=_opt_float(data.get("max_extra_delay_s")),
+        crossover_hz_at_most=_opt_float(data.get("crossover_hz_at_most")),
+    )
 
 
 # ---------------------------------------------------------------- from dicts
@@ -269,4 +306,5 @@ def finding_from_dict(data: Mapping[str, Any]) -> Finding:
         waived=bool(data["waived"]),
         waiver_reason=data.get("waiver_reason"),
         key_path=str(data.get("key_path", "")),
+        hint=hint_from_dict(data.get("hint")),
     )

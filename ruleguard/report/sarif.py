@@ -26,8 +26,9 @@ import os
 from pathlib import Path
 
 from ruleguard.location import Location
+from ruleguard.report.hint_text import hint_line
 from ruleguard.report.model import Report, RuleInfo
-from ruleguard.report.records import plain
+from ruleguard.report.records import hint_to_dict, plain
 from ruleguard.rules.base import Finding, Severity
 
 SARIF_VERSION = "2.1.0"
@@ -126,7 +127,10 @@ def _message(finding: Finding) -> str:
         where.append(f"loop {finding.loop}")
     if finding.variant:
         where.append(f"variant {finding.variant}")
-    return f"{text} ({', '.join(where)})" if where else text
+    text = f"{text} ({', '.join(where)})" if where else text
+    hint = hint_line(finding.hint)
+    # a suggestion in the message, never a SARIF `fixes` entry: ruleguard edits no file
+    return f"{text}. Fix hint: {hint}." if hint else text
 
 
 def render(
@@ -236,6 +240,8 @@ def _result(
             }
         ),
     }
+    if finding.hint is not None:
+        result["properties"]["hint"] = hint_to_dict(finding.hint)
     if finding.loop:
         result["locations"][0]["logicalLocations"] = [
             {"name": finding.loop, "fullyQualifiedName": finding.loop, "kind": "module"}

@@ -28,6 +28,7 @@ from collections.abc import Mapping
 from typing import TextIO
 
 from ruleguard.location import Location
+from ruleguard.report.hint_text import hint_line
 from ruleguard.report.model import LoopResult, Report
 from ruleguard.report.summary import (
     NOT_APPLICABLE,
@@ -355,6 +356,9 @@ def _finding_block(console, report: Report, finding: Finding, prefix: str = "") 
         console.print(row, soft_wrap=True)
     if finding.waived and finding.waiver_reason:
         console.print(_styled(f"{pad}  waiver: {finding.waiver_reason}", "dim"), soft_wrap=True)
+    hint = hint_line(finding.hint)
+    if hint:
+        console.print(_styled(f"{pad}  fix hint: {hint}", "cyan"), soft_wrap=True)
     for related in finding.related:
         key = f" ({related.key})" if related.key else ""
         console.print(

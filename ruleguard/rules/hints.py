@@ -496,10 +496,13 @@ def variant_allowed_db(ev: Evaluation, limits: _Limits, contour=None) -> Interva
     if limits.phase_deg is None and limits.delay_s is None and not limits.peaks:
         return allowed
     contour = _contour(ev) if contour is None else contour
+    tests = []
     if limits.phase_deg is not None:
-        allowed = subtract(allowed, frequency_test_forbidden(contour, phase_test(limits.phase_deg))[0])
+        tests.append(phase_test(limits.phase_deg))
     if limits.delay_s is not None:
-        allowed = subtract(allowed, frequency_test_forbidden(contour, delay_test(limits.delay_s))[0])
+        tests.append(delay_test(limits.delay_s))
+    for test in tests:
+        allowed = subtract(allowed, frequency_test_forbidden(contour, test)[0])
     for _, shift, radius in limits.peaks:
         allowed = subtract(allowed, peak_limit_forbidden(contour, shift, radius))
     return allowed
