@@ -157,7 +157,7 @@ def test_random_loops_against_scipy(seed):
         peak = values[j]
         if 0 < j < w.size - 1:
             res = optimize.minimize_scalar(
-                lambda x: -abs(1 / (1 + signal.freqresp(system, [x])[1][0]) + c),
+                lambda x, c=c: -abs(1 / (1 + signal.freqresp(system, [x])[1][0]) + c),
                 bounds=(w[j - 1], w[j + 1]), method="bounded",
                 options={"xatol": 1e-12 * w[j]})
             peak = max(peak, -res.fun)

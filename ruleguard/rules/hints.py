@@ -203,15 +203,17 @@ def _end_kinds(contour, bi: int) -> tuple[str, str]:
     return start, stop
 
 
-def _refined_extreme(fun: Callable[[float], float], w: np.ndarray, j: int, sign: float) -> float:
+def _refined_extreme(fun: Callable[[float], float], w: np.ndarray, j: int, sign: float,
+                     run: tuple[int, int]) -> float:
     """``fun`` at the local extremum next to sample ``j`` (sign +1: minimum, -1: maximum).
 
-    Brent's minimiser between the neighbours of ``j``; where ``fun`` is not
-    defined (``nan``, ``inf``) it counts as a poor value.
+    Brent's minimiser between the neighbours of ``j`` inside the run
+    ``(first, last)``; where ``fun`` is not defined (``nan``, ``inf``) it
+    counts as a poor value.
     """
     from ruleguard.analysis.contour import _minimize
 
-    a, b = float(w[max(j - 1, 0)]), float(w[min(j + 1, w.size - 1)])
+    a, b = float(w[max(j - 1, run[0])]), float(w[min(j + 1, run[1])])
     here = fun(float(w[j]))
     if not b > a:
         return here
@@ -223,6 +225,18 @@ def _refined_extreme(fun: Callable[[float], float], w: np.ndarray, j: int, sign:
     _, value = _minimize(g, a, b)
     best = sign * here if math.isfinite(here) else _POOR
     return min(best, value) * sign
+
+
+def _widen(value: Callable[[float], float], a: float, b: float, lo: float, hi: float
+           ) -> tuple[float, float]:
+    """``[lo, hi]`` widened by ``value``'s extremes on ``[a, b]`` (ends included)."""
+    from ruleguard.analysis.contour import _minimize
+
+    lo, hi = min(lo, value(a), value(b)), max(hi, value(a), value(b))
+    if b > a:
+        lo = min(lo, _minimize(value, a, b)[1])
+        hi = max(hi, -_minimize(lambda x: -value(x), a, b)[1])
+    return lo, hi
 
 
 def _edge_root(g: Callable[[float], float], a: float, b: float) -> float | None:
@@ -264,15 +278,15 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
                 r = _edge_root(g_scalar, float(w[i0 - 1]), float(w[i0]))
                 if r is not None:
                     w_lo = r
-                    lo, hi = min(lo, value(r)), max(hi, value(r))
+                    lo, hi = _widen(value, r, float(w[i0]), lo, hi)
             if i1 < w.size - 1:
                 r = _edge_root(g_scalar, float(w[i1]), float(w[i1 + 1]))
                 if r is not None:
                     w_hi = r
-                    lo, hi = min(lo, value(r)), max(hi, value(r))
+                    lo, hi = _widen(value, float(w[i1]), r, lo, hi)
             jmin, jmax = i0 + int(np.argmin(seg)), i0 + int(np.argmax(seg))
-            lo = min(lo, _refined_extreme(value, w, jmin, 1.0))
-            hi = max(hi, _refined_extreme(value, w, jmax, -1.0))
+            lo = min(lo, _refined_extreme(value, w, jmin, 1.0, (i0, i1)))
+            hi = max(hi, _refined_extreme(value, w, jmax, -1.0, (i0, i1)))
             if i0 == 0 and start_kind == "arc":
                 lo = -_INF
             if i1 == w.size - 1:
@@ -373,8 +387,8 @@ def peak_limit_forbidden(contour, shift: float, radius: float) -> Intervals:
             lo = float(lo_db[jlo])
             hi = float(hi_db[jhi])
             if math.isfinite(lo):
-                lo = min(lo, _refined_extreme(lo_at, w, jlo, 1.0))
-            hi = max(hi, _refined_extreme(hi_at, w, jhi, -1.0))
+                lo = min(lo, _refined_extreme(lo_at, w, jlo, 1.0, (i0, i1)))
+            hi = max(hi, _refined_extreme(hi_at, w, jhi, -1.0, (i0, i1)))
             # where the run ends because the roots merge (discriminant 0), the
             # interval closes between samples: refine that edge and the
             # extremes next to it
