@@ -172,6 +172,7 @@ class TestValues:
                 {"file": "house.toml", "line": 6, "column": 1,
                  "key": "rules.margin.phase.min_deg"},
             ],
+            "hint": None,  # docs/formats-additions.md: null when the finding has none
         }
         waived = self.data["findings"][2]
         assert waived["waived"] is True

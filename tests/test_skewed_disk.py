@@ -178,3 +178,37 @@ def test_sigma_one_is_ms_and_sigma_minus_one_is_mt():
     assert skewed_disk_margin(loop, -1.0).alpha == pytest.approx(1 / mt, rel=1e-8)
     balanced = skewed_disk_margin(loop, 0.0)
     assert balanced.alpha == pytest.approx(margins.disk_margin.alpha, rel=1e-9)
+
+
+def test_rule_judges_the_skewed_margin(tmp_path):
+    # margin.disk with skew = 1 judges alpha = 1/Ms (formula above); the
+    # finding's measured alpha must equal 1/Ms from the report's separately
+    # computed sensitivity peak of the worst variant.
+    from ruleguard import api
+    from ruleguard.report.json_report import report_data
+
+    (tmp_path / "ruleguard.toml").write_text("""[project]
+name = "skew"
+ruleset = "rules.toml"
+plants = ["plants.toml"]
+
+[[loops]]
+name = "axis.velocity"
+plant = "mechanics"
+controller = { file = "axis.toml", path = "velocity" }
+delay_s = 0.002
+""")
+    (tmp_path / "plants.toml").write_text(
+        '[plants.mechanics]\nkind = "zero_pole_gain"\nzeros = []\npoles = [0.0, -20.0]\n'
+        'gain = 400.0\n')
+    (tmp_path / "axis.toml").write_text('[velocity]\nkind = "pid"\nkp = 2.0\nki = 4.0\n')
+    (tmp_path / "rules.toml").write_text(
+        '[ruleset]\nname = "s"\n\n[rules."margin.disk"]\nmin_alpha = 0.9\nskew = 1.0\n')
+    data = report_data(api.check(tmp_path / "ruleguard.toml"))
+    finding = next(f for f in data["findings"] if f["rule"] == "margin.disk")
+    margins = data["loops"][0]["variants"][0]["margins"]
+    ms = 10 ** (margins["sensitivity_peak_db"] / 20)
+    assert finding["measured"] == pytest.approx(1 / ms, rel=1e-8)
+    assert finding["limit"] == 0.9
+    # the report's balanced disk_margin is unchanged by the rule's skew
+    assert margins["disk_margin"]["alpha"] != pytest.approx(1 / ms, rel=1e-3)
