@@ -201,8 +201,21 @@ def test_text_and_sarif_carry_the_hint(failing_project):
 
     manifest, _ = failing_project
     report = api.check(manifest)
-    out = text.render(report, color=False) if "color" in text.render.__code__.co_varnames \
-        else text.render(report)
+    out = text.render(report, color=False)
     assert "fix hint: scale the controller gain" in out
     doc = sarif.render(report)
     assert "Fix hint:" in doc and '"fixes"' not in doc
+
+
+def test_html_markdown_and_cache_records(failing_project):
+    from ruleguard.report import html, markdown
+    from ruleguard.report.records import finding_from_dict, finding_to_dict
+
+    manifest, _ = failing_project
+    report = api.check(manifest)
+    assert "fix hint:" in html.render(report)
+    assert "fix hint:" in markdown.render(report)
+    hinted = [f for f in report.findings if f.hint is not None]
+    assert hinted
+    for f in hinted:  # the cache stores findings as these dicts and reads them back
+        assert finding_from_dict(finding_to_dict(f, finite_only=False)) == f
