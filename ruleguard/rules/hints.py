@@ -430,7 +430,7 @@ def peak_limit_forbidden(contour, shift: float, radius: float) -> Intervals:
 def _active(ctx: LoopContext, rule_id: str) -> Mapping[str, Any] | None:
     extras = ctx.extras or {}
     severity = (extras.get("rule_severities") or {}).get(rule_id)
-    if severity is Severity.OFF:
+    if severity is Severity.DISABLED:
         return None
     params = (extras.get("rule_parameters") or {}).get(rule_id)
     if params is None:
