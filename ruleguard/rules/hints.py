@@ -248,11 +248,42 @@ def _edge_root(g: Callable[[float], float], a: float, b: float) -> float | None:
         return None
 
 
-def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], np.ndarray]
+#: Between neighbouring samples log|L| changes by at most the contour's step
+#: bound (0.5, i.e. 4.3 dB): a run whose sampled values lie farther than this
+#: from every gain change still in question cannot matter and is not refined.
+_REFINE_REACH_DB = 5.0
+
+
+def _extended(lo: float, hi: float, i0: int, i1: int, n: int, start_kind: str,
+              stop_kind: str) -> tuple[float, float]:
+    """A run's values extended to the limits beyond the branch ends it touches.
+
+    Next to an indentation arc ``|L| -> inf`` (``k -> 0``: ``-inf`` dB); at
+    ``w -> inf`` of a strictly proper loop ``|L| -> 0`` (``+inf`` dB).
+    """
+    if i0 == 0 and start_kind == "arc":
+        lo = -_INF
+    if i1 == n - 1:
+        if stop_kind == "arc":
+            lo = -_INF
+        elif stop_kind == "zero":
+            hi = _INF
+    return lo, hi
+
+
+def _matters(lo: float, hi: float, within: Intervals | None) -> bool:
+    return within is None or bool(
+        intersect([(lo - _REFINE_REACH_DB, hi + _REFINE_REACH_DB)], within))
+
+
+def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], np.ndarray],
+                             within: Intervals | None = None
                              ) -> tuple[Intervals, list[tuple[float, float]]]:
     """Gain changes (dB) that put a crossover where ``test(w, L) < 0`` (it fails there).
 
     Returns the forbidden set and the runs' frequency edges (rad/s, refined).
+    Runs far from ``within`` (the changes still in question) keep their
+    sampled values (see ``_REFINE_REACH_DB``).
     """
     forbidden, edges = [], []
     for bi, br in enumerate(contour.branches):
@@ -274,6 +305,10 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             seg = vals[i0:i1 + 1]
             lo, hi = float(np.min(seg)), float(np.max(seg))
             w_lo, w_hi = float(w[i0]), float(w[i1])
+            if not _matters(*_extended(lo, hi, i0, i1, w.size, start_kind, stop_kind), within):
+                forbidden.append((lo, hi if hi > lo else lo + 1e-12))
+                edges.append((w_lo, w_hi))
+                continue
             if i0 > 0:
                 r = _edge_root(g_scalar, float(w[i0 - 1]), float(w[i0]))
                 if r is not None:
@@ -287,13 +322,7 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             jmin, jmax = i0 + int(np.argmin(seg)), i0 + int(np.argmax(seg))
             lo = min(lo, _refined_extreme(value, w, jmin, 1.0, (i0, i1)))
             hi = max(hi, _refined_extreme(value, w, jmax, -1.0, (i0, i1)))
-            if i0 == 0 and start_kind == "arc":
-                lo = -_INF
-            if i1 == w.size - 1:
-                if stop_kind == "arc":
-                    lo = -_INF
-                elif stop_kind == "zero":
-                    hi = _INF
+            lo, hi = _extended(lo, hi, i0, i1, w.size, start_kind, stop_kind)
             forbidden.append((lo, hi if hi > lo else lo + 1e-12))
             edges.append((w_lo, w_hi))
     return normalize(forbidden), edges
@@ -341,8 +370,12 @@ def _to_db(k: np.ndarray) -> np.ndarray:
         return 20.0 * np.log10(k)
 
 
-def peak_limit_forbidden(contour, shift: float, radius: float) -> Intervals:
-    """Gain changes (dB) for which ``max_w |1/(1 + kL) + shift| > radius``."""
+def peak_limit_forbidden(contour, shift: float, radius: float,
+                         within: Intervals | None = None) -> Intervals:
+    """Gain changes (dB) for which ``max_w |1/(1 + kL) + shift| > radius``.
+
+    Runs far from ``within`` keep their sampled values (``_REFINE_REACH_DB``).
+    """
     if not radius > abs(shift):
         # only k between the roots pass, at every frequency: intersect on the samples
         allowed = [(-_INF, _INF)]
@@ -386,6 +419,9 @@ def peak_limit_forbidden(contour, shift: float, radius: float) -> Intervals:
             jhi = i0 + int(np.argmax(hi_db[i0:i1 + 1]))
             lo = float(lo_db[jlo])
             hi = float(hi_db[jhi])
+            if not _matters(*_extended(lo, hi, i0, i1, w.size, start_kind, stop_kind), within):
+                forbidden.append((lo, hi if hi > lo else lo + 1e-12))
+                continue
             if math.isfinite(lo):
                 lo = min(lo, _refined_extreme(lo_at, w, jlo, 1.0, (i0, i1)))
             hi = max(hi, _refined_extreme(hi_at, w, jhi, -1.0, (i0, i1)))
@@ -415,13 +451,7 @@ def peak_limit_forbidden(contour, shift: float, radius: float) -> Intervals:
                 merged = hi_at(edge)
                 if math.isfinite(merged):
                     hi = max(hi, merged)
-            if i0 == 0 and start_kind == "arc":
-                lo = -_INF
-            if i1 == w.size - 1:
-                if stop_kind == "arc":
-                    lo = -_INF
-                elif stop_kind == "zero":
-                    hi = _INF
+            lo, hi = _extended(lo, hi, i0, i1, w.size, start_kind, stop_kind)
             forbidden.append((lo, hi if hi > lo else lo + 1e-12))
     return normalize(forbidden)
 
@@ -516,9 +546,9 @@ def variant_allowed_db(ev: Evaluation, limits: _Limits, contour=None) -> Interva
     if limits.delay_s is not None:
         tests.append(delay_test(limits.delay_s))
     for test in tests:
-        allowed = subtract(allowed, frequency_test_forbidden(contour, test)[0])
+        allowed = subtract(allowed, frequency_test_forbidden(contour, test, allowed)[0])
     for _, shift, radius in limits.peaks:
-        allowed = subtract(allowed, peak_limit_forbidden(contour, shift, radius))
+        allowed = subtract(allowed, peak_limit_forbidden(contour, shift, radius, allowed))
     return allowed
 
 
