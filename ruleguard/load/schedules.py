@@ -140,8 +140,9 @@ def read_rows(
             if not found:
                 raise document.error(
                     row_path,
-                    f"schedule row {index + 1} has no '{key}' ({field_name}); every row of "
-                    "the schedule must give the same fields as the first",
+                    f"schedule row {index + 1} has no '{key}'"
+                    + (f" ({field_name})" if key != field_name else "")
+                    + "; every row of the schedule must give the same fields as the first",
                 )
             number = _number(document, raw, row_path + rel, f"schedule {field_name}")
             values[field_name] = number if scale is None else number * float(scale)
