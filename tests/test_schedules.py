@@ -330,3 +330,59 @@ def test_midpoints_can_be_turned_off(tmp_path):
     ids = [v["id"] for v in report["loops"][0]["variants"]]
     assert ids == ["nominal", "schedule-1", "schedule-2", "schedule-3"]
     assert report["summary"]["evaluations"] == 4
+
+
+# ------------------------------------------------------------------ the demo's scheduled loop
+DEMO = Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+
+
+def demo_hand_files() -> dict[str, str]:
+    """The demo's window heater, one loop per breakpoint and midpoint, written out by hand.
+
+    The window plant's law k0/(1 + wind/8), tau0/(1 + wind/8) and the PLC's
+    per-scan integral gain (x 2 to per second) are applied here in Python
+    from the demo files' numbers; the loops carry plain numbers only.
+    """
+    table = json.loads((DEMO / "plc" / "window_heater.json").read_text())["pi"]["wind_table"]
+    rows = [(r["wind_mps"], r["P"], 2.0 * r["I_per_scan"]) for r in table]
+    points = []
+    for i, (wind, kp, ki) in enumerate(rows):
+        points.append((str(i + 1), wind, kp, ki))
+        if i + 1 < len(rows):
+            w2, kp2, ki2 = rows[i + 1]
+            points.append((f"{i + 1}.5", (wind + w2) / 2, (kp + kp2) / 2, (ki + ki2) / 2))
+    manifest = '[project]\nname = "window-by-hand"\nplants = ["plants.toml"]\n'
+    plants, firmware = "", ""
+    for label, wind, kp, ki in points:
+        tag = label.replace(".", "_")
+        slow = 1.0 + wind / 8.0
+        manifest += (
+            f'\n[[loops]]\nname = "w{tag}"\nplant = "window{tag}"\n'
+            f'controller = {{ file = "fw.toml", path = "p{tag}" }}\n'
+            "sample_rate_hz = 2.0\ndelay_samples = 1.0\n"
+        )
+        plants += (
+            f'[plants.window{tag}]\nkind = "first_order_dead_time"\n'
+            f'gain = "k0 / {slow!r}"\ntime_constant_s = {40.0 / slow!r}\ndelay_s = 3.0\n'
+            "parameters = { k0 = 0.5 }\nvary = { k0 = { min = 0.4, max = 0.6 } }\n\n"
+        )
+        firmware += f'[p{tag}]\nkind = "pid"\nkp = {kp!r}\nki = {ki!r}\n\n'
+    return {"ruleguard.toml": manifest, "plants.toml": plants, "fw.toml": firmware}, points
+
+
+def test_demo_window_heater_matches_the_loops_written_by_hand(tmp_path):
+    demo = run(DEMO / "ruleguard.toml")
+    window = next(loop for loop in demo["loops"] if loop["name"] == "window.heater")
+    scheduled = {v["id"]: v for v in window["variants"]}
+    files, points = demo_hand_files()
+    hand = {loop["name"]: {v["id"]: v for v in loop["variants"]}
+            for loop in run(write(tmp_path, files))["loops"]}
+    assert len(points) == 7  # 4 rows, 3 midpoints
+    for label, wind, _, _ in points:
+        by_hand = hand[f"w{label.replace('.', '_')}"]
+        for member in ("nominal", "corner-1", "corner-2"):
+            vid = f"schedule-{label}" + ("" if member == "nominal" else f"/{member}")
+            assert scheduled[vid]["parameters"]["window_thermal.wind_mps"] == wind
+            assert_same_margins(scheduled[vid], by_hand[member], vid)
+    # the demo's window heater passes every rule at every point (deliberately)
+    assert not [f for f in demo["findings"] if f["loop"] == "window.heater"]
