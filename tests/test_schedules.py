@@ -386,3 +386,13 @@ def test_demo_window_heater_matches_the_loops_written_by_hand(tmp_path):
             assert_same_margins(scheduled[vid], by_hand[member], vid)
     # the demo's window heater passes every rule at every point (deliberately)
     assert not [f for f in demo["findings"] if f["loop"] == "window.heater"]
+
+
+def test_bounds_are_checked_at_every_breakpoint(tmp_path):
+    # bounds kp in [0.5, 2.5]: breakpoint 3 (kp 3.0) is the one outside, by 0.5
+    files = integrating_files([(0.0, 1.0), (10.0, 0.4), (20.0, 3.0)], (0.0, 20.0))
+    files["ruleguard.toml"] += "bounds = { kp = [0.5, 2.5] }\n"
+    report = run(write(tmp_path, files))
+    found = [f for f in report["findings"] if f["rule"] == "config.bounds"]
+    assert [(f["measured"], f["limit"]) for f in found] == [(3.0, 2.5)]
+    assert found[0]["location"]["key"] == "yaw.schedule.2.kp"
