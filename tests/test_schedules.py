@@ -396,3 +396,25 @@ def test_bounds_are_checked_at_every_breakpoint(tmp_path):
     found = [f for f in report["findings"] if f["rule"] == "config.bounds"]
     assert [(f["measured"], f["limit"]) for f in found] == [(3.0, 2.5)]
     assert found[0]["location"]["key"] == "yaw.schedule.2.kp"
+
+
+def test_interpolation_is_linear_between_rows_and_held_outside():
+    # linear interpolation (closed form): kp(v) = kp1 + (v - v1)/(v2 - v1) (kp2 - kp1);
+    # outside the table the end row's value (what firmware clamping its index does)
+    from ruleguard.load.spec import Schedule, SchedulePoint
+    from ruleguard.location import Location
+    from ruleguard.models.schedules import interpolate, nominal_point
+
+    here = Location("fw.toml", 1, 1, "x")
+    points = tuple(
+        SchedulePoint(i + 1, v, {"kp": kp}, Location("fw.toml", 10 * (i + 1), 1, f"r{i}"),
+                      here, {"kp": here})
+        for i, (v, kp) in enumerate([(0.0, 2.0), (10.0, 1.0), (30.0, 3.0)]))
+    schedule = Schedule("speed_mps", "speed_mps", "rows", ("kp",), points, here, here, here)
+    assert interpolate(schedule, 2.5)[0]["kp"] == pytest.approx(2.0 - 0.25)
+    assert interpolate(schedule, 25.0)[0]["kp"] == pytest.approx(1.0 + 0.75 * 2.0)
+    assert interpolate(schedule, -5.0)[0]["kp"] == 2.0
+    assert interpolate(schedule, 40.0)[0]["kp"] == 3.0
+    nominal = nominal_point(schedule, 25.0)
+    assert nominal.location.line == 20  # the lower row of its interval
+    assert [r.line for r in nominal.related] == [30]
