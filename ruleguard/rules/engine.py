@@ -33,6 +33,7 @@ from ruleguard.location import Location
 from ruleguard.rules.base import Finding, LoopContext, Severity, Violation
 from ruleguard.rules.catalog import RULES, UnknownRule, check_patterns, is_selected, matches
 from ruleguard.rules.hints import HINTED_RULES, LoopHints
+from ruleguard.rules.locations import at_operating_point
 from ruleguard.rules.spec import Adjustment, ParameterValues, Ruleset, RuleSetting, Waiver
 
 CLOSED_LOOP = "stability.closed-loop"
@@ -299,6 +300,7 @@ def iter_findings(
                     if hints is None:
                         hints = LoopHints(ctx)
                     violation = _with_hint(hints, rule_id, violation)
+                violation = at_operating_point(ctx, violation)
                 waiver = next((w for w in active if waiver_applies(w, rule_id, name)), None)
                 if waiver is not None:
                     hits[id(waiver)] += 1
