@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from ruleguard.errors import InputError
-from ruleguard.load.sources import Document, KeyPath, format_key, read_document
+from ruleguard.load.sources import Document, KeyPath, Unreadable, format_key, read_firmware
 from ruleguard.load.spec import ControllerEntry, FilterEntry
 from ruleguard.load.validation import number_problem, show_value, suggestion, validate
 from ruleguard.location import Location
@@ -79,6 +79,8 @@ def resolve_path(
     if path.strip() == "":
         return node, walked
     for part in path.split("."):
+        if isinstance(node, Unreadable):
+            raise node.error()
         if isinstance(node, dict):
             if part not in node:
                 keys = [k for k in node if isinstance(k, str)]
@@ -107,7 +109,18 @@ def resolve_path(
                 f"{what}: '{format_key(walked)}' in {document.file} is a value, not a table; "
                 f"cannot go on to '{part}'",
             )
+    if isinstance(node, Unreadable):
+        raise node.error()
     return node, walked[len(base):]
+
+
+def _document_key(binding: Mapping[str, Any]) -> str:
+    """Cache key of a firmware document: its file, and how the binding reads it."""
+    file = binding["file"]
+    if binding.get("format") is None and binding.get("macros") is None:
+        return file
+    macros = sorted((binding.get("macros") or {}).items())
+    return f"{file}\x00{binding.get('format')}\x00{macros}"
 
 
 def load_controller(
@@ -140,10 +153,13 @@ def load_controller(
         return manifest.locate(binding_path + keys)
 
     file = binding["file"]
-    document = documents.get(file)
+    cache_key = _document_key(binding)
+    document = documents.get(cache_key)
     if document is None:
-        document = read_document(root, file, manifest_at("file"))
-        documents[file] = document
+        document = read_firmware(
+            root, file, manifest_at("file"), binding.get("format"), binding.get("macros")
+        )
+        documents[cache_key] = document
         texts[document.file] = document.text
     path = binding.get("path", "")
     table, table_path = resolve_path(
@@ -267,6 +283,8 @@ def load_controller(
 
 
 def _check_finite(document: Document, value: Any, path: KeyPath) -> None:
+    if isinstance(value, Unreadable):
+        raise value.error()
     problem = number_problem(value)
     if problem:
         raise document.error(path, problem)
