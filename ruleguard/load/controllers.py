@@ -123,6 +123,10 @@ def _document_key(binding: Mapping[str, Any]) -> str:
     return f"{file}\x00{binding.get('format')}\x00{macros}"
 
 
+#: Firmware formats whose input errors carry a source excerpt.
+EXCERPT_FORMATS = ("c", "yaml", "keyvalue")
+
+
 def load_controller(
     root: str | Path,
     binding: Mapping[str, Any],
@@ -147,8 +151,27 @@ def load_controller(
         Cache of firmware documents already read, by the name as written.
     texts:
         Collects the text of each file read.
-    """
 
+    Errors located in a C, YAML or key-value file carry an excerpt of the
+    offending line (:attr:`InputError.excerpt`).
+    """
+    try:
+        return _load_controller(root, binding, binding_path, manifest, documents, texts)
+    except InputError as exc:
+        document = documents.get(_document_key(binding))
+        if document is not None and document.fmt in EXCERPT_FORMATS and exc.file == document.file:
+            exc.with_excerpt(document.text)
+        raise
+
+
+def _load_controller(
+    root: str | Path,
+    binding: Mapping[str, Any],
+    binding_path: KeyPath,
+    manifest: Document,
+    documents: dict[str, Document],
+    texts: dict[str, str],
+) -> ControllerEntry:
     def manifest_at(*keys: str | int) -> Location:
         return manifest.locate(binding_path + keys)
 

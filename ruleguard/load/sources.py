@@ -464,14 +464,17 @@ def read_firmware(
     name, text = read_text(root, rel_path, origin, MAX_FILE_BYTES)
     if fmt in ("toml", "json"):
         return parse_text(name, text, fmt)
-    if fmt == "c":
-        from ruleguard.load.c_source import parse_c
+    try:
+        if fmt == "c":
+            from ruleguard.load.c_source import parse_c
 
-        return parse_c(name, text, macros)
-    if fmt == "yaml":
-        from ruleguard.load.yaml_source import parse_yaml
+            return parse_c(name, text, macros)
+        if fmt == "yaml":
+            from ruleguard.load.yaml_source import parse_yaml
 
-        return parse_yaml(name, text)
-    from ruleguard.load.keyvalue_source import parse_keyvalue
+            return parse_yaml(name, text)
+        from ruleguard.load.keyvalue_source import parse_keyvalue
 
-    return parse_keyvalue(name, text)
+        return parse_keyvalue(name, text)
+    except InputError as exc:
+        raise exc.with_excerpt(text) from None
