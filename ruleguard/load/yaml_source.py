@@ -77,6 +77,11 @@ def parse_yaml(name: str, text: str) -> Document:
         mark = exc.problem_mark or exc.context_mark
         line, column = (mark.line + 1, mark.column + 1) if mark is not None else (None, None)
         problem = exc.problem or exc.context or "not YAML"
+        opened = re.match(r"while parsing a flow (sequence|mapping)", exc.context or "")
+        if exc.problem and opened and exc.context_mark is not None:
+            what = "list" if opened.group(1) == "sequence" else "map"
+            problem += (f" (the {what} opened at line {exc.context_mark.line + 1}, column "
+                        f"{exc.context_mark.column + 1})")
         if problem.startswith("but found another document"):
             raise InputError(
                 name, line, column, "",
