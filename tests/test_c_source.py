@@ -119,7 +119,7 @@ def test_values_agree_with_a_c_compiler(tmp_path):
     printed = subprocess.run([str(tmp_path / "main")], check=True, capture_output=True,
                              text=True).stdout.split()
     data = parse_c("values.h", header).data
-    for name, value in zip(names, printed):
+    for name, value in zip(names, printed, strict=True):
         assert float(data[name]) == float(value), (name, names[name])
 
 

@@ -94,8 +94,10 @@ def test_findings_point_at_the_literal_in_the_header(demo):
     kp_column = lines[kp_line - 1].index("9500.0f") + 1
     located = {(f.location.file, f.location.line, f.location.column, f.location.key)
                for f in report.findings if f.loop == "pan.position"}
-    assert located and all(loc[0] == "firmware/pan_position.h" for loc in located)
-    assert all(loc[1] is not None and loc[2] is not None for loc in located)
+    # findings about the controller as a whole stand at the struct's name
+    name_line = next(i for i, line in enumerate(lines, start=1) if "pan_position_gains =" in line)
+    name_column = lines[name_line - 1].index("pan_position_gains") + 1
+    assert ("firmware/pan_position.h", name_line, name_column, "pan_position_gains") in located
     entry = next(s for s in load_project(demo / "ruleguard.toml").loops
                  if s.name == "pan.position")
     kp = entry.controller.field_locations["kp"]
