@@ -211,3 +211,19 @@ def test_deep_nesting_is_an_error_not_a_crash():
         value, depth = value[0], depth + 1
     assert isinstance(value, Unreadable) and "nested too deeply" in value.message
     assert depth == 64
+
+
+C_CHARACTERS = list("#define if else endif  {}()[];,=.*/+-0123456789xXeEfFuUlL_abAB\"'\\\n\t")
+
+
+@given(st.text(alphabet=st.sampled_from(C_CHARACTERS), max_size=300))
+@settings(max_examples=300, deadline=None)
+def test_any_text_gives_values_or_an_input_error(text):
+    try:
+        document = parse_c("x.h", text)
+    except InputError as exc:
+        assert exc.message and (exc.line is None or exc.line >= 1)
+        return
+    assert isinstance(document.data, dict)
+    for path, (line, column) in document.source_map.items():
+        assert line >= 1 and column >= 1, path

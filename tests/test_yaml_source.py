@@ -9,6 +9,8 @@ type (yaml.org/type/merge.html).
 from __future__ import annotations
 
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from ruleguard.errors import InputError
 from ruleguard.load.yaml_source import parse_yaml
@@ -105,3 +107,18 @@ def test_nothing_is_constructed(tmp_path, monkeypatch):
     with pytest.raises(InputError):
         parse_yaml("x.yaml", "a: !!python/object/apply:os.system ['touch pwned']\n")
     assert not (tmp_path / "pwned").exists()
+
+
+YAML_CHARACTERS = list("ab: -[]{},&*!<>|'\"#~\n\t 0123.e%?@`")
+
+
+@given(st.text(alphabet=st.sampled_from(YAML_CHARACTERS), max_size=200))
+@settings(max_examples=300, deadline=None)
+def test_any_text_gives_values_or_an_input_error(text):
+    try:
+        document = parse_yaml("x.yaml", text)
+    except InputError as exc:
+        assert exc.message and (exc.line is None or exc.line >= 1)
+        return
+    for path, (line, column) in document.source_map.items():
+        assert line >= 1 and column >= 1, path
