@@ -158,6 +158,15 @@ def test_branch_chosen_by_the_binding():
     assert parse_c("f.h", text, {"USE_FAST_LOOP": 1}).data["CUR_KD"] == 0.1
 
 
+def test_a_name_also_defined_in_an_undecided_block_stays_unreadable():
+    for text in ("#if X\n#define A 1\n#endif\n#define A 2\n",
+                 "#define A 2\n#if X\n#define A 1\n#endif\n"):
+        value = parse_c("a.h", text).data["A"]
+        assert isinstance(value, Unreadable) and "defined inside '#if X'" in value.message
+    assert parse_c("a.h", "#if X\n#define A 1\n#endif\n#define B 2\n", {"X": 0}).data == {
+        "B": 2}
+
+
 def test_comments_and_cplusplus_wrapper_are_read_through():
     text = ('#ifndef G_H\n#define G_H\n#ifdef __cplusplus\nextern "C" {\n#endif\n'
             "/* #define CUR_KP 9.0f */\n// #define CUR_KI 9.0f\n#define CUR_KP 1.5f /* x */\n"

@@ -227,19 +227,21 @@ class _Reader:
                 "choose the branch with macros = { NAME = value, ... } in the controller binding",
             )
         if name in self.data:
-            if isinstance(self.data[name], Unreadable) and undecided is not None:
-                return
-            if undecided is None and not (
-                isinstance(self.data[name], Unreadable) and "is defined inside" in
-                self.data[name].message
+            existing = self.data[name]
+            if undecided is not None or (
+                isinstance(existing, Unreadable) and "is defined inside" in existing.message
             ):
-                first = self.lines[name]
-                loc = self.location(offset, (name,))
-                raise InputError.at(
-                    loc,
-                    f"'{name}' is defined twice (line {first} and line {loc.line}); "
-                    "ruleguard takes one value per name",
-                )
+                # a definition in an undecided block: whether the name is
+                # redefined is not known, so it stays unreadable
+                self.data[name] = existing if isinstance(existing, Unreadable) else value
+                return
+            first = self.lines[name]
+            loc = self.location(offset, (name,))
+            raise InputError.at(
+                loc,
+                f"'{name}' is defined twice (line {first} and line {loc.line}); "
+                "ruleguard takes one value per name",
+            )
         self.data[name] = value
         self.lines[name] = line
         self.positions.setdefault((name,), self.point(offset))
