@@ -142,15 +142,16 @@ def test_changed_header_selects_its_loop(demo):
 
 def test_cache_is_invalidated_by_a_header_change(demo):
     options = CheckOptions(today=AS_OF, use_cache=True)
-    check_project(demo / "ruleguard.toml", options, statistics=RunStatistics())
+    loops = len(check_project(demo / "ruleguard.toml", options,
+                              statistics=RunStatistics()).loops)
     stats = RunStatistics()
     check_project(demo / "ruleguard.toml", options, statistics=stats)
-    assert stats.analysed_loops == 0 and stats.cached_loops == 7
+    assert stats.analysed_loops == 0 and stats.cached_loops == loops
     header = demo / "firmware" / "pan_position.h"
     header.write_text(header.read_text().replace(".kp = 95.0f", ".kp = 90.0f"))
     stats = RunStatistics()
     check_project(demo / "ruleguard.toml", options, statistics=stats)
-    assert stats.analysed_loops == 1 and stats.cached_loops == 6
+    assert stats.analysed_loops == 1 and stats.cached_loops == loops - 1
     # a comment is a change of the bytes too: the cache keys by input bytes
     header.write_text(header.read_text() + "/* reviewed */\n")
     stats = RunStatistics()
