@@ -172,6 +172,27 @@ def run_ruleguard(manifest: Path) -> tuple[int, dict]:
     return code, json.loads(out.getvalue())
 
 
+def stage_times(manifest: Path) -> dict[str, float]:
+    """Seconds per stage of the same check, run stage by stage (where the time goes)."""
+    from ruleguard.load.project import load_project
+    from ruleguard.load.rulesets import load_ruleset
+    from ruleguard.pipeline import analyse_loop
+    from ruleguard.rules.engine import evaluate
+
+    out = {}
+    start = time.perf_counter()
+    project = load_project(manifest)
+    ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+    out["load and validate inputs"] = time.perf_counter() - start
+    start = time.perf_counter()
+    contexts = [analyse_loop(project, spec).context for spec in project.loops]
+    out["build models, analyse"] = time.perf_counter() - start
+    start = time.perf_counter()
+    evaluate(contexts, ruleset)
+    out["evaluate rules"] = time.perf_counter() - start
+    return out
+
+
 def timed(fn, *args, **kwargs):
     start = time.perf_counter()
     value = fn(*args, **kwargs)
@@ -221,6 +242,12 @@ def main() -> None:
         print(f"  ruleguard check        {t_rg:7.2f} s  {n / t_rg:8.1f} loops/s  "
               f"{1e3 * t_rg / n:7.2f} ms/loop")
         print(f"  ratio (ruleguard loops/s over naive loops/s): {t_naive / t_rg:6.2f}")
+        stages = stage_times(manifest)
+        print("ruleguard stages, run one by one (ms/loop):")
+        for name, seconds in stages.items():
+            print(f"  {name:<28} {1e3 * seconds / n:7.2f}")
+        rest = t_rg - sum(stages.values())
+        print(f"  {'rest (report, ordering)':<28} {1e3 * rest / n:7.2f}")
 
         if not args.no_subprocess:
             py = sys.executable
