@@ -16,8 +16,11 @@ controller discretized by Tustin), then runs in one process run:
 
 Both are warmed up first on a one-loop project (imports paid), so the first
 ratio compares work per loop. The end-to-end ratio runs both as fresh
-processes (start-up included). The last lines compare the phase margins the
-two give (the grid's error is the price of its speed).
+processes (start-up included). The last line compares the phase margins the
+two give: the grid script's error (its companion-form realization from
+``zpk2ss``, polynomial coefficients from ``ss2tf`` and a finite grid) is the
+price of its speed; ruleguard's ZOH of these plants agrees with a 50-digit
+modal computation to about 1e-12 (tests/test_modal_hold.py).
 """
 
 from __future__ import annotations
