@@ -272,11 +272,13 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
     Returns ``(value, w)``. The largest grid maxima (those above a fifth of
     the grid's largest value: between samples ``|1 + L|`` changes by less than
     a factor 5, see ``SampledContour.refine_for_point``) are refined on the
-    exact response between their neighbours: all of them at once by a
-    vectorized zoom search (:func:`_peak_zoom`), or, when ``fun_scalar`` (the
-    same function of a complex scalar) is given, one by one by Brent's
-    localmin on the scalar response.
+    exact response between their neighbours; ``fun_scalar`` is the same
+    function of a complex scalar.
     """
+    if fun_scalar is None:
+        def fun_scalar(L):
+            return float(fun_vec(np.array([L]))[0])
+
     found = []
     for bi, br in enumerate(contour.branches):
         v = fun_vec(br.L)
@@ -291,7 +293,7 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
     found.sort(reverse=True)
     top = found[0][0]
     chosen = [f for f in found[:candidates] if f[0] >= 0.2 * top]
-    if contour.open_loop.factors or fun_scalar is None:
+    if contour.open_loop.factors:
         return _peak_zoom(contour, fun_vec, chosen)
     best, best_w = -math.inf, math.nan
     for val, bi, i in chosen:

@@ -332,9 +332,7 @@ _SCALAR = {_abs_s: _s_scalar, _abs_t: _t_scalar, _abs_s_half: _s_half_scalar}
 
 def _extreme(contour: SampledContour, fun, limit_at_arcs: float) -> tuple[float, float]:
     """Peak of ``fun(L)`` over the frequency axis, arcs' limits included."""
-    # all candidate peaks refined together (vectorized zoom): fewer Python-level
-    # calls than a scalar Brent search per candidate, same tolerance or tighter
-    val, w = peak(contour, fun)
+    val, w = peak(contour, fun, _SCALAR[fun])
     for ind in contour.indentations:
         if ind.order > 0 and limit_at_arcs > val:
             val, w = limit_at_arcs, ind.w0
