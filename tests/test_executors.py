@@ -31,7 +31,8 @@ def sampled_demo(tmp_path):
     manifest = folder / "ruleguard.toml"
     text = manifest.read_text()
     assert 'variants = "corners"' in text
-    manifest.write_text(text.replace('variants = "corners"', "variants = { samples = 60, seed = 3 }"))
+    sampled = "variants = { samples = 60, seed = 3 }"
+    manifest.write_text(text.replace('variants = "corners"', sampled))
     return manifest
 
 
