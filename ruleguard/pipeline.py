@@ -276,6 +276,7 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
         count += len(variants)
     if not specs:
         return
+    rounding = _rounding_rule_selected(options)
     if executor is None:
         executor = make_executor(
             project, options.executor, max(1, options.jobs), count, options.cluster_address
@@ -289,7 +290,8 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
             for spec, variants, _ in families:
                 if variants:
                     yield from split_variants(
-                        spec.name, variants, size, deadline, options.time_budget_s
+                        spec.name, variants, size, deadline, options.time_budget_s,
+                        prepare_rounding=rounding,
                     )
 
         stream = ChunkStream(executor, chunks())
@@ -305,6 +307,14 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
                                                                len(variants)))
     finally:
         executor.close()
+
+
+def _rounding_rule_selected(options: CheckOptions) -> bool:
+    """Whether the workers round coefficients ahead for ``quantization.robust``
+    (selected by --only/--skip; a ruleset that disables it only wastes that work)."""
+    from ruleguard.rules.catalog import selected_rules
+
+    return "quantization.robust" in selected_rules(options.only, options.skip)
 
 
 def _loop_outcomes(outcomes, stream, spec, count: int):
@@ -341,7 +351,9 @@ def _assemble_loop(project, spec, outcomes) -> AnalysedLoop:
         if outcome.inner_analysis is not None:
             inner_evaluations.append(Evaluation(outcome.variant, model.inner,
                                                 outcome.inner_analysis))
-        evaluations.append(Evaluation(outcome.variant, model, outcome.analysis))
+        evaluations.append(
+            Evaluation(outcome.variant, model, outcome.analysis, dict(outcome.prepared))
+        )
     if stop is not None and stop.input_error:
         raise InputError.at(stop.location, stop.reason)
     reason = None if stop is None else stop.reason

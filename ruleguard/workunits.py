@@ -20,7 +20,7 @@ from __future__ import annotations
 import math
 import time
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 from ruleguard.errors import InputError, LoopNotAnalysable, NumericalWarning
 from ruleguard.location import Location
@@ -59,6 +59,9 @@ class VariantChunk:
     variants: tuple
     deadline_epoch_s: float | None = None
     budget_s: float | None = None
+    #: Round the coefficients to the controller's ``numeric_format`` and
+    #: analyse that loop too (for rule ``quantization.robust``).
+    prepare_rounding: bool = False
 
 
 @dataclass(frozen=True)
@@ -97,6 +100,10 @@ class VariantOutcome:
         variant, in order.
     stop:
         Set when this variant stops the loop.
+    prepared:
+        Work done ahead for rules (:data:`ROUNDED`: ``(rounded model,
+        QuantizationReport, analysis of the rounded loop)``, or the text of
+        the ``ValueError`` that made rounding impossible).
     """
 
     variant: object
@@ -105,6 +112,14 @@ class VariantOutcome:
     inner_analysis: object | None = None
     numerical_notes: tuple[str, ...] = ()
     stop: LoopStop | None = None
+    prepared: dict = field(default_factory=dict)
+
+
+#: Key of the rounded loop in ``VariantOutcome.prepared`` / ``Evaluation.prepared``.
+ROUNDED = "quantization.rounded"
+
+#: Numeric formats with nothing to round.
+EXACT_FORMATS = ("float64", "", None)
 
 
 def chunk_size(variant_count: int, workers: int) -> int:
@@ -119,10 +134,14 @@ def split_variants(
     size: int,
     deadline_epoch_s: float | None = None,
     budget_s: float | None = None,
+    *,
+    prepare_rounding: bool = False,
 ) -> tuple[VariantChunk, ...]:
     """``variants`` cut into chunks of at most ``size``, in order."""
     return tuple(
-        VariantChunk(loop, i, tuple(variants[i:i + size]), deadline_epoch_s, budget_s)
+        VariantChunk(
+            loop, i, tuple(variants[i:i + size]), deadline_epoch_s, budget_s, prepare_rounding
+        )
         for i in range(0, len(variants), max(1, size))
     )
 
@@ -156,15 +175,20 @@ def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
             )
             out.append(VariantOutcome(variant, None, None, stop=stop))
             break
-        outcome = analyse_variant(project, spec, variant)
+        outcome = analyse_variant(project, spec, variant, chunk.prepare_rounding)
         out.append(outcome)
         if outcome.stop is not None:
             break
     return tuple(out)
 
 
-def analyse_variant(project, spec, variant) -> VariantOutcome:
-    """Build one variant, check its inner loops, analyse it (see :func:`analyse_chunk`)."""
+def analyse_variant(project, spec, variant, prepare_rounding: bool = False) -> VariantOutcome:
+    """Build one variant, check its inner loops, analyse it (see :func:`analyse_chunk`).
+
+    With ``prepare_rounding`` the loop with rounded coefficients is built and
+    analysed as well (its numerical warnings are not notes of the variant,
+    as when the rule computes it itself).
+    """
     import numpy as np
 
     with warnings.catch_warnings(record=True) as caught:
@@ -183,7 +207,33 @@ def analyse_variant(project, spec, variant) -> VariantOutcome:
     notes = tuple(
         f"numerical: {w.message}" for w in caught if issubclass(w.category, NumericalWarning)
     )
-    return VariantOutcome(variant, model, analysis, inner_analysis, notes, stop)
+    prepared = {}
+    if prepare_rounding and stop is None and wants_rounding(spec):
+        prepared[ROUNDED] = rounded_loop(model, str(spec.controller.fields["numeric_format"]))
+    return VariantOutcome(variant, model, analysis, inner_analysis, notes, stop, prepared)
+
+
+def wants_rounding(spec) -> bool:
+    """A sampled loop whose controller declares a format other than float64."""
+    value = spec.controller.fields.get("numeric_format")
+    return spec.sample_rate_hz is not None and (
+        None if value is None else str(value)
+    ) not in EXACT_FORMATS
+
+
+def rounded_loop(model, numeric_format: str):
+    """``(rounded model, report, analysis)``, or the text of the ValueError of
+    a loop whose controller path cannot be split (rule ``quantization.robust``)."""
+    from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.models.quantize import quantized_model
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            q_model, report = quantized_model(model, numeric_format)
+        except ValueError as exc:
+            return str(exc)
+        return q_model, report, analyse_open_loop(q_model.open_loop)
 
 
 def _variant_analysis(project, spec, variant):
