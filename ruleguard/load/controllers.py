@@ -32,7 +32,7 @@ from ruleguard.load.schedules import (
     read_rows,
     row_fields,
 )
-from ruleguard.load.sources import Document, KeyPath, format_key, read_document
+from ruleguard.load.sources import Document, KeyPath, Unreadable, format_key, read_firmware
 from ruleguard.load.spec import ControllerEntry, FilterEntry
 from ruleguard.load.validation import number_problem, show_value, suggestion, validate
 from ruleguard.location import Location
@@ -87,6 +87,8 @@ def resolve_path(
     if path.strip() == "":
         return node, walked
     for part in path.split("."):
+        if isinstance(node, Unreadable):
+            raise node.error()
         if isinstance(node, dict):
             if part not in node:
                 keys = [k for k in node if isinstance(k, str)]
@@ -115,7 +117,22 @@ def resolve_path(
                 f"{what}: '{format_key(walked)}' in {document.file} is a value, not a table; "
                 f"cannot go on to '{part}'",
             )
+    if isinstance(node, Unreadable):
+        raise node.error()
     return node, walked[len(base):]
+
+
+def _document_key(binding: Mapping[str, Any]) -> str:
+    """Cache key of a firmware document: its file, and how the binding reads it."""
+    file = binding["file"]
+    if binding.get("format") is None and binding.get("macros") is None:
+        return file
+    macros = sorted((binding.get("macros") or {}).items())
+    return f"{file}\x00{binding.get('format')}\x00{macros}"
+
+
+#: Firmware formats whose input errors carry a source excerpt.
+EXCERPT_FORMATS = ("c", "yaml", "keyvalue")
 
 
 def load_controller(
@@ -142,16 +159,38 @@ def load_controller(
         Cache of firmware documents already read, by the name as written.
     texts:
         Collects the text of each file read.
-    """
 
+    Errors located in a C, YAML or key-value file carry an excerpt of the
+    offending line (:attr:`InputError.excerpt`).
+    """
+    try:
+        return _load_controller(root, binding, binding_path, manifest, documents, texts)
+    except InputError as exc:
+        document = documents.get(_document_key(binding))
+        if document is not None and document.fmt in EXCERPT_FORMATS and exc.file == document.file:
+            exc.with_excerpt(document.text)
+        raise
+
+
+def _load_controller(
+    root: str | Path,
+    binding: Mapping[str, Any],
+    binding_path: KeyPath,
+    manifest: Document,
+    documents: dict[str, Document],
+    texts: dict[str, str],
+) -> ControllerEntry:
     def manifest_at(*keys: str | int) -> Location:
         return manifest.locate(binding_path + keys)
 
     file = binding["file"]
-    document = documents.get(file)
+    cache_key = _document_key(binding)
+    document = documents.get(cache_key)
     if document is None:
-        document = read_document(root, file, manifest_at("file"))
-        documents[file] = document
+        document = read_firmware(
+            root, file, manifest_at("file"), binding.get("format"), binding.get("macros")
+        )
+        documents[cache_key] = document
         texts[document.file] = document.text
     path = binding.get("path", "")
     table, table_path = resolve_path(
@@ -363,6 +402,8 @@ def _read_schedule(spec, manifest_at, document, kind, table, table_path, canonic
 
 
 def _check_finite(document: Document, value: Any, path: KeyPath) -> None:
+    if isinstance(value, Unreadable):
+        raise value.error()
     problem = number_problem(value)
     if problem:
         raise document.error(path, problem)
