@@ -77,6 +77,24 @@ def _build_parser() -> _Parser:
         help="wall-clock budget of the check; loops not reached are reported as not analysed",
     )
     check.add_argument(
+        "--jobs",
+        type=int,
+        default=None,
+        metavar="N",
+        help="workers for the variants (default: the number of cores; docs/scaling.md)",
+    )
+    check.add_argument(
+        "--executor",
+        choices=("local", "dask"),
+        default="local",
+        help="local: this machine; dask: a Dask cluster (extra 'cluster')",
+    )
+    check.add_argument(
+        "--cluster-address",
+        metavar="ADDRESS",
+        help="scheduler of --executor dask (default: a local cluster of --jobs workers)",
+    )
+    check.add_argument(
         "--as-of",
         metavar="YYYY-MM-DD",
         help="evaluate waiver expiry as of this date (default: today, UTC)",
@@ -210,6 +228,9 @@ def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
         use_cache=not args.no_cache,
         time_budget_s=args.time_budget if args.time_budget > 0 else None,
         want_curves=args.output_format == "html",
+        jobs=_jobs(args.jobs),
+        executor=args.executor,
+        cluster_address=args.cluster_address,
     )
     manifest = _manifest_path(args.manifest, tuple(args.files))
     progress = _progress_for(stderr, quiet=args.quiet or args.output_format != "text")
@@ -225,6 +246,16 @@ def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
     else:
         stdout.write(_render(report, args.output_format, stream=stdout, quiet=args.quiet))
     return EXIT_FINDINGS if report.failed else EXIT_CLEAN
+
+
+def _jobs(given: int | None) -> int:
+    from ruleguard.executors import default_jobs
+
+    if given is None:
+        return default_jobs()
+    if given < 1:
+        raise InputError("<command line>", None, None, "--jobs", f"need N >= 1, got {given}")
+    return given
 
 
 def _refuse_input_overwrite(out_path: Path, report) -> None:

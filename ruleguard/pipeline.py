@@ -9,13 +9,12 @@ from __future__ import annotations
 
 import datetime as _dt
 import time
-import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from ruleguard import __version__
-from ruleguard.errors import LoopNotAnalysable, NumericalWarning
+from ruleguard.errors import InputError, LoopNotAnalysable
 from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
 
 #: Progress callback: (loops done, loops in all, name of the loop now).
@@ -40,6 +39,12 @@ class CheckOptions:
     #: analysed (and never cached), so hostile or oversized inputs cannot hang
     #: a hook or a CI job.
     time_budget_s: float | None = 600.0
+    #: Workers for the variants (``--jobs``); 1: this process only.
+    jobs: int = 1
+    #: ``"local"`` (this machine) or ``"dask"`` (``--executor``, docs/scaling.md).
+    executor: str = "local"
+    #: Scheduler address for ``executor="dask"`` (``None``: a local cluster).
+    cluster_address: str | None = None
 
 
 @dataclass(frozen=True, eq=False)
@@ -105,15 +110,14 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
 
     deadline = None
     if options.time_budget_s is not None:
-        deadline = time.monotonic() + options.time_budget_s
+        deadline = time.time() + options.time_budget_s
     loop_results: dict[str, object] = {}
     cached_findings: dict[str, tuple[Finding, ...]] = {}
     contexts: list[LoopContext] = []
     keys: dict[str, str] = {}
     built_models: dict[str, dict] = {}  # loop -> variant id -> LoopModel (for curves)
-    for i, spec in enumerate(specs):
-        if progress is not None:
-            progress(i, len(specs), spec.name)
+    to_analyse = []
+    for spec in specs:
         if cache is not None:
             key = cache.key_for(project, spec.name, ruleset_print, cache_options)
             keys[spec.name] = key
@@ -122,18 +126,24 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
                 loop_results[spec.name], cached_findings[spec.name] = hit
                 stats.cached_loops += 1
                 continue
-        analysed = analyse_loop(project, spec, deadline=deadline, budget_s=options.time_budget_s)
+        to_analyse.append(spec)
+    analysed_by_name = {}
+    for i, analysed in enumerate(
+        _analyse_loops(project, to_analyse, options, deadline, progress, len(specs))
+    ):
+        spec = to_analyse[i]
         analysed = without_unwanted_midpoints(analysed, ruleset)
+        analysed_by_name[spec.name] = analysed
         if not analysed.cacheable:
             keys.pop(spec.name, None)
         stats.analysed_loops += 1
         stats.evaluations += len(analysed.context.evaluations)
         loop_results[spec.name] = analysed.result
-        contexts.append(analysed.context)
         if options.want_curves:
             built_models[spec.name] = {
                 ev.variant.id: ev.model for ev in analysed.context.evaluations
             }
+    contexts = [analysed_by_name[s.name].context for s in specs if s.name in analysed_by_name]
     if progress is not None:
         progress(len(specs), len(specs), "")
 
@@ -253,28 +263,127 @@ def _selected_loops(project, options: CheckOptions) -> set[str]:
 def analyse_loop(
     project, spec, *, deadline: float | None = None, budget_s: float | None = None
 ) -> AnalysedLoop:
-    """Build and analyse every variant of one loop (pure but for the clock).
+    """Build and analyse every variant of one loop in this process (pure but for the clock).
 
-    ``deadline`` (a ``time.monotonic()`` value) stops the work between
-    variants. A numerical failure (overflow, a singular matrix) while
-    building or analysing a variant makes the loop "not analysed" with the
-    reason: the gate fails rather than passing an unverified loop.
+    ``deadline`` (a ``time.time()`` value) stops the work between variants.
+    A numerical failure (overflow, a singular matrix) while building or
+    analysing a variant makes the loop "not analysed" with the reason: the
+    gate fails rather than passing an unverified loop.
     """
+    from ruleguard.executors import InlineExecutor
+
+    options = CheckOptions(time_budget_s=budget_s)
+    found = _analyse_loops(project, [spec], options, deadline, None, 1, InlineExecutor(project))
+    return next(iter(found))
+
+
+def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, total,
+                   executor=None):
+    """Every loop of ``specs`` analysed (an iterator of AnalysedLoop, in order).
+
+    The variants of all loops are cut into chunks
+    (:mod:`ruleguard.workunits`) and run by the chosen executor
+    (:mod:`ruleguard.executors`); the outcomes come back in order, so the
+    result does not depend on the executor or the number of workers.
+    """
+    from ruleguard.executors import ChunkStream, make_executor
     from ruleguard.models.families import loop_variants
+    from ruleguard.workunits import chunk_size, split_variants
+
+    families: list[tuple] = []
+    count = 0
+    for spec in specs:
+        try:
+            variants = loop_variants(project, spec)
+        except InputError as exc:  # raised when its loop's turn comes, as in order
+            families.append((spec, None, exc))
+            continue
+        families.append((spec, variants, None))
+        count += len(variants)
+    if not specs:
+        return
+    rounding = _rounding_rule_selected(options)
+    if executor is None:
+        executor = make_executor(
+            project, options.executor, max(1, options.jobs), count, options.cluster_address
+        )
+    try:
+        size = max(
+            (chunk_size(len(v), executor.workers) for _, v, _ in families if v), default=1
+        )
+
+        def chunks():
+            for spec, variants, _ in families:
+                if variants:
+                    yield from split_variants(
+                        spec.name, variants, size, deadline, options.time_budget_s,
+                        prepare_rounding=rounding,
+                    )
+
+        stream = ChunkStream(executor, chunks())
+        outcomes = iter(stream)
+        done = total - len(specs)
+        for spec, variants, error in families:
+            if progress is not None:
+                progress(done, total, spec.name)
+            done += 1
+            if error is not None:
+                raise error
+            yield _assemble_loop(project, spec, _loop_outcomes(outcomes, stream, spec,
+                                                               len(variants)))
+    finally:
+        executor.close()
+
+
+def _rounding_rule_selected(options: CheckOptions) -> bool:
+    """Whether the workers round coefficients ahead for ``quantization.robust``
+    (selected by --only/--skip; a ruleset that disables it only wastes that work)."""
+    from ruleguard.rules.catalog import selected_rules
+
+    return "quantization.robust" in selected_rules(options.only, options.skip)
+
+
+def _loop_outcomes(outcomes, stream, spec, count: int):
+    """The outcomes of one loop's variants, in order, up to and including a stop."""
+    seen = 0
+    while seen < count:
+        chunk, found = next(outcomes)
+        if chunk.loop != spec.name:  # pragma: no cover - chunks come in loop order
+            raise RuntimeError("chunks out of order")
+        for outcome in found:
+            if outcome.stop is not None:
+                stream.stop_loop(spec.name)
+                yield outcome
+                return
+            yield outcome
+        seen += len(chunk.variants)
+
+
+def _assemble_loop(project, spec, outcomes) -> AnalysedLoop:
+    """One loop's AnalysedLoop from its variants' outcomes (read in order)."""
     from ruleguard.report.model import LoopResult, VariantResult
 
     domain = "discrete" if spec.sample_rate_hz else "continuous"
-    variants = loop_variants(project, spec)
     evaluations: list[Evaluation] = []
     inner_evaluations: list[Evaluation] = []
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        reason, reason_rule, reason_location, cacheable = _analyse_variants(
-            project, spec, variants, deadline, budget_s, evaluations, inner_evaluations
+    numerical_notes: list[str] = []
+    stop = None
+    for outcome in outcomes:
+        numerical_notes.extend(outcome.numerical_notes)
+        if outcome.stop is not None:
+            stop = outcome.stop
+            break
+        model = outcome.model
+        if outcome.inner_analysis is not None:
+            inner_evaluations.append(Evaluation(outcome.variant, model.inner,
+                                                outcome.inner_analysis))
+        evaluations.append(
+            Evaluation(outcome.variant, model, outcome.analysis, dict(outcome.prepared))
         )
-    numerical_notes = [
-        f"numerical: {w.message}" for w in caught if issubclass(w.category, NumericalWarning)
-    ]
+    if stop is not None and stop.input_error:
+        raise InputError.at(stop.location, stop.reason)
+    reason = None if stop is None else stop.reason
+    cacheable = True if stop is None else stop.cacheable
     if reason is not None:
         evaluations = []
 
@@ -321,8 +430,8 @@ def analyse_loop(
             tags=tuple(spec.tags),
         )
     extras = {}
-    if reason is not None:
-        extras = {"not_analysed_rule": reason_rule, "not_analysed_location": reason_location}
+    if stop is not None:
+        extras = {"not_analysed_rule": stop.rule, "not_analysed_location": stop.location}
     context = LoopContext(
         spec=spec,
         project=project,
@@ -332,77 +441,6 @@ def analyse_loop(
         extras=extras,
     )
     return AnalysedLoop(context, result, cacheable)
-
-
-def _analyse_variants(project, spec, variants, deadline, budget_s, evaluations, inner_evaluations):
-    """Fill ``evaluations`` (and ``inner_evaluations``) variant by variant.
-
-    Returns ``(reason, rule, location, cacheable)``: the reason the loop is
-    not analysed (``None`` when every variant was), the rule and location of
-    that finding, and whether the outcome may be cached.
-    """
-    import numpy as np
-
-    from ruleguard.analysis.margins import analyse_open_loop
-    from ruleguard.models.assemble import build_loop
-
-    try:
-        for variant in variants:
-            if deadline is not None and time.monotonic() > deadline:
-                return (
-                    f"the time budget of the whole check ({budget_s:g} s) was used up before "
-                    f"variant {variant.id} of this loop; raise it with --time-budget",
-                    "stability.closed-loop",
-                    spec.location,
-                    False,
-                )
-            try:
-                model, inner_reason, inner_analysis, analysis = _variant_analysis(
-                    project, spec, variant, build_loop, analyse_open_loop
-                )
-            except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
-                raise _numerical_failure(spec, variant, exc) from exc
-            if inner_analysis is not None:
-                inner_evaluations.append(Evaluation(variant, model.inner, inner_analysis))
-            if inner_reason is not None:
-                location = spec.field_locations.get("inner", spec.location)
-                return inner_reason, "stability.closed-loop", location, True
-            evaluations.append(Evaluation(variant, model, analysis))
-    except LoopNotAnalysable as exc:
-        return exc.reason, exc.rule, exc.location, True
-    return None, None, None, True
-
-
-def _variant_analysis(project, spec, variant, build_loop, analyse):
-    """Build one variant, check its inner loops, analyse it.
-
-    Returns ``(model, inner_reason, inner_analysis, analysis)``; ``analysis``
-    is None when an inner loop is unstable (``inner_reason`` says why).
-    """
-    model = build_loop(project, spec, variant)
-    inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse)
-    if inner_reason is not None:
-        return model, inner_reason, inner_analysis, None
-    if not model.open_loop.rational.is_proper:
-        raise LoopNotAnalysable(
-            "the open loop has more zeros than poles (improper): its frequency "
-            "response grows without bound and the Nyquist contour cannot be closed",
-            "stability.closed-loop",
-            spec.controller.location,
-        )
-    return model, None, inner_analysis, analyse(model.open_loop)
-
-
-def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:
-    which = "" if variant.id == "nominal" else f" (variant {variant.id})"
-    return LoopNotAnalysable(
-        f"numerical failure while building or analysing the loop{which}: {exc}. The loop "
-        "could not be verified; check the magnitudes of its gains and coefficients (values "
-        "this large or small overflow double precision). If they are physically sensible, "
-        "please report this as a ruleguard bug.",
-        "stability.closed-loop",
-        spec.controller.location,
-    )
 
 
 # ---------------------------------------------------------------- curves for plots
@@ -491,23 +529,3 @@ def sample_open_loop(open_loop, analysis, points: int = CURVE_POINTS):
     with np.errstate(all="ignore"):
         values = np.asarray(open_loop.response(w), dtype=complex)
     return tuple(float(x) for x in w / two_pi), tuple(complex(v) for v in values)
-
-
-def _inner_loop_problem(model, variant, analyse):
-    """Why the inner loops of a cascade make the outer loop unusable (or None),
-    and the analysis of the direct inner loop (None without one)."""
-    inner = model.inner
-    direct = None
-    while inner is not None:
-        analysis = analyse(inner.open_loop)
-        if direct is None:
-            direct = analysis
-        if not analysis.stability.stable:
-            which = "" if variant.id == "nominal" else f" in variant {variant.id}"
-            reason = (
-                f"inner loop {inner.name} is not closed-loop stable{which}; "
-                f"the outer loop {model.name} was not analysed"
-            )
-            return reason, direct
-        inner = inner.inner
-    return None, direct

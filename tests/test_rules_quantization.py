@@ -169,3 +169,23 @@ def test_controller_path_with_zero_gain_is_a_note():
     (n,) = quantization_robust(ctx, {})
     assert n.severity is Severity.NOTE and n.location == spec.controller.field_locations[
         "numeric_format"]
+
+
+def test_rounded_loop_prepared_by_the_workers_gives_the_same_findings():
+    # ruleguard.workunits.rounded_loop is what the workers compute ahead; the
+    # rule must find the same lower-margin failure (-1.93 dB, closed form above)
+    from dataclasses import replace
+
+    from ruleguard.workunits import ROUNDED, rounded_loop
+
+    _, ctx = lowpass_loop("q1.15")
+    ev = ctx.evaluations[0]
+    ahead = rounded_loop(ev.model, "q1.15")
+    prepared = replace(ctx, evaluations=(replace(ev, prepared={ROUNDED: ahead}),))
+    assert list(quantization_robust(prepared, {})) == list(quantization_robust(ctx, {}))
+    (v,) = [v for v in quantization_robust(prepared, {}) if "margin.gain" in v.message]
+    assert v.measured == pytest.approx(-1.93, abs=0.01)
+    # a rounding that failed in the worker is the rule's documented note
+    failed = replace(ctx, evaluations=(replace(ev, prepared={ROUNDED: "cannot split"}),))
+    (n,) = quantization_robust(failed, {})
+    assert "not checked: cannot split" in n.message

@@ -80,6 +80,10 @@ class Evaluation:
     variant: Any  # ruleguard.models.families.Variant
     model: Any  # ruleguard.analysis.loop.LoopModel
     analysis: Any  # ruleguard.analysis.results.LoopAnalysis
+    #: Per-variant work done ahead for a rule, by key (computed by the
+    #: workers with the analysis, see ruleguard.workunits); a rule computes
+    #: what is missing itself.
+    prepared: Mapping[str, Any] = field(default_factory=dict)
 
 
 @dataclass(frozen=True, eq=False)

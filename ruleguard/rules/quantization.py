@@ -104,8 +104,16 @@ def quantization_robust(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
     unstable_blocks: dict[str, tuple] = {}
     lost_stability: list[tuple] = []
     for ev in ctx.evaluations:
+        # rounded and analysed ahead by the workers (ruleguard.workunits), else here
+        ahead = (getattr(ev, "prepared", None) or {}).get("quantization.rounded")
+        q_analysis = None
         try:
-            q_model, report = quantized_model(ev.model, fmt_name)
+            if ahead is None:
+                q_model, report = quantized_model(ev.model, fmt_name)
+            elif isinstance(ahead, str):
+                raise ValueError(ahead)
+            else:
+                q_model, report, q_analysis = ahead
         except ValueError as exc:  # documented: a loop whose controller path cannot be split
             return [
                 note(
@@ -124,7 +132,8 @@ def quantization_robust(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
             best = unstable_blocks.get(bq.label)
             if best is None or radius > best[0]:
                 unstable_blocks[bq.label] = (radius, ev, b, bq)
-        q_analysis = analyse_open_loop(q_model.open_loop)
+        if q_analysis is None:
+            q_analysis = analyse_open_loop(q_model.open_loop)
         rounded.append(Evaluation(ev.variant, q_model, q_analysis))
         if ev.analysis.stability.stable and not q_analysis.stability.stable:
             lost_stability.append((ev, q_analysis))

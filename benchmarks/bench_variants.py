@@ -1,0 +1,115 @@
+"""Variants at scale: N Latin-hypercube variants of the demo's tilt velocity loop.
+
+Run: ``python benchmarks/bench_variants.py [--samples 10000] [--jobs 1 2]``.
+
+Builds a temporary copy of the demo (fixtures/gimbal_demo) with only the
+tilt current and velocity loops (the velocity loop is a cascade around the
+current loop) and ``variants = { samples = N, seed = 11 }``; the velocity
+controller is moved to a file of its own so that naming that file selects the
+velocity loop alone (changed-files mode, ruleguard/selection.py). Then runs
+``ruleguard check --format json --no-cache FILE --jobs J`` once per J in one
+process run and prints, side by side: wall time, peak resident memory of
+the parent and of its largest worker and their sum (getrusage of the process
+and of its waited-for children; an upper bound of the simultaneous peak),
+and whether the JSON reports are byte-identical.
+"""
+
+from __future__ import annotations
+
+import argparse
+import hashlib
+import resource
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+DEMO = Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
+SEED = 11
+
+#: Prints its peak RSS and its children's (KiB on Linux) after the check.
+RUNNER = """
+import io, resource, sys
+from ruleguard.cli import main
+sys.stdout = io.StringIO()
+code = main(sys.argv[1:])
+report = sys.stdout.getvalue()
+sys.stdout = sys.__stdout__
+own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+kids = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
+sys.stderr.write(f"RSS {own} {kids} EXIT {code}\\n")
+sys.stdout.write(report)
+"""
+
+
+def build_project(folder: Path, samples: int) -> Path:
+    """The benchmark project in ``folder``; returns the velocity controller file."""
+    shutil.copytree(DEMO, folder, ignore=shutil.ignore_patterns(".ruleguard-cache"))
+    manifest = folder / "ruleguard.toml"
+    head, *blocks = manifest.read_text(encoding="utf-8").split("[[loops]]")
+    keep = [b for b in blocks if 'name = "tilt.current"' in b or 'name = "tilt.velocity"' in b]
+    sampled = f"variants = {{ samples = {samples}, seed = {SEED} }}"
+    head = head.replace('variants = "corners"', sampled)
+    keep = [
+        b.replace('file = "firmware/tilt.toml", path = "velocity"',
+                  'file = "firmware/tilt_velocity.toml", path = "velocity"')
+        for b in keep
+    ]
+    manifest.write_text(head + "".join("[[loops]]" + b for b in keep), encoding="utf-8")
+    firmware = (folder / "firmware" / "tilt.toml").read_text(encoding="utf-8")
+    velocity = firmware[firmware.index("[velocity]"):firmware.index("[position]")]
+    (folder / "firmware" / "tilt_velocity.toml").write_text(velocity, encoding="utf-8")
+    return folder / "firmware" / "tilt_velocity.toml"
+
+
+def run_check(folder: Path, selected: Path, jobs: int) -> tuple[float, int, int, bytes]:
+    """(wall s, parent peak RSS KiB, largest child peak RSS KiB, report bytes)."""
+    command = [
+        sys.executable, "-c", RUNNER, "check", "--format", "json", "--no-cache",
+        "--time-budget", "0",  # 0: no budget
+        "--jobs", str(jobs), str(selected.relative_to(folder)),
+    ]
+    start = time.perf_counter()
+    done = subprocess.run(command, cwd=folder, capture_output=True, check=False)
+    wall = time.perf_counter() - start
+    line = [x for x in done.stderr.decode().splitlines() if x.startswith("RSS ")]
+    if not line:
+        raise SystemExit(f"check failed: {done.stderr.decode()[-2000:]}")
+    _, own, kids, _, _code = line[-1].split()
+    return wall, int(own), int(kids), done.stdout
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--samples", type=int, default=10000)
+    parser.add_argument("--jobs", type=int, nargs="+", default=[1, 2])
+    args = parser.parse_args()
+    with tempfile.TemporaryDirectory() as tmp:
+        folder = Path(tmp) / "mast"
+        selected = build_project(folder, args.samples)
+        rows = []
+        for jobs in args.jobs:
+            rows.append((jobs, *run_check(folder, selected, jobs)))
+    print(f"tilt.velocity, {args.samples} Latin-hypercube variants (+ nominal), "
+          f"{resource.getpagesize()} B pages")
+    print(f"{'jobs':>4} {'wall s':>8} {'variants/s':>10} {'parent MB':>9} "
+          f"{'worker MB':>9} {'sum MB':>7}  report sha256")
+    base = rows[0][1]
+    for jobs, wall, own, kids, report in rows:
+        workers = kids * jobs if jobs > 1 else 0
+        total = own + workers
+        print(f"{jobs:>4} {wall:>8.1f} {(args.samples + 1) / wall:>10.0f} {own / 1024:>9.0f} "
+              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f}  "
+              f"{hashlib.sha256(report).hexdigest()[:16]}")
+    print("speed-up (first / each):", " ".join(f"{base / r[1]:.2f}" for r in rows))
+    identical = len({r[4] for r in rows}) == 1
+    print("reports byte-identical:", "yes" if identical else "NO")
+    print(f"report size: {len(rows[0][4]) / 1e6:.1f} MB")
+    if not identical:
+        raise SystemExit(1)
+
+
+if __name__ == "__main__":
+    main()

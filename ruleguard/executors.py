@@ -1,0 +1,274 @@
+"""Where the chunks of variants run: this process, a local process pool, a Dask cluster.
+
+Every executor runs :func:`ruleguard.workunits.analyse_chunk` and hands the
+outcomes back **in the order the chunks were given**, so the report is the
+same byte for byte whichever executor and however many workers ran it
+(docs/scaling.md).
+
+* ``local`` with one job (or too little work, see
+  :data:`PARALLEL_MIN_VARIANTS`): :class:`InlineExecutor`, in this process.
+* ``local`` with ``jobs > 1``: :class:`ProcessExecutor`, a
+  :class:`concurrent.futures.ProcessPoolExecutor` of ``jobs`` worker
+  processes (forked where the platform allows it, so the workers start with
+  the modules and the project already loaded).
+* ``dask``: :class:`DaskExecutor` on Dask distributed (the optional
+  ``cluster`` extra, imported only when chosen): a running scheduler at
+  ``cluster_address``, else a local cluster of ``jobs`` worker processes.
+
+At most :attr:`ChunkStream.window` chunks are in flight at once, so memory
+stays bounded however many variants a loop has, and a loop that stops early
+(an unstable inner loop in its nominal variant, say) submits none of its
+remaining chunks.
+"""
+
+from __future__ import annotations
+
+import os
+from collections import deque
+from collections.abc import Iterable, Iterator
+from typing import Protocol
+
+from ruleguard.errors import InputError
+from ruleguard.location import Location
+from ruleguard.workunits import VariantChunk, VariantOutcome, analyse_chunk
+
+#: Executor names accepted by ``--executor``.
+EXECUTORS = ("local", "dask")
+
+#: A local process pool is started only when the run has at least this many
+#: variants to analyse: below it the pool's start (about 0.1 s to fork, plus
+#: each worker's first imports) costs more than the second core saves
+#: (one variant of a cascade costs some 10-60 ms here).
+PARALLEL_MIN_VARIANTS = 48
+
+#: Chunks in flight per worker.
+WINDOW_PER_WORKER = 2
+
+
+def default_jobs() -> int:
+    """The number of cores this process may run on."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+class Pending(Protocol):
+    """A submitted chunk (a future)."""
+
+    def result(self): ...
+
+    def cancel(self): ...
+
+
+class Executor(Protocol):
+    """Runs chunks; ``workers`` is how many run at once."""
+
+    workers: int
+
+    def submit(self, chunk: VariantChunk) -> Pending: ...
+
+    def close(self) -> None: ...
+
+
+class _Done:
+    """An already computed result, for :class:`InlineExecutor`."""
+
+    def __init__(self, value) -> None:
+        self._value = value
+
+    def result(self):
+        return self._value
+
+    def cancel(self) -> bool:
+        return False
+
+
+class _Deferred:
+    """A chunk run in this process when its result is asked for (so a loop
+    that stops early costs nothing for the chunks after the stop)."""
+
+    def __init__(self, project, chunk: VariantChunk) -> None:
+        self._project = project
+        self._chunk = chunk
+
+    def result(self):
+        return analyse_chunk(self._project, self._chunk)
+
+    def cancel(self) -> bool:
+        return True
+
+
+class InlineExecutor:
+    """Chunks run in this process, one after the other."""
+
+    workers = 1
+
+    def __init__(self, project) -> None:
+        self._project = project
+
+    def submit(self, chunk: VariantChunk) -> Pending:
+        return _Deferred(self._project, chunk)
+
+    def close(self) -> None:
+        return None
+
+
+# ------------------------------------------------------------ local process pool
+_WORKER_PROJECT = None
+
+
+def _install_project(project) -> None:
+    """Worker initializer: keep the project for every chunk this worker runs."""
+    global _WORKER_PROJECT
+    _WORKER_PROJECT = project
+    _single_threaded_linear_algebra()
+
+
+def _single_threaded_linear_algebra() -> None:
+    for name in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ.setdefault(name, "1")
+
+
+def _run_installed(chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
+    return analyse_chunk(_WORKER_PROJECT, chunk)
+
+
+def _pool_context():
+    """Fork where it exists (workers inherit the loaded modules and project);
+    the platform's default elsewhere."""
+    import multiprocessing
+
+    if "fork" in multiprocessing.get_all_start_methods():
+        return multiprocessing.get_context("fork")
+    return multiprocessing.get_context()
+
+
+class ProcessExecutor:
+    """A pool of ``jobs`` local worker processes."""
+
+    def __init__(self, project, jobs: int) -> None:
+        from concurrent.futures import ProcessPoolExecutor
+
+        self.workers = jobs
+        self._pool = ProcessPoolExecutor(
+            max_workers=jobs,
+            mp_context=_pool_context(),
+            initializer=_install_project,
+            initargs=(project,),
+        )
+
+    def submit(self, chunk: VariantChunk) -> Pending:
+        return self._pool.submit(_run_installed, chunk)
+
+    def close(self) -> None:
+        self._pool.shutdown(wait=True, cancel_futures=True)
+
+
+# ------------------------------------------------------------ Dask distributed
+CLUSTER_EXTRA_HINT = "pip install 'ruleguard[cluster]'"
+
+
+class DaskExecutor:
+    """Chunks as tasks of a Dask distributed cluster.
+
+    Parameters
+    ----------
+    project:
+        Sent once to every worker (``Client.scatter(..., broadcast=True)``).
+    jobs:
+        Worker processes of the local cluster started when no address is given.
+    address:
+        A running scheduler (``tcp://host:8786``); ``None``: the scheduler
+        named by Dask's configuration (``DASK_SCHEDULER_ADDRESS``), else a
+        local cluster started here and closed after the run.
+    """
+
+    def __init__(self, project, jobs: int, address: str | None = None) -> None:
+        try:
+            import dask
+            from distributed import Client, LocalCluster
+        except ImportError as exc:
+            raise InputError.at(
+                Location("<command line>", None, None, "--executor"),
+                f"the dask executor needs Dask distributed, which is not installed "
+                f"({exc}); install the cluster extra: {CLUSTER_EXTRA_HINT}",
+            ) from exc
+        self._cluster = None
+        address = address or dask.config.get("scheduler-address", None)
+        if address:
+            self._client = Client(address)
+            self.workers = max(1, len(self._client.scheduler_info().get("workers", {})))
+        else:
+            self._cluster = LocalCluster(
+                n_workers=jobs,
+                threads_per_worker=1,  # warnings are captured per process
+                processes=True,
+                dashboard_address=None,
+            )
+            self._client = Client(self._cluster)
+            self.workers = jobs
+        self._project = self._client.scatter(project, broadcast=True)
+
+    def submit(self, chunk: VariantChunk) -> Pending:
+        return self._client.submit(analyse_chunk, self._project, chunk, pure=False)
+
+    def close(self) -> None:
+        self._client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+
+
+def make_executor(
+    project, name: str, jobs: int, variant_count: int, address: str | None = None
+) -> Executor:
+    """The executor for a run with ``variant_count`` variants to analyse."""
+    if name == "dask":
+        return DaskExecutor(project, jobs, address)
+    if name != "local":
+        raise InputError.at(
+            Location("<command line>", None, None, "--executor"),
+            f"unknown executor {name!r}; choose one of {', '.join(EXECUTORS)}",
+        )
+    if jobs > 1 and variant_count >= PARALLEL_MIN_VARIANTS:
+        return ProcessExecutor(project, jobs)
+    return InlineExecutor(project)
+
+
+class ChunkStream:
+    """Chunks submitted a window at a time, their outcomes read back in order.
+
+    ``stop_loop(name)`` drops the chunks of a loop not yet handed out (and
+    cancels those in flight) once the caller knows the loop has stopped.
+    """
+
+    def __init__(self, executor: Executor, chunks: Iterable[VariantChunk]) -> None:
+        self._executor = executor
+        self._chunks = iter(chunks)
+        self._pending: deque = deque()
+        self._stopped: set[str] = set()
+        self.window = max(1, executor.workers * WINDOW_PER_WORKER)
+
+    def _fill(self) -> None:
+        while len(self._pending) < self.window:
+            chunk = next(self._chunks, None)
+            if chunk is None:
+                return
+            if chunk.loop in self._stopped:
+                continue
+            self._pending.append((chunk, self._executor.submit(chunk)))
+
+    def __iter__(self) -> Iterator[tuple[VariantChunk, tuple[VariantOutcome, ...]]]:
+        self._fill()
+        while self._pending:
+            chunk, pending = self._pending.popleft()
+            if chunk.loop in self._stopped:
+                pending.cancel()
+                self._fill()
+                continue
+            outcomes = pending.result()
+            self._fill()
+            yield chunk, outcomes
+
+    def stop_loop(self, name: str) -> None:
+        self._stopped.add(name)

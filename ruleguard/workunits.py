@@ -1,0 +1,290 @@
+"""The unit of parallel work: one chunk of one loop's variants, built and analysed.
+
+A :class:`VariantChunk` is frozen, picklable data (the loop's name, a run of
+its variants, the time budget's deadline); :func:`analyse_chunk` is a pure
+function (but for the clock) from the project and a chunk to a tuple of
+:class:`VariantOutcome`, one per variant in order, ending early at the first
+variant that stops the loop (a numerical failure, an unstable inner loop, a
+loop that cannot be analysed, the deadline). Every executor
+(:mod:`ruleguard.executors`) runs this same function, in this process, in a
+local process pool or on a cluster, and the pipeline reads the outcomes in
+variant order, so the report does not depend on where or in how many pieces
+the work ran.
+
+Nothing here keeps state between calls: the result of a variant depends only
+on the project, the loop and the variant.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+import warnings
+from dataclasses import dataclass, field
+
+from ruleguard.errors import InputError, LoopNotAnalysable, NumericalWarning
+from ruleguard.location import Location
+
+#: Most variants in one chunk: large enough that 10,000 variants make a few
+#: dozen tasks rather than 10,000, small enough that results stream back and
+#: both workers stay busy to the end.
+MAX_CHUNK_VARIANTS = 250
+
+#: Chunks per worker a loop is cut into (when that keeps them under the maximum).
+CHUNKS_PER_WORKER = 4
+
+
+@dataclass(frozen=True)
+class VariantChunk:
+    """A run of consecutive variants of one loop.
+
+    Attributes
+    ----------
+    loop:
+        The loop's name (``LoopSpec.name``).
+    start:
+        Position of the first variant in the loop's variant list (0 = nominal).
+    variants:
+        The variants (:class:`ruleguard.models.families.Variant`), in order.
+    deadline_epoch_s:
+        ``time.time()`` after which no further variant is started (``None``:
+        no budget). Wall-clock seconds since the epoch, so a worker on
+        another host reads the same deadline.
+    budget_s:
+        The budget the deadline comes from (for the message).
+    """
+
+    loop: str
+    start: int
+    variants: tuple
+    deadline_epoch_s: float | None = None
+    budget_s: float | None = None
+    #: Round the coefficients to the controller's ``numeric_format`` and
+    #: analyse that loop too (for rule ``quantization.robust``).
+    prepare_rounding: bool = False
+
+
+@dataclass(frozen=True)
+class LoopStop:
+    """Why a loop's variants stop at one variant (the loop is then not analysed,
+    except for ``input_error``, which ends the whole check as an input error)."""
+
+    reason: str
+    rule: str
+    location: Location
+    #: False when the stop depends on the clock (the time budget).
+    cacheable: bool = True
+    #: An input error raised while building the variant (re-raised by the caller).
+    input_error: bool = False
+
+
+@dataclass(frozen=True, eq=False)
+class VariantOutcome:
+    """One variant after build and analysis.
+
+    Attributes
+    ----------
+    variant:
+        The variant.
+    model:
+        The built :class:`~ruleguard.analysis.loop.LoopModel` (``None`` when
+        ``stop`` is set and the build did not finish). ``model.inner`` is the
+        built inner loop of a cascade.
+    analysis:
+        The :class:`~ruleguard.analysis.results.LoopAnalysis` of the open loop
+        (``None`` when ``stop`` is set).
+    inner_analysis:
+        The analysis of the direct inner loop (``None`` without one).
+    numerical_notes:
+        ``NumericalWarning`` texts raised while building and analysing this
+        variant, in order.
+    stop:
+        Set when this variant stops the loop.
+    prepared:
+        Work done ahead for rules (:data:`ROUNDED`: ``(rounded model,
+        QuantizationReport, analysis of the rounded loop)``, or the text of
+        the ``ValueError`` that made rounding impossible).
+    """
+
+    variant: object
+    model: object | None
+    analysis: object | None
+    inner_analysis: object | None = None
+    numerical_notes: tuple[str, ...] = ()
+    stop: LoopStop | None = None
+    prepared: dict = field(default_factory=dict)
+
+
+#: Key of the rounded loop in ``VariantOutcome.prepared`` / ``Evaluation.prepared``.
+ROUNDED = "quantization.rounded"
+
+#: Numeric formats with nothing to round.
+EXACT_FORMATS = ("float64", "", None)
+
+
+def chunk_size(variant_count: int, workers: int) -> int:
+    """Variants per chunk for a loop of ``variant_count`` variants on ``workers`` workers."""
+    per = math.ceil(max(variant_count, 1) / (max(workers, 1) * CHUNKS_PER_WORKER))
+    return max(1, min(MAX_CHUNK_VARIANTS, per))
+
+
+def split_variants(
+    loop: str,
+    variants: tuple,
+    size: int,
+    deadline_epoch_s: float | None = None,
+    budget_s: float | None = None,
+    *,
+    prepare_rounding: bool = False,
+) -> tuple[VariantChunk, ...]:
+    """``variants`` cut into chunks of at most ``size``, in order."""
+    return tuple(
+        VariantChunk(
+            loop, i, tuple(variants[i:i + size]), deadline_epoch_s, budget_s, prepare_rounding
+        )
+        for i in range(0, len(variants), max(1, size))
+    )
+
+
+def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
+    """Build and analyse the variants of ``chunk``; stop after the first that stops the loop.
+
+    Parameters
+    ----------
+    project:
+        The loaded :class:`~ruleguard.load.spec.Project` (frozen).
+    chunk:
+        Which loop and which of its variants.
+
+    Returns
+    -------
+    tuple of VariantOutcome
+        One per variant in order, the last one possibly with ``stop`` set.
+    """
+    spec = next(s for s in project.loops if s.name == chunk.loop)
+    out: list[VariantOutcome] = []
+    for variant in chunk.variants:
+        if chunk.deadline_epoch_s is not None and time.time() > chunk.deadline_epoch_s:
+            budget = chunk.budget_s if chunk.budget_s is not None else 0.0
+            stop = LoopStop(
+                f"the time budget of the whole check ({budget:g} s) was used up before "
+                f"variant {variant.id} of this loop; raise it with --time-budget",
+                "stability.closed-loop",
+                spec.location,
+                cacheable=False,
+            )
+            out.append(VariantOutcome(variant, None, None, stop=stop))
+            break
+        outcome = analyse_variant(project, spec, variant, chunk.prepare_rounding)
+        out.append(outcome)
+        if outcome.stop is not None:
+            break
+    return tuple(out)
+
+
+def analyse_variant(project, spec, variant, prepare_rounding: bool = False) -> VariantOutcome:
+    """Build one variant, check its inner loops, analyse it (see :func:`analyse_chunk`).
+
+    With ``prepare_rounding`` the loop with rounded coefficients is built and
+    analysed as well (its numerical warnings are not notes of the variant,
+    as when the rule computes it itself).
+    """
+    import numpy as np
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        model = analysis = inner_analysis = None
+        stop = None
+        try:
+            try:
+                model, stop, inner_analysis, analysis = _variant_analysis(project, spec, variant)
+            except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
+                raise _numerical_failure(spec, variant, exc) from exc
+        except LoopNotAnalysable as exc:
+            stop = LoopStop(exc.reason, exc.rule, exc.location)
+        except InputError as exc:
+            stop = LoopStop(exc.message, "", exc.location, input_error=True)
+    notes = tuple(
+        f"numerical: {w.message}" for w in caught if issubclass(w.category, NumericalWarning)
+    )
+    prepared = {}
+    if prepare_rounding and stop is None and wants_rounding(spec):
+        prepared[ROUNDED] = rounded_loop(model, str(spec.controller.fields["numeric_format"]))
+    return VariantOutcome(variant, model, analysis, inner_analysis, notes, stop, prepared)
+
+
+def wants_rounding(spec) -> bool:
+    """A sampled loop whose controller declares a format other than float64."""
+    value = spec.controller.fields.get("numeric_format")
+    return spec.sample_rate_hz is not None and (
+        None if value is None else str(value)
+    ) not in EXACT_FORMATS
+
+
+def rounded_loop(model, numeric_format: str):
+    """``(rounded model, report, analysis)``, or the text of the ValueError of
+    a loop whose controller path cannot be split (rule ``quantization.robust``)."""
+    from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.models.quantize import quantized_model
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            q_model, report = quantized_model(model, numeric_format)
+        except ValueError as exc:
+            return str(exc)
+        return q_model, report, analyse_open_loop(q_model.open_loop)
+
+
+def _variant_analysis(project, spec, variant):
+    """``(model, stop, inner_analysis, analysis)``; ``analysis`` is None when
+    an inner loop is unstable (``stop`` says why)."""
+    from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.models.assemble import build_loop
+
+    model = build_loop(project, spec, variant)
+    inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse_open_loop)
+    if inner_reason is not None:
+        location = spec.field_locations.get("inner", spec.location)
+        stop = LoopStop(inner_reason, "stability.closed-loop", location)
+        return model, stop, inner_analysis, None
+    if not model.open_loop.rational.is_proper:
+        raise LoopNotAnalysable(
+            "the open loop has more zeros than poles (improper): its frequency "
+            "response grows without bound and the Nyquist contour cannot be closed",
+            "stability.closed-loop",
+            spec.controller.location,
+        )
+    return model, None, inner_analysis, analyse_open_loop(model.open_loop)
+
+
+def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:
+    which = "" if variant.id == "nominal" else f" (variant {variant.id})"
+    return LoopNotAnalysable(
+        f"numerical failure while building or analysing the loop{which}: {exc}. The loop "
+        "could not be verified; check the magnitudes of its gains and coefficients (values "
+        "this large or small overflow double precision). If they are physically sensible, "
+        "please report this as a ruleguard bug.",
+        "stability.closed-loop",
+        spec.controller.location,
+    )
+
+
+def _inner_loop_problem(model, variant, analyse):
+    """Why the inner loops of a cascade make the outer loop unusable (or None),
+    and the analysis of the direct inner loop (None without one)."""
+    inner = model.inner
+    direct = None
+    while inner is not None:
+        analysis = analyse(inner.open_loop)
+        if direct is None:
+            direct = analysis
+        if not analysis.stability.stable:
+            which = "" if variant.id == "nominal" else f" in variant {variant.id}"
+            reason = (
+                f"inner loop {inner.name} is not closed-loop stable{which}; "
+                f"the outer loop {model.name} was not analysed"
+            )
+            return reason, direct
+        inner = inner.inner
+    return None, direct
