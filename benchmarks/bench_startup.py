@@ -10,6 +10,7 @@ demo project with and without the cache. Run from the repository root:
 from __future__ import annotations
 
 import argparse
+import os
 import shutil
 import statistics
 import subprocess
@@ -22,13 +23,42 @@ ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "fixtures" / "gimbal_demo"
 
 
-def _time(cmd: list[str], runs: int, cwd: Path | None = None) -> tuple[float, float]:
+def time_command(
+    cmd: list[str], runs: int, cwd: Path | None = None, before=None
+) -> tuple[float, float]:
+    """Median and minimum wall-clock seconds of ``runs`` fresh processes of ``cmd``.
+
+    ``before`` (optional) is called before each run, outside the timing. One
+    untimed run comes first, and the processes may write byte code (as an
+    installed package has it), so no figure includes compiling the sources.
+    """
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+    quiet = {"stdout": subprocess.DEVNULL, "stderr": subprocess.DEVNULL, "env": env}
+    subprocess.run(cmd, cwd=cwd, **quiet)
     times = []
     for _ in range(runs):
+        if before is not None:
+            before()
         start = time.perf_counter()
-        subprocess.run(cmd, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        subprocess.run(cmd, cwd=cwd, **quiet)
         times.append(time.perf_counter() - start)
     return statistics.median(times), min(times)
+
+
+def largest_imports(cmd: list[str], count: int = 8, cwd: Path | None = None):
+    """The ``count`` largest cumulative imports (microseconds, module) of ``cmd``
+    (a ``python -m ...`` command line: ``-X importtime`` is added after the interpreter)."""
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+    out = subprocess.run(
+        [cmd[0], "-X", "importtime", *cmd[1:]], capture_output=True, text=True, cwd=cwd, env=env
+    ).stderr
+    heavy = []
+    for line in out.splitlines():
+        parts = line.split("|")
+        if len(parts) == 3 and parts[1].strip().isdigit():
+            heavy.append((int(parts[1]), parts[2].rstrip()))
+    heavy.sort(reverse=True)
+    return heavy[:count]
 
 
 def main() -> None:
@@ -36,15 +66,15 @@ def main() -> None:
     parser.add_argument("--runs", type=int, default=5)
     runs = parser.parse_args().runs
     py = sys.executable
-    base, _ = _time([py, "-c", "pass"], runs)
+    base, _ = time_command([py, "-c", "pass"], runs)
     print(f"bare interpreter:                 {base * 1000:7.0f} ms (median of {runs})")
-    med, low = _time([py, "-m", "ruleguard", "--version"], runs)
+    med, low = time_command([py, "-m", "ruleguard", "--version"], runs)
     print(f"ruleguard --version:              {med * 1000:7.0f} ms (min {low * 1000:.0f})")
     with tempfile.TemporaryDirectory() as tmp:
         demo = Path(tmp) / "demo"
         shutil.copytree(DEMO, demo)
         manifest = str(demo / "ruleguard.toml")
-        med, low = _time(
+        med, low = time_command(
             [py, "-m", "ruleguard", "check", "--no-cache", "--manifest", manifest], runs
         )
         print(f"check demo, no cache:             {med * 1000:7.0f} ms (min {low * 1000:.0f})")
@@ -53,31 +83,13 @@ def main() -> None:
             stdout=subprocess.DEVNULL,
             stderr=subprocess.DEVNULL,
         )
-        med, low = _time([py, "-m", "ruleguard", "check", "--manifest", manifest], runs)
+        med, low = time_command([py, "-m", "ruleguard", "check", "--manifest", manifest], runs)
         print(f"check demo, warm cache:           {med * 1000:7.0f} ms (min {low * 1000:.0f})")
-        out = subprocess.run(
-            [
-                py,
-                "-X",
-                "importtime",
-                "-m",
-                "ruleguard",
-                "check",
-                "--no-cache",
-                "--manifest",
-                manifest,
-            ],
-            capture_output=True,
-            text=True,
-        ).stderr
-    heavy = []
-    for line in out.splitlines():
-        parts = line.split("|")
-        if len(parts) == 3 and parts[1].strip().isdigit():
-            heavy.append((int(parts[1]), parts[2].rstrip()))
-    heavy.sort(reverse=True)
+        heavy = largest_imports(
+            [py, "-m", "ruleguard", "check", "--no-cache", "--manifest", manifest]
+        )
     print("largest cumulative imports during check (us):")
-    for cumulative, name in heavy[:8]:
+    for cumulative, name in heavy:
         print(f"  {cumulative:9d} {name}")
 
 

@@ -17,6 +17,7 @@ from pathlib import Path
 from ruleguard import __version__
 from ruleguard.errors import LoopNotAnalysable, NumericalWarning
 from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
+from ruleguard.timings import stage
 
 #: Progress callback: (loops done, loops in all, name of the loop now).
 Progress = Callable[[int, int, str], None]
@@ -70,20 +71,42 @@ def check_project(
     statistics: RunStatistics | None = None,
 ):
     """Check every (selected) loop of the project at ``manifest``; return the Report."""
-    from ruleguard.load.project import load_project
-    from ruleguard.load.rulesets import load_ruleset
-
     options = options or CheckOptions()
-    project = load_project(Path(manifest))
-    ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+    with stage("load"):
+        from ruleguard.load.project import load_project
+        from ruleguard.load.rulesets import load_ruleset
+        from ruleguard.load.validation import remembering
+
+        memo = _validation_memo(manifest) if options.use_cache else None
+        with remembering(memo):
+            project = load_project(Path(manifest))
+            ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+        if memo is not None:
+            with stage("cache"):
+                memo.save(set(project.texts) | set(_all_inputs(project)))
     return check_loaded(project, ruleset, options, progress=progress, statistics=statistics)
+
+
+def _validation_memo(manifest: str | Path):
+    """The schema-validation memo of the cache folder beside ``manifest``."""
+    from ruleguard.cache import LoopCache, ValidatedDocuments
+
+    with stage("cache"):
+        root = Path(manifest).absolute().parent.resolve()
+        return ValidatedDocuments(LoopCache(root, enabled=True))
+
+
+def _all_inputs(project) -> set[str]:
+    inputs = getattr(project, "inputs", None) or {}
+    return {rel for files in inputs.values() for rel in files}
 
 
 def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, statistics=None):
     """The rest of :func:`check_project`, from a loaded project and ruleset."""
-    from ruleguard.report.model import Report, RuleInfo
-    from ruleguard.rules.catalog import RULES
-    from ruleguard.rules.engine import evaluate
+    with stage("rules"):
+        from ruleguard.report.model import Report, RuleInfo
+        from ruleguard.rules.catalog import RULES
+        from ruleguard.rules.engine import evaluate
 
     stats = statistics if statistics is not None else RunStatistics()
     selected = _selected_loops(project, options)
@@ -115,9 +138,10 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         if progress is not None:
             progress(i, len(specs), spec.name)
         if cache is not None:
-            key = cache.key_for(project, spec.name, ruleset_print, cache_options)
-            keys[spec.name] = key
-            hit = cache.get(key)
+            with stage("cache"):
+                key = cache.key_for(project, spec.name, ruleset_print, cache_options)
+                keys[spec.name] = key
+                hit = cache.get(key)
             if hit is not None:
                 loop_results[spec.name], cached_findings[spec.name] = hit
                 stats.cached_loops += 1
@@ -136,37 +160,41 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     if progress is not None:
         progress(len(specs), len(specs), "")
 
-    fresh = evaluate(
-        contexts,
-        ruleset,
-        only=options.only,
-        skip=options.skip,
-        today=today,
-        cached=cached_findings,
-    )
+    with stage("rules"):
+        fresh = evaluate(
+            contexts,
+            ruleset,
+            only=options.only,
+            skip=options.skip,
+            today=today,
+            cached=cached_findings,
+        )
     if cache is not None:
         by_loop: dict[str, list[Finding]] = {c.spec.name: [] for c in contexts}
         for f in fresh:
             if f.loop in by_loop:
                 by_loop[f.loop].append(f)
-        for name, found in by_loop.items():
-            if name in keys:  # loops cut short by the time budget are not stored
-                cache.put(keys[name], loop_results[name], tuple(found))
+        with stage("cache"):
+            for name, found in by_loop.items():
+                if name in keys:  # loops cut short by the time budget are not stored
+                    cache.put(keys[name], loop_results[name], tuple(found))
         stats.extra["cache_hits"] = cache.hits
         stats.extra["cache_misses"] = cache.misses
 
     if options.want_curves:  # after the cache is written: curves never enter it
-        for spec in specs:
-            loop_results[spec.name] = with_response_curves(
-                project, spec, loop_results[spec.name], built_models.get(spec.name, {})
-            )
+        with stage("report"):
+            for spec in specs:
+                loop_results[spec.name] = with_response_curves(
+                    project, spec, loop_results[spec.name], built_models.get(spec.name, {})
+                )
 
-    findings = _ordered_findings(specs, fresh, cached_findings)
-    active = _active_rules(ruleset, specs, loop_results, options)
-    rules = tuple(
-        RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
-        for r in RULES.values()
-    )
+    with stage("rules"):
+        findings = _ordered_findings(specs, fresh, cached_findings)
+        active = _active_rules(ruleset, specs, loop_results, options)
+        rules = tuple(
+            RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
+            for r in RULES.values()
+        )
     return Report(
         tool_version=__version__,
         project_name=project.name,
@@ -238,7 +266,8 @@ def analyse_loop(
     from ruleguard.report.model import LoopResult, VariantResult
 
     domain = "discrete" if spec.sample_rate_hz else "continuous"
-    variants = loop_variants(project, spec)
+    with stage("build"):
+        variants = loop_variants(project, spec)
     evaluations: list[Evaluation] = []
     inner_evaluations: list[Evaluation] = []
     with warnings.catch_warnings(record=True) as caught:
@@ -353,7 +382,8 @@ def _variant_analysis(project, spec, variant, build_loop, analyse):
     Returns ``(model, inner_reason, inner_analysis, analysis)``; ``analysis``
     is None when an inner loop is unstable (``inner_reason`` says why).
     """
-    model = build_loop(project, spec, variant)
+    with stage("build"):
+        model = build_loop(project, spec, variant)
     inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse)
     if inner_reason is not None:
         return model, inner_reason, inner_analysis, None
@@ -364,7 +394,9 @@ def _variant_analysis(project, spec, variant, build_loop, analyse):
             "stability.closed-loop",
             spec.controller.location,
         )
-    return model, None, inner_analysis, analyse(model.open_loop)
+    with stage("analysis"):
+        analysis = analyse(model.open_loop)
+    return model, None, inner_analysis, analysis
 
 
 def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:
@@ -473,7 +505,8 @@ def _inner_loop_problem(model, variant, analyse):
     inner = model.inner
     direct = None
     while inner is not None:
-        analysis = analyse(inner.open_loop)
+        with stage("analysis"):
+            analysis = analyse(inner.open_loop)
         if direct is None:
             direct = analysis
         if not analysis.stability.stable:
