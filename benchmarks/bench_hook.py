@@ -13,10 +13,15 @@ all measured in one run, side by side with its target:
 * the same with the file really edited before every run (its loops miss the
   cache and are analysed again; no target, for comparison).
 
+With ``--baseline DIR`` (a checkout of an older ruleguard, for example
+``git worktree add /tmp/before <commit>``), every figure is also measured
+for that code (put first on PYTHONPATH), in turn with this code in each
+round so both see the same machine load, and the ratio is printed.
+
 Then the largest imports (`python -X importtime`) of the cache-hit route and
 of the cold one-loop check. Run from the repository root:
 
-    python benchmarks/bench_hook.py [--runs 15]
+    python benchmarks/bench_hook.py [--runs 15] [--baseline DIR]
 """
 
 from __future__ import annotations
@@ -28,46 +33,64 @@ import sys
 import tempfile
 from pathlib import Path
 
-from bench_startup import DEMO, largest_imports, time_command
+from bench_startup import DEMO, largest_imports, time_commands
 
 CHANGED = "fixtures/gimbal_demo/firmware/tilt.toml"
 
 
-def _row(label: str, figures: tuple[float, float], target_s: float | None) -> None:
-    med, low = figures
-    goal = f"target < {target_s * 1000:.0f} ms" if target_s else ""
-    verdict = ("met" if med < target_s else "NOT met") if target_s else ""
-    print(f"{label:<46} {med * 1000:7.0f} ms  (min {low * 1000:5.0f})  {goal} {verdict}")
+class _Table:
+    def __init__(self, runs: int, baseline: str | None) -> None:
+        self.runs = runs
+        self.variants: list[dict | None] = [None]
+        if baseline:
+            self.variants.insert(0, {"PYTHONPATH": str(Path(baseline).resolve())})
+        title = f"figure (median of {runs} fresh processes)"
+        head = f"{title:<52}"
+        if baseline:
+            head += f"{'baseline':>10}"
+        head += f"{'now':>10}{'min':>8}"
+        if baseline:
+            head += f"{'ratio':>8}"
+        print(head + "  target")
+
+    def row(self, label: str, cmd: list[str], cwd=None, before=None, target_s=None) -> None:
+        figures = time_commands([(cmd, env) for env in self.variants], self.runs, cwd, before)
+        med, low = figures[-1]
+        line = f"{label:<52}"
+        if len(figures) == 2:
+            line += f"{figures[0][0] * 1000:8.0f}ms"
+        line += f"{med * 1000:8.0f}ms{low * 1000:6.0f}ms"
+        if len(figures) == 2:
+            line += f"{figures[0][0] / med:7.2f}x"
+        if target_s:
+            verdict = "met" if med < target_s else "NOT met"
+            line += f"  < {target_s * 1000:.0f} ms {verdict}"
+        print(line, flush=True)
 
 
 def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--runs", type=int, default=15)
-    runs = parser.parse_args().runs
+    parser.add_argument("--baseline", help="a checkout of older ruleguard code to compare with")
+    args = parser.parse_args()
     py = sys.executable
     rg = [py, "-m", "ruleguard"]
-    print(f"median of {runs} fresh processes each")
-    _row("bare interpreter (python -c pass)", time_command([py, "-c", "pass"], runs), None)
-    _row("ruleguard --version", time_command([*rg, "--version"], runs), None)
+    table = _Table(args.runs, args.baseline)
+    table.row("bare interpreter (python -c pass)", [py, "-c", "pass"])
+    table.row("ruleguard --version", [*rg, "--version"])
     with tempfile.TemporaryDirectory() as tmp:
         one = Path(tmp) / "one-loop"
         one.mkdir()
         subprocess.run([*rg, "init", str(one)], check=True, stdout=subprocess.DEVNULL)
         cold_cmd = [*rg, "check", "--no-cache"]
-        _row("cold check, one-loop project (--no-cache)", time_command(cold_cmd, runs, one), 0.5)
+        table.row("cold check, one-loop project (--no-cache)", cold_cmd, one, target_s=0.5)
 
         repo = Path(tmp) / "repo"
         demo = repo / "fixtures" / "gimbal_demo"
         shutil.copytree(DEMO, demo)
-        warm = [*rg, "check"]
-        subprocess.run(warm, cwd=demo, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-        _row("demo, warm cache, whole project", time_command(warm, runs, demo), None)
+        table.row("demo, warm cache, whole project", [*rg, "check"], demo)
         hook = [*rg, "check", CHANGED]
-        _row(
-            f"demo, warm cache, `check {Path(CHANGED).name}` from repo root",
-            time_command(hook, runs, repo),
-            0.3,
-        )
+        table.row("demo, warm cache, `check .../tilt.toml` (hook)", hook, repo, target_s=0.3)
         changed = repo / CHANGED
         original = changed.read_text(encoding="utf-8")
         edits = iter(range(10**6))
@@ -75,11 +98,7 @@ def main() -> None:
         def edit() -> None:
             changed.write_text(original + f"# edit {next(edits)}\n", encoding="utf-8")
 
-        _row(
-            f"demo, `check {Path(CHANGED).name}`, file edited each run",
-            time_command(hook, runs, repo, before=edit),
-            None,
-        )
+        table.row("demo, `check .../tilt.toml`, file edited each run", hook, repo, before=edit)
         changed.write_text(original, encoding="utf-8")
         hit_imports = largest_imports(hook, cwd=repo)
         cold_imports = largest_imports(cold_cmd, cwd=one)

@@ -28,21 +28,34 @@ def time_command(
 ) -> tuple[float, float]:
     """Median and minimum wall-clock seconds of ``runs`` fresh processes of ``cmd``.
 
-    ``before`` (optional) is called before each run, outside the timing. One
-    untimed run comes first, and the processes may write byte code (as an
-    installed package has it), so no figure includes compiling the sources.
+    ``before`` (optional) is called before each run, outside the timing.
     """
-    env = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
-    quiet = {"stdout": subprocess.DEVNULL, "stderr": subprocess.DEVNULL, "env": env}
-    subprocess.run(cmd, cwd=cwd, **quiet)
-    times = []
-    for _ in range(runs):
-        if before is not None:
-            before()
-        start = time.perf_counter()
-        subprocess.run(cmd, cwd=cwd, **quiet)
-        times.append(time.perf_counter() - start)
-    return statistics.median(times), min(times)
+    return time_commands([(cmd, None)], runs, cwd, before)[0]
+
+
+def time_commands(
+    variants: list[tuple[list[str], dict | None]], runs: int, cwd: Path | None = None, before=None
+) -> list[tuple[float, float]]:
+    """:func:`time_command` for several (command, extra environment) pairs,
+    run in turn within each round so that they share the machine's load.
+
+    One untimed round comes first, and the processes may write byte code (as
+    an installed package has it), so no figure includes compiling sources.
+    """
+    base = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
+    envs = [dict(base, **(extra or {})) for _, extra in variants]
+    times: list[list[float]] = [[] for _ in variants]
+    for round_no in range(runs + 1):
+        for (cmd, _), env, spent in zip(variants, envs, times, strict=True):
+            if before is not None:
+                before()
+            start = time.perf_counter()
+            subprocess.run(
+                cmd, cwd=cwd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+            )
+            if round_no:
+                spent.append(time.perf_counter() - start)
+    return [(statistics.median(t), min(t)) for t in times]
 
 
 def largest_imports(cmd: list[str], count: int = 8, cwd: Path | None = None):
