@@ -227,7 +227,8 @@ def _run_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO, clock) 
         time_budget_s=args.time_budget if args.time_budget > 0 else None,
         want_curves=args.output_format == "html",
     )
-    manifest = _manifest_path(args.manifest, tuple(args.files))
+    with stage("load"):
+        manifest = _manifest_path(args.manifest, tuple(args.files))
     progress = _progress_for(stderr, quiet=args.quiet or args.output_format != "text")
     statistics = RunStatistics()
     report = check_project(manifest, options, progress=progress, statistics=statistics)
