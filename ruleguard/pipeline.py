@@ -225,7 +225,7 @@ def _active_rules(ruleset, specs, loop_results, options: CheckOptions) -> tuple[
         if result.variants:
             crossover = result.variants[0].analysis.margins.crossover_hz
         rules = effective_rules(ruleset, spec.name, spec.tags, crossover)
-        on.update(r for r, eff in rules.items() if eff.severity is not _Severity.OFF)
+        on.update(r for r, eff in rules.items() if eff.severity is not _Severity.DISABLED)
     return tuple(r for r in selected if r in on)
 
 

@@ -2,8 +2,8 @@
 
 A manifest with one example loop (a motor winding's current loop run at
 20 kHz), the plant registry entry it uses, the controller table it reads, and
-a house ruleset extending the built-in ``baseline`` with commented examples of
-thresholds, overrides and waivers. Every file follows FORMATS.md sections 1-4.
+a house ruleset based on the built-in ``baseline`` with commented examples of
+thresholds, adjustments and waivers. Every file follows FORMATS.md sections 1-4.
 
 :func:`write_starter` never overwrites anything: when any of the files (or a
 symlink of that name) exists it raises :class:`StarterExists` naming them and
@@ -91,13 +91,13 @@ _RULESET_TEXT = """\
 
 [ruleset]
 name = "house"
-extends = "baseline"
+based_on = "baseline"
 
 # [rules."margin.phase"]
 # min_deg = 45.0
-# severity = "error"                  # error | warning | note | off
+# severity = "error"                  # error | warning | note | disabled
 
-# [[overrides]]
+# [[adjustments]]
 # loops = ["axis.*"]
 # rules = {{ "margin.gain" = {{ min_db = 8.0 }} }}
 

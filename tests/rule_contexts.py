@@ -197,7 +197,8 @@ def analysis(
 ) -> LoopAnalysis:
     pms = list(phase_margins_deg or [60.0] * len(crossovers_hz))
     crossings = tuple(Crossover(hz, pm) for hz, pm in zip(crossovers_hz, pms, strict=True))
-    worst = min(crossings, key=lambda c: c.phase_margin_deg) if crossings else None
+    # FORMATS.md section 5: the crossover closest to -1 (smallest |PM|), sign kept
+    worst = min(crossings, key=lambda c: abs(c.phase_margin_deg)) if crossings else None
     return LoopAnalysis(
         stability=Stability(stable, 0, 0, 0 if stable else 1),
         margins=Margins(

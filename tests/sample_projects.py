@@ -33,7 +33,7 @@ from ruleguard.location import Location
 
 FILES = {
     "ruleguard.toml": '[project]\nname = "demo"\nruleset = "policy/house.toml"\n',
-    "policy/house.toml": '[ruleset]\nname = "house"\nextends = "motion"\n',
+    "policy/house.toml": '[ruleset]\nname = "house"\nbased_on = "motion"\n',
     "models/plants.toml": "[plants.tilt_winding]\n[plants.tilt_mechanics]\n",
     "models/sensors.toml": "[plants.current_sense]\n",
     "models/measured.toml": '[plants.pan_swept]\nfile = "models/pan_sweep.csv"\n',

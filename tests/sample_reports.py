@@ -49,7 +49,7 @@ gain = 1724.0
 RULESET = """\
 [ruleset]
 name = "gimbal-house"
-extends = "motion"
+based_on = "motion"
 
 [rules."margin.phase"]
 min_deg = 45.0

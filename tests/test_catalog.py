@@ -71,7 +71,7 @@ def test_row_is_complete(rule_id):
     assert re.fullmatch(r"[a-z][a-z-]*\.[a-z][a-z-]*", rule_id)
     assert rule.family == family_of(rule_id) == rule_id.split(".")[0]
     assert isinstance(rule.default_severity, Severity)
-    assert rule.default_severity is not Severity.OFF
+    assert rule.default_severity is not Severity.DISABLED
     assert rule.summary and "\n" not in rule.summary and len(rule.summary) <= 100
     text = rule.explanation.lower()
     assert len(text) > 300 and "why" in text and "fix" in text

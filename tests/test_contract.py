@@ -259,6 +259,9 @@ def assert_variant(variant: dict, lp: dict) -> None:
         assert any(math.isclose(c["phase_margin_deg"], m["phase_margin_deg"], rel_tol=1e-9)
                    and math.isclose(c["hz"], m["crossover_hz"], rel_tol=1e-9)
                    for c in m["crossovers"])
+        # the crossover closest to -1 in angle: the smallest |PM|, sign kept
+        assert abs(m["phase_margin_deg"]) == pytest.approx(
+            min(abs(c["phase_margin_deg"]) for c in m["crossovers"]), rel=1e-9)
     else:
         # null when |L| never crosses 1
         assert m["phase_margin_deg"] is None and m["crossover_hz"] is None
@@ -1192,12 +1195,12 @@ def test_toml_and_json_give_the_same_report(tmp_path):
     ruleset = """\
 [ruleset]
 name = "house"
-extends = "baseline"
+based_on = "baseline"
 
 [rules."margin.phase"]
 min_deg = 25.0
 
-[[overrides]]
+[[adjustments]]
 loops = ["b.*"]
 rules = { "margin.gain" = { min_db = 10.0 } }
 
@@ -1241,12 +1244,12 @@ vary = { delay_s = { min = 0.3, max = 0.9 } }
 
 # ----------------------------------------------------- ruleset (section 4)
 
-def test_extends_parameters_and_severity_off(tmp_path):
+def test_based_on_parameters_and_severity_disabled(tmp_path):
     # K = 3 loop: GM 6.02 dB, PM ~ 20 deg (closed forms above).
     ruleset = """\
 [ruleset]
 name = "house"
-extends = "baseline"
+based_on = "baseline"
 
 [rules."margin.phase"]
 min_deg = 10.0
@@ -1255,14 +1258,14 @@ min_deg = 10.0
 min_db = 8.0
 
 [rules."sensitivity.peak"]
-severity = "off"
+severity = "disabled"
 """
     folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
     code, report, _ = check(folder)
     rules = {f["rule"]: f for f in report["findings"]}
     assert "margin.phase" not in rules        # 20 deg >= 10 deg
     assert "sensitivity.peak" not in rules     # off
-    assert "sensitivity.complementary-peak" in rules  # still from baseline (extends)
+    assert "sensitivity.complementary-peak" in rules  # still from baseline (based_on)
     gain = rules["margin.gain"]
     assert gain["limit"] == 8.0 and gain["unit"] == "dB"
     assert gain["measured"] == pytest.approx(db(2.0), abs=1e-6)
@@ -1271,33 +1274,33 @@ severity = "off"
 
 
 def test_closed_loop_stability_cannot_be_off(tmp_path):
-    ruleset = '[ruleset]\nname = "x"\nextends = "baseline"\n\n' \
-              '[rules."stability.closed-loop"]\nseverity = "off"\n'
+    ruleset = '[ruleset]\nname = "x"\nbased_on = "baseline"\n\n' \
+              '[rules."stability.closed-loop"]\nseverity = "disabled"\n'
     folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
     err = bad(folder)
     assert re.search(r"house\.toml:6:\d+", err), err  # the severity line
     assert "stability.closed-loop" in err
 
 
-def test_overrides_by_glob_and_tags_in_order(tmp_path):
+def test_adjustments_by_glob_and_tags_in_order(tmp_path):
     # Four copies of the K = 3 loop (PM ~ 20.04 deg, closed form above).
-    # override 1 (glob "a.*"): min_deg 10; override 2 (tag "late"): min_deg 25.
-    # a.one: only override 1 -> passes; a.two: both, the later wins -> fails
-    # at 25; b.one: only override 2 -> fails at 25.
+    # adjustment 1 (glob "a.*"): min_deg 10; adjustment 2 (tag "late"): min_deg 25.
+    # a.one: only adjustment 1 -> passes; a.two: both, the later wins -> fails
+    # at 25; b.one: only adjustment 2 -> fails at 25.
     ruleset = """\
 [ruleset]
 name = "house"
-extends = "baseline"
+based_on = "baseline"
 
-[[overrides]]
+[[adjustments]]
 loops = ["a.*"]
 rules = { "margin.phase" = { min_deg = 10.0 } }
 
-[[overrides]]
+[[adjustments]]
 tags = ["late"]
 rules = { "margin.phase" = { min_deg = 25.0 } }
 
-[[overrides]]
+[[adjustments]]
 loops = ["c.*"]
 tags = ["never-used"]
 rules = { "margin.phase" = { min_deg = 21.0 } }
@@ -1309,14 +1312,14 @@ rules = { "margin.phase" = { min_deg = 21.0 } }
                               "house.toml": ruleset})
     _, report, _ = check(folder)
     limits = {f["loop"]: f["limit"] for f in report["findings"] if f["rule"] == "margin.phase"}
-    # override 3 has loops and tags: c.one matches by its glob alone -> 21
+    # adjustment 3 has loops and tags: c.one matches by its glob alone -> 21
     assert limits == {"a.two": 25.0, "b.one": 25.0, "c.one": 21.0}
 
 
 WAIVER_RULESET = """\
 [ruleset]
 name = "house"
-extends = "baseline"
+based_on = "baseline"
 
 [[waivers]]
 rule = "margin.gain"
@@ -1393,7 +1396,7 @@ def test_exit_status_and_fail_at(tmp_path):
     assert check(simple_project(tmp_path / "clean", 1.0))[0] == 0
     for severity, levels in (("warning", {"error": 0, "warning": 1, "note": 1}),
                              ("note", {"error": 0, "warning": 0, "note": 1})):
-        ruleset = (f'[ruleset]\nname = "x"\nextends = "baseline"\n\n[rules."margin.phase"]\n'
+        ruleset = (f'[ruleset]\nname = "x"\nbased_on = "baseline"\n\n[rules."margin.phase"]\n'
                    f'min_deg = 80.0\nseverity = "{severity}"\n')
         folder = simple_project(tmp_path / severity, 1.0, ruleset="house.toml",
                                 files={"house.toml": ruleset})
@@ -1712,7 +1715,7 @@ def test_required_ccw_default_is_p_and_lower_gain_rule(tmp_path):
     _, report, _ = check(simple_project(tmp_path / "a", 4.0, "unstable1"))
     assert not any(f["rule"] in ("stability.encirclements", "margin.gain")
                    for f in report["findings"])
-    ruleset = '[ruleset]\nname = "x"\nextends = "baseline"\n\n[rules."margin.gain"]\n' \
+    ruleset = '[ruleset]\nname = "x"\nbased_on = "baseline"\n\n[rules."margin.gain"]\n' \
               'min_lower_db = 15.0\n'
     _, report, _ = check(simple_project(tmp_path / "b", 4.0, "unstable1", ruleset="house.toml",
                                         files={"house.toml": ruleset}))
@@ -1720,13 +1723,13 @@ def test_required_ccw_default_is_p_and_lower_gain_rule(tmp_path):
     assert hits and abs(hits[0]["measured"]) == pytest.approx(12.0412, abs=1e-3)
 
 
-def test_extends_chain_by_path_later_wins(tmp_path):
-    # house.toml extends baseline (margin.gain min 8 dB, phase 10 deg);
-    # team.toml extends house.toml by path and sets margin.gain min 5 dB:
+def test_based_on_chain_by_path_later_wins(tmp_path):
+    # house.toml is based on baseline (margin.gain min 8 dB, phase 10 deg);
+    # team.toml is based on house.toml by path and sets margin.gain min 5 dB:
     # the K = 3 loop's GM 6.02 dB then passes (Routh-Hurwitz), phase still 10.
-    house = ('[ruleset]\nname = "house"\nextends = "baseline"\n\n[rules."margin.phase"]\n'
+    house = ('[ruleset]\nname = "house"\nbased_on = "baseline"\n\n[rules."margin.phase"]\n'
              'min_deg = 10.0\n\n[rules."margin.gain"]\nmin_db = 8.0\n')
-    team = ('[ruleset]\nname = "team"\nextends = "house.toml"  # relative to this file\n\n'
+    team = ('[ruleset]\nname = "team"\nbased_on = "house.toml"  # relative to this file\n\n'
             '[rules."margin.gain"]\nmin_db = 5.0\n')
     folder = simple_project(tmp_path, 3.0, ruleset="policy/team.toml",
                             files={"policy/house.toml": house, "policy/team.toml": team})
@@ -1738,7 +1741,7 @@ def test_extends_chain_by_path_later_wins(tmp_path):
 def test_all_errors_waived_exit_zero(tmp_path):
     # --only margin.phase on the K = 3 loop (PM 20 deg < 30): one error; a
     # waiver makes it waived: exit 0, errors 0, waived 1 (sections 5 and 6).
-    ruleset = ('[ruleset]\nname = "x"\nextends = "baseline"\n\n[[waivers]]\n'
+    ruleset = ('[ruleset]\nname = "x"\nbased_on = "baseline"\n\n[[waivers]]\n'
                'rule = "margin.phase"\nloops = ["a.*"]\nreason = "reviewed"\n'
                'expires = 2027-03-01\n')
     folder = simple_project(tmp_path, 3.0, ruleset="house.toml", files={"house.toml": ruleset})
@@ -2319,7 +2322,7 @@ def test_prewarp_frequencies_of_lead_lag_and_lowpass(tmp_path):
 def test_waiver_expiry_defaults_to_today(tmp_path):
     # without --as-of the date is today's (UTC): a waiver that expired in 2000
     # no longer applies and is named by waiver.expired; one until 2999 applies.
-    ruleset = ('[ruleset]\nname = "x"\nextends = "baseline"\n\n'
+    ruleset = ('[ruleset]\nname = "x"\nbased_on = "baseline"\n\n'
                '[[waivers]]\nrule = "margin.phase"\nloops = ["a.*"]\nreason = "old"\n'
                'expires = 2000-01-01\n\n'
                '[[waivers]]\nrule = "sensitivity.peak"\nloops = ["a.*"]\nreason = "long"\n'
@@ -2333,11 +2336,11 @@ def test_waiver_expiry_defaults_to_today(tmp_path):
     assert "margin.phase" in by_rule["waiver.expired"]["message"]
 
 
-@pytest.mark.parametrize("where", ["controller", "ruleset", "measured", "absolute", "extends"])
+@pytest.mark.parametrize("where", ["controller", "ruleset", "measured", "absolute", "based_on"])
 def test_no_reference_outside_the_manifest_folder(tmp_path, where):
     # section 1: no referenced file may resolve outside the manifest's folder
     outside = write(tmp_path, {"x/ctl.toml": p_table("c", 1.0),
-                               "x/rules.toml": '[ruleset]\nname = "o"\nextends = "baseline"\n',
+                               "x/rules.toml": '[ruleset]\nname = "o"\nbased_on = "baseline"\n',
                                "x/s.csv": _sweep_csv(np.logspace(-3, 2, 50))}) / "x"
     files = {"ruleguard.toml": manifest(loop("a.loop", "third", "c")), "plants.toml": PLANTS,
              "ctl.toml": p_table("c", 1.0)}
@@ -2354,7 +2357,7 @@ def test_no_reference_outside_the_manifest_folder(tmp_path, where):
         files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c",
                                                 file=str(outside / "ctl.toml")))
     else:
-        files["house.toml"] = '[ruleset]\nname = "h"\nextends = "../x/rules.toml"\n'
+        files["house.toml"] = '[ruleset]\nname = "h"\nbased_on = "../x/rules.toml"\n'
         files["ruleguard.toml"] = manifest(loop("a.loop", "third", "c"), ruleset="house.toml")
     err = bad(write(tmp_path / "proj", files))
     assert re.search(r"\.toml:\d+:\d+", err), err

@@ -1,4 +1,4 @@
-"""The rule engine: effective configuration, overrides, waivers, selection, order."""
+"""The rule engine: effective configuration, adjustments, waivers, selection, order."""
 
 from __future__ import annotations
 
@@ -45,7 +45,7 @@ class TestEffectiveConfiguration:
     def test_defaults_then_ruleset(self, tmp_path):
         rs = ruleset(tmp_path, """
             [ruleset]
-            extends = "baseline"
+            based_on = "baseline"
             [rules."margin.phase"]
             min_deg = 45.0
             severity = "warning"
@@ -59,22 +59,22 @@ class TestEffectiveConfiguration:
             "<builtin>/baseline.toml"
         )
 
-    def test_overrides_apply_in_order(self, tmp_path):
+    def test_adjustments_apply_in_order(self, tmp_path):
         rs = ruleset(tmp_path, """
             [rules."margin.phase"]
             min_deg = 45.0
-            [[overrides]]
+            [[adjustments]]
             tags = ["process"]
             rules = { "margin.phase" = { min_deg = 35.0 } }
-            [[overrides]]
+            [[adjustments]]
             loops = ["heater.*"]
             rules = { "margin.phase" = { min_deg = 40.0, severity = "note" } }
-            [[overrides]]
+            [[adjustments]]
             loops = ["pan.*"]
             rules = { "margin.phase" = { min_deg = 50.0 } }
         """)
         both = effective_rules(rs, "heater.main", ("process",))["margin.phase"]
-        assert both.parameters["min_deg"] == 40.0  # the later override wins
+        assert both.parameters["min_deg"] == 40.0  # the later adjustment wins
         assert both.severity is Severity.NOTE
         assert both.parameters.location_of("min_deg").line == 9
         tag_only = effective_rules(rs, "oven.zone1", ("process",))["margin.phase"]
@@ -85,7 +85,7 @@ class TestEffectiveConfiguration:
 
     def test_crossover_band_override(self, tmp_path):
         rs = ruleset(tmp_path, """
-            [[overrides]]
+            [[adjustments]]
             crossover_hz = { max = 0.06 }
             rules = { "margin.phase" = { min_deg = 20.0 } }
         """)
@@ -100,7 +100,7 @@ class TestEffectiveConfiguration:
         with pytest.raises(InputError) as err:
             ruleset(tmp_path, """
                 [rules."stability.closed-loop"]
-                severity = "off"
+                severity = "disabled"
             """)
         assert err.value.line == 3 and "waive" in err.value.message
 
@@ -109,7 +109,7 @@ class TestFindings:
     def test_severity_off_and_parameters(self, tmp_path):
         rs = ruleset(tmp_path, """
             [rules."margin.phase"]
-            severity = "off"
+            severity = "disabled"
             [rules."sensitivity.peak"]
             max_db = 2.0
             severity = "warning"
@@ -124,13 +124,13 @@ class TestFindings:
         assert f.loop == "tilt.velocity" and f.variant == "nominal"
 
     def test_note_violations_stay_notes(self, tmp_path):
-        rs = ruleset(tmp_path, '[ruleset]\nextends = "baseline"\n')
+        rs = ruleset(tmp_path, '[ruleset]\nbased_on = "baseline"\n')
         ctx = context(analysis(sensitivity_peak_db=None))
         (f,) = run_engine([ctx], rs, today=DAY)
         assert f.rule == "sensitivity.peak" and f.severity is Severity.NOTE
 
     def test_order_is_loop_then_rule(self, tmp_path):
-        rs = ruleset(tmp_path, '[ruleset]\nextends = "baseline"\n')
+        rs = ruleset(tmp_path, '[ruleset]\nbased_on = "baseline"\n')
         a = loop_spec("b.first", path="first")
         b = loop_spec("a.second", path="second")
         proj = project(a, b)
@@ -148,13 +148,13 @@ class TestFindings:
         ]
 
     def test_lazy_iterator(self, tmp_path):
-        rs = ruleset(tmp_path, '[ruleset]\nextends = "baseline"\n')
+        rs = ruleset(tmp_path, '[ruleset]\nbased_on = "baseline"\n')
         it = iter_findings([context(weak_phase(10.0))], rs, only=OWN, today=DAY)
         assert inspect.isgenerator(it)
         assert next(it).rule == "margin.phase"
 
     def test_only_and_skip(self, tmp_path):
-        rs = ruleset(tmp_path, '[ruleset]\nextends = "baseline"\n')
+        rs = ruleset(tmp_path, '[ruleset]\nbased_on = "baseline"\n')
         bad = analysis(phase_margin_deg=10.0, gain_margin_db=2.0, sensitivity_peak_db=9.0)
         ctx = context(bad)
         only_margin = run_engine([ctx], rs, only=["margin"], today=DAY)
@@ -169,7 +169,7 @@ class TestFindings:
     def test_not_analysed_loop(self, tmp_path):
         rs = ruleset(tmp_path, """
             [rules."controller.derivative-filter"]
-            severity = "off"
+            severity = "disabled"
         """)
         where = Location("firmware/axis.toml", 14, 1, "velocity.kd")
         ctx = context(
@@ -185,7 +185,7 @@ class TestFindings:
         assert "not analysed" in f.message
 
     def test_unstable_inner_loop_reported_once(self, tmp_path):
-        rs = ruleset(tmp_path, '[ruleset]\nextends = "baseline"\n')
+        rs = ruleset(tmp_path, '[ruleset]\nbased_on = "baseline"\n')
         ctx = context(
             not_analysed_reason="inner loop tilt.current is not closed-loop stable",
             extras={"not_analysed_rule": "stability.closed-loop",
@@ -198,7 +198,7 @@ class TestFindings:
 class TestWaivers:
     TEXT = """
         [ruleset]
-        extends = "baseline"
+        based_on = "baseline"
 
         [[waivers]]
         rule = "margin.phase"
@@ -299,11 +299,11 @@ def test_rules_see_the_loop_configuration(tmp_path, monkeypatch):
         [rules."margin.gain"]
         min_db = 9.0
         [rules."sensitivity.peak"]
-        severity = "off"
+        severity = "disabled"
     """)
     run_engine([context(weak_phase())], rs, today=DAY)
     assert seen["rule_parameters"]["margin.gain"]["min_db"] == 9.0
-    assert seen["rule_severities"]["sensitivity.peak"] is Severity.OFF
+    assert seen["rule_severities"]["sensitivity.peak"] is Severity.DISABLED
 
 
 def test_waiver_findings_take_their_severity_from_the_ruleset(tmp_path):
@@ -312,7 +312,7 @@ def test_waiver_findings_take_their_severity_from_the_ruleset(tmp_path):
         [rules."waiver.expired"]
         severity = "error"
         [rules."waiver.unused"]
-        severity = "off"
+        severity = "disabled"
     """)
     late = datetime.date(2027, 3, 2)
     found = run_engine([context(weak_phase(20.0))], rs, today=late)

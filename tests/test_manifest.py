@@ -162,6 +162,43 @@ def test_loop_errors(tmp_path, tail, key, word):
     assert error.key.startswith(key), (error.key, error.message)
     assert word in error.message
     assert error.line is not None
+    # every message located under loops.N says which loop (a TOML syntax error comes
+    # before any table is read, so it has no loop to name)
+    if "syntax error" not in error.message:
+        assert "loop 'axis.current'" in error.message, error.message
+
+
+def test_unknown_plant_names_the_loop(tmp_path):
+    # the message of the issue: the loop by name, the entries, the location kept
+    manifest = MANIFEST.replace('name = "axis.current"', 'name = "axis.speed"').replace(
+        'plant = "winding"', 'plant = "nosuch"')
+    plants = PLANTS.replace("[plants.winding]", "[plants.p1]")
+    with pytest.raises(InputError) as info:
+        load_project(write_project(tmp_path, {"ruleguard.toml": manifest,
+                                              "plants.toml": plants}))
+    error = info.value
+    assert error.message == "loop 'axis.speed': no plant registry entry named 'nosuch' " \
+        "(entries: p1)"
+    assert (error.file, error.line, error.column, error.key) == (
+        "ruleguard.toml", 7, 1, "loops.0.plant")
+
+
+def test_second_loop_is_named_not_counted(tmp_path):
+    manifest = MANIFEST + ('\n[[loops]]\nname = "axis.speed"\nplant = "winding"\n'
+                           'controller = { file = "firmware.toml", path = "current" }\n'
+                           "delay_samples = 2.0\n")
+    with pytest.raises(InputError) as info:
+        load_project(write_project(tmp_path, {"ruleguard.toml": manifest}))
+    assert info.value.key == "loops.1.delay_samples"
+    assert info.value.message.startswith("loop 'axis.speed': delay_samples needs sample_rate_hz")
+
+
+def test_loop_without_a_name_is_numbered(tmp_path):
+    manifest = MANIFEST.replace('name = "axis.current"\n', "")
+    with pytest.raises(InputError) as info:
+        load_project(write_project(tmp_path, {"ruleguard.toml": manifest}))
+    assert info.value.key.startswith("loops.0")
+    assert info.value.message.startswith("loop 1 (no name): ")
 
 
 def test_variants_samples_range(tmp_path):

@@ -545,13 +545,14 @@ class TestZerosOnTheContour:
         assert a.margins.stable_gain_ranges_db == ((None, None),)
 
 
-def test_phase_margin_is_the_smallest_over_all_crossovers():
+def test_phase_margin_is_the_crossover_closest_to_minus_one():
     # L = 344.8 (s + 50)(s^2 + 2(0.04)w1 s + w1^2) / (s (s + 3.5)(s^2 + 2(0.03)w2 s + w2^2)),
     # w1 = 2 pi 150, w2 = 2 pi 180: an anti-resonance/resonance pair makes |L| cross 1
     # three times. At the middle crossing angle L is about +27 deg, which the wrap to
-    # (-180, 180] reads as PM = -153 deg; FORMATS.md section 5 defines phase_margin_deg
-    # as the smallest over all gain crossovers, so that is the reported one. The closed
-    # loop is stable (numpy.roots of the characteristic polynomial, order 5).
+    # (-180, 180] reads as PM = -153 deg: that crossing is far from -1. FORMATS.md
+    # section 5 defines phase_margin_deg as the PM of the crossover with the smallest
+    # |PM|, sign kept. The closed loop is stable (numpy.roots of the characteristic
+    # polynomial, order 5).
     import numpy as np
 
     from ruleguard.analysis.margins import analyse_open_loop
@@ -567,10 +568,43 @@ def test_phase_margin_is_the_smallest_over_all_crossovers():
     assert result.stability.stable == bool(np.all(closed.real < 0)) is True
     pms = [c.phase_margin_deg for c in result.margins.crossovers]
     assert len(pms) == 3 and min(pms) < -150.0
-    assert result.margins.phase_margin_deg == min(pms)
-    # independent evaluation of the crossing's phase with numpy.polyval
+    closest = min(pms, key=abs)
+    assert abs(closest) < 90.0
+    assert result.margins.phase_margin_deg == closest
+    # independent check of every crossover with scipy.optimize.brentq on |L(jw)| = 1
+    # (numpy.polyval of the multiplied-out polynomials) and of the chosen crossing's phase
+    from scipy.optimize import brentq
+
+    def mag(w):
+        s = 1j * w
+        return abs(np.polyval(num, s) / np.polyval(den, s)) - 1.0
+
+    grid = np.geomspace(1.0, 1e4, 200001)
+    vals = np.array([mag(w) for w in grid[::50]])
+    coarse = grid[::50]
+    roots = [brentq(mag, coarse[i], coarse[i + 1], xtol=1e-12)
+             for i in range(len(coarse) - 1) if vals[i] * vals[i + 1] < 0]
+    assert len(roots) == 3
+    hz = sorted(c.hz for c in result.margins.crossovers)
+    assert hz == pytest.approx(np.array(roots) / (2 * np.pi), rel=1e-7)
     s = 2j * np.pi * result.margins.crossover_hz
     value = np.polyval(num, s) / np.polyval(den, s)
     assert abs(value) == pytest.approx(1.0, rel=1e-9)
     wrapped = (180.0 + np.degrees(np.angle(value)) + 180.0) % 360.0 - 180.0
     assert wrapped == pytest.approx(result.margins.phase_margin_deg, abs=1e-6)
+
+
+def test_phase_margin_of_a_crossing_near_plus_one():
+    # L(s) = 1.2 (s + 0.5)/(s + 1) (issue 12's check value): |L|^2 = 1.44 (w^2 + 0.25)
+    # /(w^2 + 1) = 1 gives 0.44 w^2 = 1 - 0.36, w = sqrt(0.64/0.44) rad/s. The angle is
+    # atan(2w) - atan(w) > 0, so PM = 180 + atan(2w) - atan(w) wrapped to (-180, 180]
+    # = atan(2w) - atan(w) - 180 = -162.85 deg (closed form). The closed loop
+    # 1 + L = (2.2 s + 1.6)/(s + 1) has its pole at s = -1.6/2.2: stable.
+    w = math.sqrt(0.64 / 0.44)
+    expected = math.degrees(math.atan(2 * w) - math.atan(w)) - 180.0
+    assert expected == pytest.approx(-162.85, abs=0.01)
+    result = analyse_open_loop(OpenLoop(Factored([-0.5], [-1.0], 1.2)))
+    assert result.stability.stable
+    assert len(result.margins.crossovers) == 1
+    assert result.margins.crossover_hz * 2 * math.pi == pytest.approx(w, rel=1e-9)
+    assert result.margins.phase_margin_deg == pytest.approx(expected, abs=1e-9)

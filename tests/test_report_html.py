@@ -324,11 +324,12 @@ class TestPlotGeometry:
         d = mark.attrs["d"].replace("M", "").split()[0]
         assert x.inverse(float(d.split(",")[0])) == pytest.approx(-K / 6.0, abs=2e-3)
         # -1 marked, the unit circle centred at the origin with radius 1
-        cross = list(svg.find_all("line", css="critical-point"))
-        centre_x = [(float(c.attrs["x1"]) + float(c.attrs["x2"])) / 2 for c in cross]
-        centre_y = [(float(c.attrs["y1"]) + float(c.attrs["y2"])) / 2 for c in cross]
-        assert x.inverse(centre_x[0]) == pytest.approx(-1.0, abs=1e-3)
-        assert y.inverse(centre_y[0]) == pytest.approx(0.0, abs=1e-3)
+        for css in ("critical-point", "critical-point-centre"):
+            ring = svg.find("circle", css=css)
+            assert x.inverse(float(ring.attrs["cx"])) == pytest.approx(-1.0, abs=1e-3)
+            assert y.inverse(float(ring.attrs["cy"])) == pytest.approx(0.0, abs=1e-3)
+        assert svg.find("circle", css="critical-point").attrs["fill"] == "none"
+        assert not list(svg.find_all("line", css="critical-point"))
         circle = svg.find("circle", css="unit-circle")
         assert x.inverse(float(circle.attrs["cx"])) == pytest.approx(0.0, abs=1e-3)
         assert x.inverse(float(circle.attrs["cx"]) + float(circle.attrs["r"])) == pytest.approx(

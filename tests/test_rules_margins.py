@@ -135,7 +135,20 @@ class TestPhaseMargin:
         assert v.measured == pytest.approx(26.97, abs=1e-2)
         assert v.limit == 30.0 and v.unit == "deg"
         assert v.frequency_hz == pytest.approx(1.5915, abs=1e-4)
-        assert "smallest of 3 crossovers" in v.message
+        assert "3 crossovers" in v.message
+
+    def test_judges_the_size_of_a_negative_margin(self):
+        # a stable loop whose crossover closest to -1 has PM = -20 deg (the curve
+        # passes 20 deg above -1 the other way round): |PM| = 20 < 30 fails, and the
+        # measured value is the size compared with the limit
+        a = analysis(phase_margin_deg=-20.0, crossover_hz=2.0,
+                     crossovers=((0.5, 70.0), (2.0, -20.0)))
+        (v,) = run("margin.phase", context(a))
+        assert v.measured == pytest.approx(20.0) and v.limit == 30.0
+        assert v.frequency_hz == pytest.approx(2.0)
+        a = analysis(phase_margin_deg=-40.0, crossover_hz=2.0,
+                     crossovers=((0.5, 70.0), (2.0, -40.0)))
+        assert run("margin.phase", context(a)) == []
 
     def test_no_crossover_passes(self):
         a = analysis(phase_margin_deg=None, crossover_hz=None, crossovers=())
@@ -271,6 +284,32 @@ class TestOnAnalysedLoops:
         (v,) = run("margin.delay", context(a), min_s=0.05)
         assert v.measured == pytest.approx(math.pi / 20 - 0.11, rel=1e-6)
         assert run("margin.phase", context(analysed([], [0.0], 10.0, delay_s=0.1))) == []
+
+    def test_crossing_near_plus_one_passes(self):
+        # L = 1.2 (s + 0.5)/(s + 1): one crossover at w = sqrt(0.64/0.44) rad/s with
+        # PM = atan(2w) - atan(w) - 180 = -162.85 deg (closed form, tests/test_margins.py);
+        # the closed loop (pole at -1.6/2.2) is stable and the crossing is 162.85 deg
+        # away from -1, so margin.phase must not fail
+        a = analysed([-0.5], [-1.0], 1.2)
+        assert a.stability.stable
+        assert a.margins.phase_margin_deg == pytest.approx(-162.85, abs=0.01)
+        assert run("margin.phase", context(a)) == []
+        assert run("margin.phase", context(a), min_deg=170.0)[0].measured == pytest.approx(
+            162.85, abs=0.01)
+
+    def test_three_crossovers_judged_at_the_closest_to_minus_one(self):
+        # the resonant loop of tests/test_margins.py (crossovers checked there against
+        # scipy brentq): PMs about +79.5, -153.0 and +109.6 deg; the closest to -1 is
+        # +79.5 deg, so a 60 deg limit passes and an 80 deg limit fails at that crossover
+        w1, w2 = 2 * np.pi * 150, 2 * np.pi * 180
+        num = np.polymul([1.0, 50.0], [1.0, 2 * 0.04 * w1, w1**2]) * 1724 * 0.2
+        den = np.polymul(np.polymul([1.0, 0.0], [1.0, 3.5]), [1.0, 2 * 0.03 * w2, w2**2])
+        a = analysed(np.roots(num / num[0]), np.roots(den), num[0])
+        assert len(a.margins.crossovers) == 3
+        assert run("margin.phase", context(a), min_deg=60.0) == []
+        (v,) = run("margin.phase", context(a), min_deg=80.0)
+        assert v.measured == pytest.approx(79.53, abs=0.01)
+        assert v.frequency_hz == pytest.approx(a.margins.crossovers[0].hz, rel=1e-12)
 
     def test_unstable_plant_lower_margin(self):
         # K/(s - 1), K = 1.5: stable for K > 1, lower margin 20 log10(1/1.5)

@@ -152,7 +152,7 @@ def test_mask_from_a_ruleset_file_through_the_pipeline(tmp_path):
         "ruleguard.toml": velocity_manifest("mask-e2e", "policy/house.toml"),
         "policy/house.toml": """[ruleset]
 name = "house"
-extends = "baseline"
+based_on = "baseline"
 
 [rules."response.mask"]
 signal = "controller"

@@ -151,7 +151,7 @@ def test_margin_rule_turned_off_is_not_rechecked():
     from ruleguard.rules.base import Severity
 
     _, ctx = lowpass_loop("q1.15")
-    off = replace(ctx, extras={"rule_severities": {"margin.gain": Severity.OFF}})
+    off = replace(ctx, extras={"rule_severities": {"margin.gain": Severity.DISABLED}})
     assert [v for v in quantization_robust(off, {}) if "margin.gain" in v.message] == []
 
 

@@ -1,4 +1,4 @@
-"""Ruleset files: built-ins, extends chains, validation against the rules table."""
+"""Ruleset files: built-ins, based_on chains, validation against the rules table."""
 
 from __future__ import annotations
 
@@ -41,7 +41,7 @@ class TestBuiltins:
         assert set(BUILTINS) <= set(builtin_names())
 
     @pytest.mark.parametrize("name", BUILTINS)
-    def test_loads_and_extends_baseline(self, tmp_path, name):
+    def test_loads_based_on_baseline(self, tmp_path, name):
         rs = load(tmp_path, name)
         assert rs.name == name
         assert rs.file == f"<builtin>/{name}.toml"
@@ -68,7 +68,7 @@ class TestBuiltins:
             text = builtin_text(name)
             for number, line in enumerate(text.splitlines(), 1):
                 code = line.split("#", 1)[0]
-                if "=" in code and not code.strip().startswith(("name", "extends",
+                if "=" in code and not code.strip().startswith(("name", "based_on",
                                                                 "description", "severity",
                                                                 "tags", "loops")):
                     assert "#" in line, f"{name}.toml line {number} has no source comment"
@@ -96,7 +96,7 @@ class TestUserFiles:
         write(tmp_path, "a.toml", """
             [ruleset]
             name = "house"
-            extends = "motion"
+            based_on = "motion"
             [rules."margin.phase"]
             min_deg = 45.0
             [[waivers]]
@@ -107,7 +107,7 @@ class TestUserFiles:
         """)
         (tmp_path / "a.json").write_text(json.dumps({
             "$schema": "ruleset.schema.json",  # editors' schema hint, ignored
-            "ruleset": {"name": "house", "extends": "motion"},
+            "ruleset": {"name": "house", "based_on": "motion"},
             "rules": {"margin.phase": {"min_deg": 45.0}},
             "waivers": [{"rule": "margin.gain", "loops": ["pan.position"],
                          "reason": "reviewed", "expires": "2027-03-01"}],
@@ -118,10 +118,10 @@ class TestUserFiles:
         assert b.rules["margin.phase"].locations["min_deg"].file == "a.json"
         assert b.rules["margin.phase"].locations["min_deg"].line is not None
 
-    def test_extends_chain_by_path_later_wins(self, tmp_path):
+    def test_based_on_chain_by_path_later_wins(self, tmp_path):
         write(tmp_path, "policy/company.toml", """
             [ruleset]
-            extends = "baseline"
+            based_on = "baseline"
             [rules."margin.phase"]
             min_deg = 40.0
             severity = "warning"
@@ -130,7 +130,7 @@ class TestUserFiles:
         """)
         write(tmp_path, "policy/team.toml", """
             [ruleset]
-            extends = "company.toml"
+            based_on = "company.toml"
             [rules."margin.phase"]
             min_deg = 50.0
         """)
@@ -144,15 +144,15 @@ class TestUserFiles:
         assert phase.locations["severity"].file == "policy/company.toml"
         assert rs.rules["margin.gain"].parameters == {"min_db": 9.0, "min_lower_db": 6.0}
 
-    def test_extends_cycle(self, tmp_path):
-        write(tmp_path, "a.toml", '[ruleset]\nextends = "b.toml"\n')
-        write(tmp_path, "b.toml", '[ruleset]\nextends = "a.toml"\n')
+    def test_based_on_cycle(self, tmp_path):
+        write(tmp_path, "a.toml", '[ruleset]\nbased_on = "b.toml"\n')
+        write(tmp_path, "b.toml", '[ruleset]\nbased_on = "a.toml"\n')
         err = error_of(tmp_path, "a.toml")
         assert "cycle" in err.message and "a.toml -> b.toml -> a.toml" in err.message
-        assert (err.file, err.line, err.key) == ("b.toml", 2, "ruleset.extends")
+        assert (err.file, err.line, err.key) == ("b.toml", 2, "ruleset.based_on")
 
     def test_self_extension_is_a_cycle(self, tmp_path):
-        write(tmp_path, "a.toml", '[ruleset]\nextends = "a.toml"\n')
+        write(tmp_path, "a.toml", '[ruleset]\nbased_on = "a.toml"\n')
         err = error_of(tmp_path, "a.toml")
         assert "cycle" in err.message and err.file == "a.toml"
 
@@ -189,7 +189,7 @@ class TestUserFiles:
 
     def test_override_parameters_validated(self, tmp_path):
         write(tmp_path, "r.toml", """
-            [[overrides]]
+            [[adjustments]]
             loops = ["pan.*"]
             rules = { "margin.gain" = { min_dB = 3.0 } }
         """)
@@ -201,13 +201,13 @@ class TestUserFiles:
         err = error_of(tmp_path, "r.toml")
         assert "error" in err.message and err.line == 2
 
-    def test_closed_loop_off_in_an_override(self, tmp_path):
+    def test_closed_loop_disabled_in_an_adjustment(self, tmp_path):
         write(tmp_path, "r.toml", """
-            [[overrides]]
+            [[adjustments]]
             loops = ["*"]
-            rules = { "stability.closed-loop" = { severity = "off" } }
+            rules = { "stability.closed-loop" = { severity = "disabled" } }
         """)
-        assert "cannot be turned off" in error_of(tmp_path, "r.toml").message
+        assert "cannot be disabled" in error_of(tmp_path, "r.toml").message
 
     @pytest.mark.parametrize(
         "waiver, words",
@@ -241,7 +241,7 @@ class TestUserFiles:
 
         with pytest.raises(InputError):
             _Loader(str(tmp_path))._document(
-                "x.toml", Location("<builtin>/motion.toml", 9, 1, "ruleset.extends"), ""
+                "x.toml", Location("<builtin>/motion.toml", 9, 1, "ruleset.based_on"), ""
             )
 
     def test_fingerprint_follows_content(self, tmp_path):
@@ -258,12 +258,12 @@ def test_one_short_file_expresses_a_team_policy(tmp_path):
     reviewed exception until March" is one short ruleset file that works."""
     write(tmp_path, "policy.toml", """
         [ruleset]
-        extends = "baseline"
+        based_on = "baseline"
 
         [rules."margin.phase"]
         min_deg = 45.0
 
-        [[overrides]]
+        [[adjustments]]
         tags = ["process"]
         rules = { "margin.phase" = { min_deg = 35.0 } }
 
@@ -317,7 +317,7 @@ def demo_analysed():
 def test_builtin_rulesets_on_the_demo_project(demo_analysed, name):
     # Each built-in ruleset judges the demo: a margin finding is present exactly
     # when the worst stable variant's margin is below the limit the ruleset
-    # (with its overrides, e.g. flight's scheduling by crossover) sets for that loop.
+    # (with its adjustments, e.g. flight's scheduling by crossover) sets for that loop.
     from ruleguard.rules.engine import nominal_crossover_hz
 
     proj, analysed = demo_analysed
@@ -366,7 +366,7 @@ def test_ruleset_and_parameters_pickle(tmp_path):
 
 def test_masks_in_a_ruleset(tmp_path):
     write(tmp_path, "r.toml", """
-        [[overrides]]
+        [[adjustments]]
         tags = ["structural"]
         rules = { "response.mask" = { signal = "loop", upper = [[150.0, -20.0], [400.0, -20.0]] } }
     """)
@@ -382,3 +382,33 @@ def test_masks_in_a_ruleset(tmp_path):
     assert "increasing" in err.message and err.key == 'rules."response.mask".upper.1'
     write(tmp_path, "r.toml", '[rules."response.mask"]\nsignal = "lop"\n')
     assert "did you mean 'loop'" in error_of(tmp_path, "r.toml").message
+
+
+class TestEarlierLayout:
+    """Keys of the earlier ruleset layout are located errors naming the new key
+    (FORMATS.md section 4 reads based_on, [[adjustments]] and "disabled")."""
+
+    def test_extends_names_based_on(self, tmp_path):
+        write(tmp_path, "a.toml", '[ruleset]\nname = "a"\nextends = "baseline"\n')
+        err = error_of(tmp_path, "a.toml")
+        assert (err.file, err.line, err.column, err.key) == ("a.toml", 3, 1, "ruleset.extends")
+        assert "based_on" in err.message
+
+    def test_overrides_names_adjustments(self, tmp_path):
+        write(tmp_path, "a.toml", '[[overrides]]\nloops = ["x"]\nrules = {}\n')
+        err = error_of(tmp_path, "a.toml")
+        assert (err.file, err.line, err.key) == ("a.toml", 1, "overrides")
+        assert "[[adjustments]]" in err.message
+
+    def test_severity_off_names_disabled(self, tmp_path):
+        write(tmp_path, "a.toml", '[[adjustments]]\nloops = ["x"]\n'
+                                  'rules = { "margin.gain" = { severity = "off" } }\n')
+        err = error_of(tmp_path, "a.toml")
+        assert (err.file, err.line, err.key) == (
+            "a.toml", 3, 'adjustments.0.rules."margin.gain".severity')
+        assert '"disabled"' in err.message
+
+    def test_disabled_turns_a_rule_off(self, tmp_path):
+        write(tmp_path, "a.toml", '[rules."margin.gain"]\nseverity = "disabled"\n')
+        rs = load(tmp_path, "a.toml")
+        assert rs.rules["margin.gain"].severity is Severity.DISABLED

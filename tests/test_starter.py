@@ -83,7 +83,7 @@ class TestContent:
         assert manifest["project"]["plants"] == [PLANTS]
         plants = _read(folder, PLANTS)["plants"]
         ruleset = _read(folder, RULESET)
-        assert ruleset["ruleset"]["extends"] == "baseline"
+        assert ruleset["ruleset"]["based_on"] == "baseline"
         for loop in manifest["loops"]:
             assert loop["plant"] in plants
             table = _read(folder, loop["controller"]["file"])

@@ -82,6 +82,15 @@ def gain_crossovers(contour: SampledContour) -> tuple[Crossover, ...]:
     return tuple(Crossover(float(wi) / _TWO_PI, float(p)) for wi, p in zip(w, pm, strict=False))
 
 
+def closest_crossover(crossovers: tuple[Crossover, ...]) -> Crossover:
+    """The gain crossover closest to -1 in angle: the smallest ``|PM|``.
+
+    Ties (equal ``|PM|`` to the last bit) go to the lower frequency, so the
+    choice does not depend on the order the crossings were found in.
+    """
+    return min(crossovers, key=lambda c: (abs(c.phase_margin_deg), c.hz))
+
+
 def _merge(crossings: list[AxisCrossing]) -> list[tuple[float, int, float]]:
     """Sort crossings by value; merge equal values: ``(value, weight, w)``."""
     out: list[list] = []
@@ -197,11 +206,12 @@ def analyse_open_loop(open_loop: OpenLoop) -> LoopAnalysis:
     crossovers = gain_crossovers(contour)
     pm = pm_hz = None
     if crossovers:
-        # FORMATS.md section 5: "the smallest over all gain crossovers", each
-        # 180 + angle L wrapped to (-180, 180]. A crossing near +1 therefore
-        # reads about -180 deg; the rule message says which crossover it is.
-        worst = min(crossovers, key=lambda c: c.phase_margin_deg)
-        pm, pm_hz = worst.phase_margin_deg, worst.hz
+        # FORMATS.md section 5 / METHODS.md: each crossover's PM is 180 + angle L
+        # wrapped to (-180, 180]; the loop's is that of the crossover closest to
+        # -1 in angle (smallest |PM|), sign kept. A crossing near +1 (|PM| near
+        # 180) is far from -1 and does not set it.
+        closest = closest_crossover(crossovers)
+        pm, pm_hz = closest.phase_margin_deg, closest.hz
     dm = dm_samples = None
     if stable and crossovers:
         vals = [math.radians(c.phase_margin_deg % 360.0) / (_TWO_PI * c.hz)

@@ -11,6 +11,9 @@ Defaults: ``ruleset = "baseline"``, ``variants = "corners"``,
 
 from __future__ import annotations
 
+import re
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -43,10 +46,48 @@ def ruleset_is_path(ref: str) -> bool:
     return "/" in ref or "\\" in ref or lowered.endswith((".toml", ".json"))
 
 
+_LOOP_KEY = re.compile(r"^loops\.(\d+)(?:\.|$)")
+
+
+def loop_label(document: Document, index: int) -> str:
+    """How a message names ``[[loops]]`` item ``index``: ``loop 'NAME'``, or its
+    position when it has no usable name (``loop 3 (no name)``, 1-based)."""
+    loops = document.data.get("loops") if isinstance(document.data, dict) else None
+    item = loops[index] if isinstance(loops, list) and 0 <= index < len(loops) else None
+    name = item.get("name") if isinstance(item, dict) else None
+    if isinstance(name, str) and name:
+        return f"loop '{name}'"
+    return f"loop {index + 1} (no name)"
+
+
+@contextmanager
+def naming_loops(document: Document) -> Iterator[None]:
+    """Say which loop an input error under ``loops.N`` of the manifest is about.
+
+    A key such as ``loops.3.plant`` makes the reader count ``[[loops]]``
+    tables; every error located there (schema, manifest, cross-file checks)
+    gets the loop's name in front of its message, keeping file, line, column
+    and key. Messages that already name the loop are left as they are.
+    """
+    try:
+        yield
+    except InputError as error:
+        match = _LOOP_KEY.match(error.key or "")
+        if error.file != document.file or match is None:
+            raise
+        label = loop_label(document, int(match.group(1)))
+        if label in error.message:
+            raise
+        raise InputError(
+            error.file, error.line, error.column, error.key, f"{label}: {error.message}"
+        ) from None
+
+
 def read_manifest(root: str | Path, rel_path: str) -> Manifest:
     """Read and validate the manifest at ``root/rel_path``."""
     document = read_document(root, rel_path)
-    validate(document, "manifest")
+    with naming_loops(document):
+        validate(document, "manifest")
     project = document.data["project"]
     ruleset = project.get("ruleset", DEFAULT_RULESET)
     ruleset_location = document.locate(("project", "ruleset") if "ruleset" in project

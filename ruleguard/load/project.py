@@ -21,7 +21,7 @@ from pathlib import Path
 
 from ruleguard.errors import InputError
 from ruleguard.load.controllers import CONTROLLER_FIELDS, load_controller, uses_z_domain
-from ruleguard.load.manifest import loop_spec, read_manifest
+from ruleguard.load.manifest import Manifest, loop_spec, naming_loops, read_manifest
 from ruleguard.load.plants import load_registry
 from ruleguard.load.sources import Document
 from ruleguard.load.spec import LoopSpec, PlantEntry, Project
@@ -91,6 +91,11 @@ def load_project(manifest_path: str | Path) -> Project:
         raise InputError(str(manifest_path), None, None, "", "the manifest is not a regular file")
     root = given.absolute().parent.resolve()
     manifest = read_manifest(root, given.name)
+    with naming_loops(manifest.document):
+        return _load(root, manifest)
+
+
+def _load(root: Path, manifest: Manifest) -> Project:
     document = manifest.document
     texts: dict[str, str] = {document.file: document.text}
 

@@ -1,4 +1,4 @@
-"""Rulesets: built-in and user files, ``extends`` chains, overrides and waivers.
+"""Rulesets: built-in and user files, ``based_on`` chains, adjustments and waivers.
 
 :func:`load_ruleset` turns a ruleset reference (a built-in name such as
 ``motion``, or a path relative to the manifest's folder) into a frozen
@@ -10,13 +10,13 @@
 * it is validated against the ``ruleset`` JSON Schema, then every rule id
   and parameter against the rules table (:mod:`ruleguard.rules.catalog`),
   with a did-you-mean for misspellings;
-* ``extends`` (a built-in name, or a path relative to the extending file's
+* ``based_on`` (a built-in name, or a path relative to the basing file's
   folder) is loaded first, recursively, and a cycle is an error at the
-  ``extends`` key that closes it;
+  ``based_on`` key that closes it;
 * every setting keeps its :class:`~ruleguard.location.Location`.
 
 A reference is a path when it ends in ``.toml``/``.json`` or holds a ``/``;
-otherwise it names a built-in ruleset. A ruleset without ``extends`` starts
+otherwise it names a built-in ruleset. A ruleset without ``based_on`` starts
 from the catalog defaults (the values ``baseline`` states, so extending
 ``baseline`` differs only in that findings can name baseline's lines).
 """
@@ -36,7 +36,7 @@ from ruleguard.load.validation import check_finite, suggestion, validate
 from ruleguard.location import Location
 from ruleguard.rules.base import Severity
 from ruleguard.rules.catalog import RULES, matches
-from ruleguard.rules.spec import Override, Parameter, Ruleset, RuleSetting, Waiver
+from ruleguard.rules.spec import Adjustment, Parameter, Ruleset, RuleSetting, Waiver
 
 BUILTIN_PREFIX = "<builtin>/"
 _MAX_CHAIN = 32
@@ -104,7 +104,7 @@ def load_ruleset(root: str, ref: str, location: Location) -> Ruleset:
     ------
     InputError
         Unknown built-in, unreadable or invalid file, unknown rule or
-        parameter, bad value, ``extends`` cycle: one located message.
+        parameter, bad value, ``based_on`` cycle: one located message.
     """
     return _Loader(str(root)).load(ref, location, base_dir="", chain=())
 
@@ -138,26 +138,26 @@ class _Loader:
         doc = self._document(ref, origin, base_dir)
         if doc.file in chain:
             cycle = " -> ".join([*chain[chain.index(doc.file):], doc.file])
-            raise InputError.at(origin, f"extends cycle: {cycle}")
+            raise InputError.at(origin, f"based_on cycle: {cycle}")
         if len(chain) >= _MAX_CHAIN:
-            raise InputError.at(origin, f"extends chain longer than {_MAX_CHAIN} files")
+            raise InputError.at(origin, f"based_on chain longer than {_MAX_CHAIN} files")
         data = _check_document(doc)
         chain = (*chain, doc.file)
 
         meta = data.get("ruleset", {})
         parent: Ruleset | None = None
-        if "extends" in meta:
+        if "based_on" in meta:
             here = "" if doc.file.startswith(BUILTIN_PREFIX) else posixpath.dirname(doc.file)
             parent = self.load(
-                meta["extends"], doc.locate(("ruleset", "extends")), here, chain
+                meta["based_on"], doc.locate(("ruleset", "based_on")), here, chain
             )
 
         own_rules = {
             rule_id: _rule_setting(doc, ("rules", rule_id), rule_id, table)
             for rule_id, table in data.get("rules", {}).items()
         }
-        overrides = tuple(
-            _override(doc, i, item) for i, item in enumerate(data.get("overrides", []))
+        adjustments = tuple(
+            _adjustment(doc, i, item) for i, item in enumerate(data.get("adjustments", []))
         )
         waivers = tuple(_waiver(doc, i, item) for i, item in enumerate(data.get("waivers", [])))
 
@@ -165,20 +165,20 @@ class _Loader:
             rules = dict(parent.rules)
             for rule_id, setting in own_rules.items():
                 rules[rule_id] = _merge(rules.get(rule_id), setting)
-            overrides = (*parent.overrides, *overrides)
+            adjustments = (*parent.adjustments, *adjustments)
             waivers = (*parent.waivers, *waivers)
             files = (*parent.files, doc.file)
         else:
             rules = own_rules
             files = (doc.file,)
-        overrides = tuple(_renumber(o, i) for i, o in enumerate(overrides))
+        adjustments = tuple(_renumber(o, i) for i, o in enumerate(adjustments))
         waivers = tuple(_renumber(w, i) for i, w in enumerate(waivers))
         name = meta.get("name") or posixpath.splitext(posixpath.basename(doc.file))[0]
         return Ruleset(
             name=name,
             file=doc.file,
             rules=dict(rules),
-            overrides=overrides,
+            adjustments=adjustments,
             waivers=waivers,
             files=files,
             location=doc.locate(()),
@@ -222,10 +222,42 @@ def _jsonable(value: Any) -> Any:
     return value
 
 
+#: Keys of the earlier ruleset layout and what replaced them (FORMATS.md section 4).
+_RENAMED_KEYS = {
+    ("ruleset", "extends"): "`extends` is now `based_on`: write based_on = \"NAME\" in [ruleset]",
+    ("overrides",): "`[[overrides]]` is now `[[adjustments]]` (the same keys: loops, tags, "
+                    "crossover_hz, rules)",
+}
+
+
+def _old_layout(doc: Document, data: dict) -> None:
+    """Keys and values of the earlier layout are errors naming their new names."""
+    for path, message in _RENAMED_KEYS.items():
+        table: Any = data
+        for part in path[:-1]:
+            table = table.get(part) if isinstance(table, dict) else None
+        if isinstance(table, dict) and path[-1] in table:
+            raise doc.error(path, message)
+    tables: list[tuple[KeyPath, Any]] = [(("rules",), data.get("rules"))]
+    for i, item in enumerate(data.get("adjustments") or []):
+        if isinstance(item, dict):
+            tables.append((("adjustments", i, "rules"), item.get("rules")))
+    for path, rules in tables:
+        if not isinstance(rules, dict):
+            continue
+        for rule_id, table in rules.items():
+            if isinstance(table, dict) and table.get("severity") == "off":
+                raise doc.error(
+                    (*path, rule_id, "severity"),
+                    'severity "off" is now "disabled" (error | warning | note | disabled)',
+                )
+
+
 def _check_document(doc: Document) -> dict:
     if not isinstance(doc.data, dict):
         raise doc.error((), "a ruleset must be a table (TOML) or an object (JSON)")
     check_finite(doc, doc.data)
+    _old_layout(doc, doc.data)
     for i, item in enumerate(doc.data.get("waivers", []) or []):
         if isinstance(item, dict):
             expires = item.get("expires")
@@ -242,10 +274,10 @@ def _check_document(doc: Document) -> dict:
 def _severity(doc: Document, path: KeyPath, rule_id: str, value: str) -> Severity:
     severity = Severity(value)
     rule = RULES[rule_id]
-    if severity is Severity.OFF and rule.always_on:
+    if severity is Severity.DISABLED and rule.always_on:
         raise doc.error(
             path,
-            f"{rule_id} cannot be turned off; waive it for named loops with a reason and "
+            f"{rule_id} cannot be disabled; waive it for named loops with a reason and "
             "an expiry date ([[waivers]]) instead",
         )
     return severity
@@ -374,8 +406,8 @@ def _points(doc: Document, path: KeyPath, what: str, value: Any) -> tuple:
     return tuple(points)
 
 
-def _override(doc: Document, index: int, item: dict) -> Override:
-    path: KeyPath = ("overrides", index)
+def _adjustment(doc: Document, index: int, item: dict) -> Adjustment:
+    path: KeyPath = ("adjustments", index)
     rules = {
         rule_id: _rule_setting(doc, (*path, "rules", rule_id), rule_id, table)
         for rule_id, table in item.get("rules", {}).items()
@@ -392,7 +424,7 @@ def _override(doc: Document, index: int, item: dict) -> Override:
             float(low) if low is not None else None,
             float(high) if high is not None else None,
         )
-    return Override(
+    return Adjustment(
         loops=tuple(item.get("loops", ())),
         tags=tuple(item.get("tags", ())),
         rules=dict(rules),

@@ -442,7 +442,8 @@ def _plots(loop: LoopResult, ident: str) -> list[str]:
     )
     figures = [
         (plots.nyquist_chart(loop.curves, analyses, ident=f"{ident}-nyquist"),
-         "Nyquist plot of L near the critical point -1 (red cross) with the unit circle. "
+         "Nyquist plot of L near the critical point -1 (ring with a centre dot) with the "
+         "unit circle. "
          "Diamonds: crossings of the negative real axis at the reported gain margins; "
          "circles: gain crossovers; the dotted circle around -1 has radius 1/Ms."),
         (plots.loop_gain_plot(loop.curves, analyses, ident=f"{ident}-loop-gain"),

@@ -373,9 +373,13 @@ def nyquist_chart(
                                     hz=crossover.hz))
     # the critical point on top
     cx, cy = x(-1.0), y(0.0)
-    svg.add(_line(cx - 7, cy, cx + 7, cy, stroke="#c00000", width=2.2, css="critical-point"),
-            _line(cx, cy - 7, cx, cy + 7, stroke="#c00000", width=2.2, css="critical-point"),
-            _text(cx - 6, cy - 9, "−1", anchor="end", fill="#c00000", css="critical-label"))
+    # our own mark: an open ring in the page's ink with a dot at its centre
+    svg.add(f'<circle cx="{_f(cx)}" cy="{_f(cy)}" r="6" fill="none" stroke="{INK}" '
+            f'stroke-width="1.6" class="critical-point"/>',
+            f'<circle cx="{_f(cx)}" cy="{_f(cy)}" r="1.8" fill="{INK}" '
+            f'class="critical-point-centre"/>',
+            _text(cx - 8, cy - 10, "critical point −1", anchor="end", fill=INK,
+                  css="critical-label"))
     svg.add(*_legend(curves, left + 8, 20))
     svg.add(_text(right, 20, "faint: ω < 0", anchor="end", css="note"))
     return Plot(svg.done(), (Panel("nyquist", x, y),))

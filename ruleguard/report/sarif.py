@@ -37,7 +37,7 @@ SARIF_SCHEMA_URI = (
 URI_BASE_ID = "PROJECTROOT"
 FINGERPRINT_NAME = "ruleguardFinding/v1"
 
-_LEVEL = {"error": "error", "warning": "warning", "note": "note", "off": "none"}
+_LEVEL = {"error": "error", "warning": "warning", "note": "note", "disabled": "none"}
 
 
 def finding_fingerprint(finding: Finding) -> str:

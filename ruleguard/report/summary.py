@@ -3,7 +3,8 @@
 The text and Markdown reports show, for every loop, the nominal value of
 each stability figure and the worst value over all variants with the variant
 that gives it. "Worst" follows the meaning of each figure (FORMATS.md
-section 5): the smallest gain, phase, delay and disk margins, the lower gain
+section 5): the smallest gain, delay and disk margins, the phase margin of
+smallest size (closest to -1), the lower gain
 margin closest to 0 dB, the largest sensitivity peaks. For a stable variant
 ``None`` in a margin means unbounded; for an unstable one the gain, delay and
 disk margins do not apply and are left out of the worst case.
@@ -72,15 +73,20 @@ def _figure(
     return Figure(VALUE, float(value), hz, variant.id)
 
 
-def _worst(figures: list[Figure], *, lower_is_worse: bool, unbounded_is: float) -> Figure:
-    """The worst figure: the lowest (or highest) value; ``unbounded`` ranks as
-    ``unbounded_is``; ``n/a`` figures are skipped."""
+def _worst(
+    figures: list[Figure], *, lower_is_worse: bool, unbounded_is: float, by_size: bool = False
+) -> Figure:
+    """The worst figure: the lowest (or highest) value, or with ``by_size`` the
+    lowest ``|value|`` (the phase margin: closeness to -1 in angle); ``unbounded``
+    ranks as ``unbounded_is``; ``n/a`` figures are skipped."""
     candidates = [f for f in figures if f.state != NOT_APPLICABLE]
     if not candidates:
         return Figure(NOT_APPLICABLE)
 
     def rank(f: Figure) -> float:
         v = unbounded_is if f.state in (UNBOUNDED, NO_CROSSOVER) else f.value
+        if by_size:
+            v = abs(v)
         return v if lower_is_worse else -v
 
     return min(candidates, key=rank)  # first of equals: nominal wins ties
@@ -96,11 +102,13 @@ def _row(
     lower_is_worse: bool,
     unbounded_is: float,
     none_means: str = UNBOUNDED,
+    by_size: bool = False,
 ) -> FigureRow:
     figures = [
         _figure(v, *pick(v), needs_stable=needs_stable, none_means=none_means) for v in variants
     ]
-    worst = _worst(figures, lower_is_worse=lower_is_worse, unbounded_is=unbounded_is)
+    worst = _worst(figures, lower_is_worse=lower_is_worse, unbounded_is=unbounded_is,
+                   by_size=by_size)
     return FigureRow(label, unit, figures[0], worst)
 
 
@@ -124,7 +132,7 @@ def loop_summary(loop: LoopResult) -> LoopSummary:
         _row("phase margin", "deg", variants,
              lambda v: (m(v).phase_margin_deg, m(v).crossover_hz),
              needs_stable=False, lower_is_worse=True, unbounded_is=INF,
-             none_means=NO_CROSSOVER),
+             none_means=NO_CROSSOVER, by_size=True),
         _row("delay margin", "s", variants,
              lambda v: (m(v).delay_margin_s, None),
              needs_stable=True, lower_is_worse=True, unbounded_is=INF),

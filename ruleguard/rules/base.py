@@ -18,16 +18,16 @@ from ruleguard.location import Location
 
 
 class Severity(str, Enum):
-    """Finding severity; ``OFF`` only appears in ruleset configuration."""
+    """Finding severity; ``DISABLED`` only appears in ruleset configuration."""
 
     ERROR = "error"
     WARNING = "warning"
     NOTE = "note"
-    OFF = "off"
+    DISABLED = "disabled"
 
     @property
     def rank(self) -> int:
-        return {"error": 3, "warning": 2, "note": 1, "off": 0}[self.value]
+        return {"error": 3, "warning": 2, "note": 1, "disabled": 0}[self.value]
 
 
 @dataclass(frozen=True)

@@ -215,7 +215,7 @@ def explain(rule_id: str) -> str:
         "",
         f"family: {rule.family}",
         f"default severity: {rule.default_severity.value}"
-        + ("  (always on: may be waived, never turned off)" if rule.always_on else ""),
+        + ("  (always on: may be waived, never disabled)" if rule.always_on else ""),
         "",
         *_paragraphs(rule.explanation),
         "",

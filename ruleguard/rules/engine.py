@@ -2,7 +2,7 @@
 
 For each loop the engine works out the effective configuration of every rule
 (catalog defaults, then the ruleset's ``[rules."..."]`` tables, then every
-matching ``[[overrides]]`` item in order), runs the selected rules, stamps
+matching ``[[adjustments]]`` item in order), runs the selected rules, stamps
 each :class:`~ruleguard.rules.base.Violation` with its severity and any
 waiver, and finally reports on the ruleset itself (expired and unused
 waivers). Everything is one lazy iterator (:func:`iter_findings`);
@@ -15,7 +15,7 @@ Rules that re-run other rules (``quantization.robust`` re-checks the margin
 rules on rounded coefficients) find the loop's effective configuration in
 the context they receive: ``ctx.extras["rule_parameters"]`` maps every rule
 id to its :class:`~ruleguard.rules.spec.ParameterValues` for this loop and
-``ctx.extras["rule_severities"]`` to its :class:`Severity` (``OFF`` for rules
+``ctx.extras["rule_severities"]`` to its :class:`Severity` (``DISABLED`` for rules
 turned off here).
 """
 
@@ -30,7 +30,7 @@ from ruleguard.errors import InputError
 from ruleguard.location import Location
 from ruleguard.rules.base import Finding, LoopContext, Severity, Violation
 from ruleguard.rules.catalog import RULES, UnknownRule, check_patterns, is_selected, matches
-from ruleguard.rules.spec import Override, ParameterValues, Ruleset, RuleSetting, Waiver
+from ruleguard.rules.spec import Adjustment, ParameterValues, Ruleset, RuleSetting, Waiver
 
 CLOSED_LOOP = "stability.closed-loop"
 
@@ -39,7 +39,7 @@ CLOSED_LOOP = "stability.closed-loop"
 class EffectiveRule:
     """How one rule runs on one loop: severity, parameters and where they were set.
 
-    ``location`` is the last ruleset table (rule table or override) that set
+    ``location`` is the last ruleset table (rule table or adjustment) that set
     anything for this rule on this loop, ``None`` when all is default.
     """
 
@@ -62,20 +62,20 @@ def nominal_crossover_hz(ctx: LoopContext) -> float | None:
     return getattr(margins, "crossover_hz", None)
 
 
-def override_applies(
-    override: Override,
+def adjustment_applies(
+    adjustment: Adjustment,
     loop_name: str,
     tags: Iterable[str] = (),
     crossover_hz: float | None = None,
 ) -> bool:
-    """Does ``override`` match a loop (name globs or tags, then crossover band)?"""
-    if override.loops or override.tags:
-        by_name = any(fnmatch.fnmatchcase(loop_name, glob) for glob in override.loops)
-        by_tag = bool(set(override.tags) & set(tags))
+    """Does ``adjustment`` match a loop (name globs or tags, then crossover band)?"""
+    if adjustment.loops or adjustment.tags:
+        by_name = any(fnmatch.fnmatchcase(loop_name, glob) for glob in adjustment.loops)
+        by_tag = bool(set(adjustment.tags) & set(tags))
         if not (by_name or by_tag):
             return False
-    if override.crossover_hz is not None:
-        low, high = override.crossover_hz
+    if adjustment.crossover_hz is not None:
+        low, high = adjustment.crossover_hz
         if crossover_hz is None:
             return False
         if low is not None and crossover_hz < low:
@@ -121,10 +121,10 @@ def effective_rules(
     tags: Iterable[str] = (),
     crossover_hz: float | None = None,
 ) -> dict[str, EffectiveRule]:
-    """The configuration of every rule for one loop (``loop_name=None``: no override)."""
+    """The configuration of every rule for one loop (``loop_name=None``: no adjustment)."""
     tags = tuple(tags)
     matching = (
-        [o for o in ruleset.overrides if override_applies(o, loop_name, tags, crossover_hz)]
+        [o for o in ruleset.adjustments if adjustment_applies(o, loop_name, tags, crossover_hz)]
         if loop_name is not None
         else []
     )
@@ -138,12 +138,12 @@ def effective_rules(
         if base is not None:
             severity = _apply(base, severity, values, locations)
             where = base.location
-        for override in matching:
-            setting = override.rules.get(rule_id)
+        for adjustment in matching:
+            setting = adjustment.rules.get(rule_id)
             if setting is not None:
                 severity = _apply(setting, severity, values, locations)
                 where = setting.location
-        if rule.always_on and severity is Severity.OFF:
+        if rule.always_on and severity is Severity.DISABLED:
             severity = rule.default_severity
         result[rule_id] = EffectiveRule(
             rule_id, severity, ParameterValues(values, locations), where
@@ -269,13 +269,13 @@ def iter_findings(
             effective = config.get(rule_id)
             if rule_id == reason_rule:
                 # A loop that could not be analysed has no stability verdict: its
-                # finding is never hidden by --only/--skip or by `off`.
+                # finding is never hidden by --only/--skip or by `disabled`.
                 severity = effective.severity if effective is not None else Severity.ERROR
-                if severity is Severity.OFF:
+                if severity is Severity.DISABLED:
                     severity = config[CLOSED_LOOP].severity
                 violations: Iterable[Violation] = (_not_analysed_violation(ctx),)
             else:
-                if not is_selected(rule_id, only, skip) or effective.severity is Severity.OFF:
+                if not is_selected(rule_id, only, skip) or effective.severity is Severity.DISABLED:
                     continue
                 severity = effective.severity
                 violations = RULES[rule_id].function(ctx, effective.parameters)
@@ -312,7 +312,7 @@ def _ruleset_findings(
 ) -> Iterator[Finding]:
     top = effective_rules(ruleset)
     expired_rule, unused_rule = top["waiver.expired"], top["waiver.unused"]
-    if is_selected("waiver.expired", only, skip) and expired_rule.severity is not Severity.OFF:
+    if is_selected("waiver.expired", only, skip) and expired_rule.severity is not Severity.DISABLED:
         for w in ruleset.waivers:
             if waiver_active(w, today):
                 continue
@@ -323,7 +323,7 @@ def _ruleset_findings(
                 f"waiver of {w.rule} for {', '.join(w.loops)} expired on "
                 f"{w.expires.isoformat()} and no longer applies (reason given: {w.reason})",
             )
-    if not is_selected("waiver.unused", only, skip) or unused_rule.severity is Severity.OFF:
+    if not is_selected("waiver.unused", only, skip) or unused_rule.severity is Severity.DISABLED:
         return
     all_loops = project_loops if project_loops is not None else sorted(evaluated)
     for w in active:

@@ -126,30 +126,41 @@ def gain_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violati
 # -------------------------------------------------------------------------- phase
 
 
+def _phase_margin_size(ev: Evaluation) -> float | None:
+    """``|PM|`` of the crossover closest to -1 (the loop's ``phase_margin_deg``)."""
+    pm = ev.analysis.margins.phase_margin_deg
+    return None if pm is None else abs(pm)
+
+
 def phase_margin(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violation]:
-    """Smallest phase margin over all gain crossovers >= ``min_deg``."""
+    """``|PM|`` of the crossover closest to -1 (smallest ``|PM|``) >= ``min_deg``.
+
+    Judged on stable variants only (FORMATS.md section 5): an unstable loop is
+    the finding of ``stability.closed-loop``. The measured value is ``|PM|``,
+    the quantity compared with the limit; the message keeps the sign.
+    """
     stable, why = judged_variants(ctx, "phase margin")
     if why is not None:
         yield why
     min_deg = params.get("min_deg")
     if not stable or min_deg is None:
         return
-    failing, worst = beyond_limit(
-        stable, lambda ev: ev.analysis.margins.phase_margin_deg, min_deg, side="below"
-    )
+    failing, worst = beyond_limit(stable, _phase_margin_size, min_deg, side="below")
     if worst is None:
         return
     m = worst.analysis.margins
     crossings = len(m.crossovers)
-    where = f" (smallest of {crossings} crossovers)" if crossings > 1 else ""
+    where = f" (closest to -1 of {crossings} crossovers)" if crossings > 1 else ""
+    size = abs(m.phase_margin_deg)
+    signed = "" if m.phase_margin_deg >= 0 else f" (|PM| {format_number(size)} deg)"
     yield loop_violation(
         ctx,
         params,
         worst,
-        f"phase margin {format_number(m.phase_margin_deg)} deg is below "
+        f"phase margin {format_number(m.phase_margin_deg)} deg{signed} is below "
         f"{format_number(min_deg)} deg{where}"
         f"{variants_phrase(len(failing), len(ctx.evaluations))}",
-        m.phase_margin_deg,
+        size,
         float(min_deg),
         "deg",
         m.crossover_hz,
@@ -364,12 +375,15 @@ RULES: tuple[RuleSpec, ...] = (
     RuleSpec(
         id="margin.phase",
         default_severity=Severity.ERROR,
-        summary="Smallest phase margin over all gain crossovers at least min_deg.",
+        summary="Phase margin of the crossover closest to -1 at least min_deg.",
         explanation=(
             "At every frequency where |L| = 1 (gain crossover) the phase margin is "
-            "180 deg + angle(L), wrapped to (-180, 180]. The smallest over all "
-            "crossovers must be at least `min_deg` (a crossing where L is near +1 "
-            "reads close to -180 deg); a loop whose |L| never crosses 1 "
+            "180 deg + angle(L), wrapped to (-180, 180]. The loop's phase margin is "
+            "that of the crossover closest to -1 in angle (the smallest |PM|, sign "
+            "kept), and in a stable loop its |PM| must be at least `min_deg`. A "
+            "crossing where L is near +1 (|PM| near 180 deg) is far from -1 and "
+            "does not decide it; an unstable loop is the finding of "
+            "stability.closed-loop. A loop whose |L| never crosses 1 "
             "has no finite phase margin and passes. The worst stable variant is "
             "reported with its crossover frequency.\n\n"
             "Why it matters: a small phase margin means a lightly damped closed loop "

@@ -199,7 +199,7 @@ RULES: tuple[RuleSpec, ...] = (
             "(every breakpoint, lightly damped roots resolved) and the worst point is "
             "refined; the finding gives its frequency, the level and the mask there. S and T "
             "masks are judged on closed-loop stable variants only. No mask is set by "
-            "default: rulesets and overrides add them.\n\n"
+            "default: rulesets and adjustments add them.\n\n"
             "Why it matters: many requirements are frequency-wise: loop gain below -20 dB "
             "above a structural mode, controller gain limited at the PWM frequency, "
             "disturbance rejection (|S| small) at low frequency, noise rejection (|T| "

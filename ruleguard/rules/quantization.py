@@ -14,7 +14,7 @@ check.
 The margin rules run with the parameters this loop is judged with, which
 the engine provides (``LoopContext.extras["rule_parameters"]``, a mapping
 rule id -> parameters; catalog defaults without it); a margin rule turned
-``off`` for the loop (``extras["rule_severities"]``) is not re-checked.
+``disabled`` for the loop (``extras["rule_severities"]``) is not re-checked.
 
 References
 ----------
@@ -183,7 +183,7 @@ def quantization_robust(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable
     )
     severities = (ctx.extras or {}).get("rule_severities", {}) or {}
     for rule in _margin_rules():
-        if severities.get(rule.id) is Severity.OFF:
+        if severities.get(rule.id) is Severity.DISABLED:
             continue  # a margin rule turned off for this loop is not re-checked either
         rule_params = _rule_params(ctx, rule)
         before = {

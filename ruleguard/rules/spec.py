@@ -43,7 +43,7 @@ class RuleSpec:
     """One rule: id, family, default severity, parameters, texts, source, function.
 
     ``family`` is the id prefix before the first dot. ``always_on`` rules
-    (``stability.closed-loop``) cannot be set to ``off``, only waived.
+    (``stability.closed-loop``) cannot be set to ``disabled``, only waived.
     ``scope`` is ``"loop"`` for rules evaluated on each loop, ``"ruleset"``
     for the findings the engine itself raises about the ruleset (expired or
     unused waivers); their ``function`` is never called with a loop.
@@ -132,8 +132,8 @@ class RuleSetting:
 
 
 @dataclass(frozen=True)
-class Override:
-    """One ``[[overrides]]`` item: settings for the loops it matches.
+class Adjustment:
+    """One ``[[adjustments]]`` item: settings for the loops it matches.
 
     A loop matches when its name matches one of ``loops`` (fnmatch globs) or
     one of its tags is in ``tags``; an item with neither matches every loop.
@@ -169,11 +169,11 @@ class Waiver:
 
 @dataclass(frozen=True)
 class Ruleset:
-    """A loaded ruleset with its ``extends`` chain resolved.
+    """A loaded ruleset with its ``based_on`` chain resolved.
 
     ``rules`` holds the merged per-rule settings (later files win, key by
     key, each value keeping the location where it was last set);
-    ``overrides`` and ``waivers`` are those of the whole chain, base first.
+    ``adjustments`` and ``waivers`` are those of the whole chain, base first.
     ``files`` lists the chain's file labels, base first (built-in files as
     ``"<builtin>/NAME.toml"``).
     """
@@ -181,13 +181,13 @@ class Ruleset:
     name: str
     file: str
     rules: Mapping[str, RuleSetting] = field(default_factory=dict)
-    overrides: tuple[Override, ...] = ()
+    adjustments: tuple[Adjustment, ...] = ()
     waivers: tuple[Waiver, ...] = ()
     files: tuple[str, ...] = ()
     location: Location = Location("")
 
     def severity_of(self, rule_id: str) -> Severity:
-        """The severity the ruleset gives ``rule_id`` before any override."""
+        """The severity the ruleset gives ``rule_id`` before any adjustment."""
         from ruleguard.rules.catalog import RULES
 
         setting = self.rules.get(rule_id)

@@ -158,7 +158,7 @@ RULES: tuple[RuleSpec, ...] = (
             "lead near crossover, remove delay, or check the plant model and its unstable "
             "poles. The finding names the worst variant: corners of the plant's `vary` "
             "ranges often destabilise loops that are stable at the nominal.\n\n"
-            "This rule is always an error. It cannot be set to `off`; a ruleset may only "
+            "This rule is always an error. It cannot be set to `disabled`; a ruleset may only "
             "waive it for named loops, with a reason and an expiry date."
         ),
         source=(
