@@ -34,10 +34,11 @@ def time_command(
 
 
 def time_commands(
-    variants: list[tuple[list[str], dict | None]], runs: int, cwd: Path | None = None, before=None
+    variants: list[tuple[list[str], dict | None]], runs: int, cwd=None, before=None
 ) -> list[tuple[float, float]]:
     """:func:`time_command` for several (command, extra environment) pairs,
     run in turn within each round so that they share the machine's load.
+    ``cwd`` and ``before`` may be lists (one per variant).
 
     One untimed round comes first, and the processes may write byte code (as
     an installed package has it), so no figure includes compiling sources.
@@ -45,13 +46,15 @@ def time_commands(
     base = {k: v for k, v in os.environ.items() if k != "PYTHONDONTWRITEBYTECODE"}
     envs = [dict(base, **(extra or {})) for _, extra in variants]
     times: list[list[float]] = [[] for _ in variants]
+    cwds = cwd if isinstance(cwd, list) else [cwd] * len(variants)
+    befores = before if isinstance(before, list) else [before] * len(variants)
     for round_no in range(runs + 1):
-        for (cmd, _), env, spent in zip(variants, envs, times, strict=True):
-            if before is not None:
-                before()
+        for i, ((cmd, _), env, spent) in enumerate(zip(variants, envs, times, strict=True)):
+            if befores[i] is not None:
+                befores[i]()
             start = time.perf_counter()
             subprocess.run(
-                cmd, cwd=cwd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
+                cmd, cwd=cwds[i], env=env, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL
             )
             if round_no:
                 spent.append(time.perf_counter() - start)
