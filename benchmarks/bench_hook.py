@@ -103,8 +103,8 @@ def main() -> None:
             run_env = dict(os.environ, **(env or {}))
             one = Path(tmp) / f"one-loop-{n}"
             one.mkdir()
-            subprocess.run(
-                [*rg, "init", str(one)], check=True, stdout=subprocess.DEVNULL, env=run_env
+            subprocess.run(  # not from the checkout: `-m` puts the cwd first on sys.path
+                [*rg, "init", "."], cwd=one, check=True, stdout=subprocess.DEVNULL, env=run_env
             )
             ones.append(one)
             repo = Path(tmp) / f"repo-{n}"
