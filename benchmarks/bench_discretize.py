@@ -5,7 +5,13 @@ Run: ``python benchmarks/bench_discretize.py``
 Prints milliseconds per call of
 * ``zoh_equivalent`` for flexible-structure plants of order 2, 10, 30 and 50,
   without and with a fractional delay (and the accuracy of the result
-  against the realization's own frequency response);
+  against the realization's own frequency response), with the route taken:
+  "modal" (sampled modes in closed form, :mod:`ruleguard.models.modal_hold`)
+  or "expm" (exponential of the augmented cascade realization, the fallback:
+  these plants have a rigid-body pole at -0.5 rad/s sampled at 10 kHz, whose
+  modal sum cancels). Then the same for servo plants with distinct,
+  well-separated poles (slow and fast real poles, resonance pairs from 800 Hz),
+  which take the modal route;
 * ``discretize_block`` for a notch and a PID;
 * ``quantized_model`` for a sampled PI + low-pass loop and for every loop of
   the demo project (first variant), in float32, q1.15 and q2.14.
@@ -54,6 +60,25 @@ def flexible_plant(order: int, seed: int = 0) -> Factored:
     return blk.scaled(1.0 / abs(blk.evaluate(1j)[()]))
 
 
+def servo_plant(order: int, seed: int = 0) -> Factored:
+    """Slow and fast real poles and (order - 2) / 2 resonance/antiresonance pairs."""
+    rng = np.random.default_rng(seed)
+    m = max((order - 2) // 2, 0)
+    fp = np.sort(10 ** rng.uniform(math.log10(800.0), math.log10(4000.0), m))
+    zp = 10 ** rng.uniform(-1.7, -1.0, m)
+    fz, zz = fp * rng.uniform(0.85, 0.97, m), zp * rng.uniform(0.5, 1.0, m)
+    p = -zp * 2 * np.pi * fp + 1j * 2 * np.pi * fp * np.sqrt(1 - zp**2)
+    z = -zz * 2 * np.pi * fz + 1j * 2 * np.pi * fz * np.sqrt(1 - zz**2)
+    return Factored(np.concatenate([z, z.conj()]),
+                    np.concatenate([p, p.conj(), [-5.0, -6000.0]]), 1e5)
+
+
+def route(plant: Factored, h: float, delay: float) -> str:
+    from ruleguard.models.discretize import _modal_equivalent
+
+    return "modal" if _modal_equivalent(plant, h, delay) is not None else "expm"
+
+
 def lowpass2(fc: float, zeta: float) -> Factored:
     w = 2 * math.pi * fc
     p = complex(-zeta * w, w * math.sqrt(1 - zeta**2))
@@ -77,20 +102,22 @@ def sampled_loop(h: float = 1e-4) -> LoopModel:
 
 def main() -> None:
     h = 1e-4
-    print("zoh_equivalent (flexible plant, h = 1e-4 s)")
-    print(f"{'order':>6} {'delay':>10} {'ms/call':>9} {'max rel. dev.':>14}")
-    for order in (2, 10, 30, 50):
-        plant = flexible_plant(order)
-        for frac in (0.0, 0.37):
-            ms = per_call_ms(lambda plant=plant, frac=frac: zoh_equivalent(plant, h, frac * h))
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore")
-                zd = zoh_equivalent(plant, h, frac * h)
-            dss = zoh_state_space(plant, h, frac * h)
-            w = np.geomspace(1.0, math.pi / h, 400)
-            dev = np.max(np.abs(zd.response(w) / dss.response(w) - 1))
-            label = "whole" if frac == 0 else f"{frac} h"
-            print(f"{order:>6} {label:>10} {ms:>9.3f} {dev:>14.2e}")
+    for title, make in (("flexible plant", flexible_plant), ("servo plant", servo_plant)):
+        print(f"zoh_equivalent ({title}, h = 1e-4 s)")
+        print(f"{'order':>6} {'delay':>10} {'route':>6} {'ms/call':>9} {'max rel. dev.':>14}")
+        for order in (2, 10, 30, 50):
+            plant = make(order)
+            for frac in (0.0, 0.37):
+                ms = per_call_ms(lambda plant=plant, frac=frac: zoh_equivalent(plant, h, frac * h))
+                with warnings.catch_warnings():
+                    warnings.simplefilter("ignore")
+                    zd = zoh_equivalent(plant, h, frac * h)
+                dss = zoh_state_space(plant, h, frac * h)
+                w = np.geomspace(1.0, math.pi / h, 400)
+                dev = np.max(np.abs(zd.response(w) / dss.response(w) - 1))
+                label = "whole" if frac == 0 else f"{frac} h"
+                print(f"{order:>6} {label:>10} {route(plant, h, frac * h):>6} {ms:>9.3f} "
+                      f"{dev:>14.2e}")
 
     print("\ndiscretize_block")
     notch = Factored([complex(-10, 2 * math.pi * 1800), complex(-10, -2 * math.pi * 1800)],

@@ -185,7 +185,8 @@ def format_input_error(exc: InputError) -> str:
         if loc.column is not None:
             place += f":{loc.column}"
     key = f" [{loc.key}]" if loc.key else ""
-    return f"{place}: error:{key} {exc.message}"
+    excerpt = f"\n{exc.excerpt}" if getattr(exc, "excerpt", None) else ""
+    return f"{place}: error:{key} {exc.message}{excerpt}"
 
 
 # ---------------------------------------------------------------- commands

@@ -39,6 +39,22 @@ class InputError(Exception):
         super().__init__(message)
         self.location = Location(file, line, column, key)
         self.message = message
+        #: The source line and a marker under the column (set where the text is known).
+        self.excerpt: str | None = None
+
+    def with_excerpt(self, text: str) -> InputError:
+        """Attach the line of ``text`` at this error's position (if any), return self."""
+        if self.excerpt is None and self.line is not None:
+            lines = text.splitlines()
+            if 1 <= self.line <= len(lines):
+                source = lines[self.line - 1].rstrip()
+                gutter = f"{self.line:>5} | "
+                marker = ""
+                if self.column is not None and 1 <= self.column <= len(source) + 1:
+                    lead = "".join("\t" if ch == "\t" else " " for ch in source[: self.column - 1])
+                    marker = "\n" + " " * (len(gutter) - 2) + "| " + lead + "^"
+                self.excerpt = gutter + source + marker
+        return self
 
     @classmethod
     def at(cls, location: Location, message: str) -> InputError:

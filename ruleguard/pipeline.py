@@ -147,6 +147,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
                 stats.cached_loops += 1
                 continue
         analysed = analyse_loop(project, spec, deadline=deadline, budget_s=options.time_budget_s)
+        analysed = without_unwanted_midpoints(analysed, ruleset)
         if not analysed.cacheable:
             keys.pop(spec.name, None)
         stats.analysed_loops += 1
@@ -208,6 +209,31 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         fail_at=options.fail_at,
         active_rules=active,
         waivers_as_of=today.isoformat(),
+    )
+
+
+def without_unwanted_midpoints(analysed: AnalysedLoop, ruleset) -> AnalysedLoop:
+    """A scheduled loop without its midpoint variants when ``schedule.coverage`` says
+    ``midpoints = false`` for it (in its rule table or an adjustment that matches it)."""
+    import dataclasses
+
+    from ruleguard.models.schedules import is_midpoint_id
+    from ruleguard.rules.engine import effective_rules, nominal_crossover_hz
+
+    context = analysed.context
+    if getattr(context.spec.controller, "schedule", None) is None or not context.evaluations:
+        return analysed
+    config = effective_rules(ruleset, context.spec.name, context.spec.tags,
+                             nominal_crossover_hz(context))
+    if config["schedule.coverage"].parameters.get("midpoints", True):
+        return analysed
+    evaluations = tuple(ev for ev in context.evaluations if not is_midpoint_id(ev.variant.id))
+    result = dataclasses.replace(
+        analysed.result,
+        variants=tuple(v for v in analysed.result.variants if not is_midpoint_id(v.id)),
+    )
+    return dataclasses.replace(
+        analysed, context=dataclasses.replace(context, evaluations=evaluations), result=result
     )
 
 

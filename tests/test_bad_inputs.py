@@ -8,7 +8,9 @@ asserts the contract of FORMATS.md section 6:
 
 * exit status 2, no Python traceback, exactly one error line;
 * the message names the file, line and key given in the case's
-  ``expected.json`` and contains its expected word;
+  ``expected.json`` and contains its expected word; where the case gives
+  ``column`` and ``message`` (C, YAML and key-value firmware files), the
+  column and the whole message are exactly those;
 * the secret never appears in the output, and (in-process, with an audit
   hook on ``open`` and directory listings) no path outside the case folder
   is opened except Python's and ruleguard's own installed files;
@@ -40,6 +42,16 @@ CASES = sorted(p.name for p in CATALOG.iterdir() if (p / "expected.json").is_fil
 def test_catalog_is_large_enough():
     # issue "Inputs as firmware repositories really hold them": at least 40 cases
     assert len(CASES) >= 40
+
+
+def test_firmware_readers_have_exact_cases():
+    # issue "Read parameters where firmware actually keeps them": at least 15
+    # cases of the C, YAML and key-value readers, each with the exact message
+    exact = [
+        case for case in CASES
+        if "message" in json.loads((CATALOG / case / "expected.json").read_text("utf-8"))
+    ]
+    assert len(exact) >= 15, exact
 
 
 def _command() -> list[str]:
@@ -89,6 +101,12 @@ def _check_message(output: str, expected: dict) -> None:
     if expected["key"]:
         assert f"[{expected['key']}]" in line, line
     assert expected["contains"] in line, line
+    if "column" in expected:  # the readers of C, YAML and key-value files: exact place and text
+        assert line.startswith(f"{place}{expected['column']}: error: "), line
+        message = line.split(": error: ", 1)[1]
+        if expected["key"]:
+            message = message.removeprefix(f"[{expected['key']}] ")
+        assert message == expected["message"], line
 
 
 def _run_installed(case: str, tmp_path: Path) -> dict:

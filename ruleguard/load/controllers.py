@@ -24,7 +24,15 @@ from pathlib import Path
 from typing import Any
 
 from ruleguard.errors import InputError
-from ruleguard.load.sources import Document, KeyPath, format_key, read_document
+from ruleguard.load.schedules import (
+    SCHEDULABLE_FIELDS,
+    key_and_scale,
+    make_schedule,
+    read_arrays,
+    read_rows,
+    row_fields,
+)
+from ruleguard.load.sources import Document, KeyPath, Unreadable, format_key, read_firmware
 from ruleguard.load.spec import ControllerEntry, FilterEntry
 from ruleguard.load.validation import number_problem, show_value, suggestion, validate
 from ruleguard.location import Location
@@ -79,6 +87,8 @@ def resolve_path(
     if path.strip() == "":
         return node, walked
     for part in path.split("."):
+        if isinstance(node, Unreadable):
+            raise node.error()
         if isinstance(node, dict):
             if part not in node:
                 keys = [k for k in node if isinstance(k, str)]
@@ -107,7 +117,22 @@ def resolve_path(
                 f"{what}: '{format_key(walked)}' in {document.file} is a value, not a table; "
                 f"cannot go on to '{part}'",
             )
+    if isinstance(node, Unreadable):
+        raise node.error()
     return node, walked[len(base):]
+
+
+def _document_key(binding: Mapping[str, Any]) -> str:
+    """Cache key of a firmware document: its file, and how the binding reads it."""
+    file = binding["file"]
+    if binding.get("format") is None and binding.get("macros") is None:
+        return file
+    macros = sorted((binding.get("macros") or {}).items())
+    return f"{file}\x00{binding.get('format')}\x00{macros}"
+
+
+#: Firmware formats whose input errors carry a source excerpt.
+EXCERPT_FORMATS = ("c", "yaml", "keyvalue")
 
 
 def load_controller(
@@ -134,16 +159,38 @@ def load_controller(
         Cache of firmware documents already read, by the name as written.
     texts:
         Collects the text of each file read.
-    """
 
+    Errors located in a C, YAML or key-value file carry an excerpt of the
+    offending line (:attr:`InputError.excerpt`).
+    """
+    try:
+        return _load_controller(root, binding, binding_path, manifest, documents, texts)
+    except InputError as exc:
+        document = documents.get(_document_key(binding))
+        if document is not None and document.fmt in EXCERPT_FORMATS and exc.file == document.file:
+            exc.with_excerpt(document.text)
+        raise
+
+
+def _load_controller(
+    root: str | Path,
+    binding: Mapping[str, Any],
+    binding_path: KeyPath,
+    manifest: Document,
+    documents: dict[str, Document],
+    texts: dict[str, str],
+) -> ControllerEntry:
     def manifest_at(*keys: str | int) -> Location:
         return manifest.locate(binding_path + keys)
 
     file = binding["file"]
-    document = documents.get(file)
+    cache_key = _document_key(binding)
+    document = documents.get(cache_key)
     if document is None:
-        document = read_document(root, file, manifest_at("file"))
-        documents[file] = document
+        document = read_firmware(
+            root, file, manifest_at("file"), binding.get("format"), binding.get("macros")
+        )
+        documents[cache_key] = document
         texts[document.file] = document.text
     path = binding.get("path", "")
     table, table_path = resolve_path(
@@ -189,6 +236,30 @@ def load_controller(
     sources: dict[str, KeyPath] = {}
     known = CONTROLLER_FIELDS.get(kind, ()) + COMMON_FIELDS + ("numeric_format", "filters")
     mapping = binding.get("map", {})
+    schedule_spec = binding.get("schedule")
+    row_scheduled: tuple[str, ...] = ()
+    rows_value: Any = None
+    rows_path: KeyPath = ()
+    if schedule_spec is not None:
+        if not SCHEDULABLE_FIELDS.get(kind):
+            raise InputError.at(
+                manifest_at("schedule"),
+                f"a {kind} controller cannot be scheduled: only the numeric fields of pid and "
+                "lead_lag controllers can be tabulated",
+            )
+        if "rows" in schedule_spec:
+            rows_value, rel = resolve_path(table, schedule_spec["rows"], document,
+                                           manifest_at("schedule", "rows"), "schedule rows",
+                                           base=table_path)
+            rows_path = table_path + rel
+            first = rows_value[0] if isinstance(rows_value, list) and rows_value else None
+            row_scheduled = row_fields(kind, first, mapping)
+            if isinstance(first, dict) and not row_scheduled:
+                raise document.error(
+                    rows_path + (0,),
+                    f"the first schedule row gives none of the fields a {kind} controller can "
+                    f"schedule ({', '.join(SCHEDULABLE_FIELDS[kind])})",
+                )
     for field_name, spec in mapping.items():
         where = manifest_at("map", field_name)
         if field_name not in known:
@@ -197,11 +268,18 @@ def load_controller(
                 f"map names '{field_name}', which is not a field of a {kind} controller"
                 f"{suggestion(field_name, known)} (fields: {', '.join(known)})",
             )
+        if field_name in row_scheduled:
+            continue  # the rows give it (read with the same map below)
         key, scale = (spec, None) if isinstance(spec, str) else (spec["key"], spec.get("scale"))
         value, rel = resolve_path(
             table, key, document, where, f"map {field_name}", base=table_path
         )
         full = table_path + rel
+        if (scale is not None and schedule_spec is not None and "breakpoints" in schedule_spec
+                and isinstance(value, list)):
+            canonical[field_name] = value  # a scheduled array: scaled element by element
+            sources[field_name] = full
+            continue
         if scale is not None:
             if field_name in _STRING_FIELDS or field_name == "filters":
                 raise InputError.at(where, f"'{field_name}' is not a number; it cannot be scaled")
@@ -220,11 +298,18 @@ def load_controller(
         canonical[field_name] = value
         sources[field_name] = full
     for field_name in known:
+        if field_name in row_scheduled:
+            continue
         if field_name not in canonical and field_name in table:
             canonical[field_name] = table[field_name]
             sources[field_name] = table_path + (field_name,)
     for field_name, full in sources.items():
         _check_finite(document, canonical[field_name], full)
+    schedule = None
+    if schedule_spec is not None:
+        schedule = _read_schedule(schedule_spec, manifest_at, document, kind, table, table_path,
+                                  canonical, sources, mapping, row_scheduled, rows_value,
+                                  rows_path)
 
     def locate(error_path: KeyPath) -> Location:
         if not error_path:
@@ -238,6 +323,15 @@ def load_controller(
         return document.locate(table_path)
 
     validate(document, "controller", instance=canonical, locate=locate)
+    if schedule is not None:  # every breakpoint must make a valid controller
+        for point in schedule.points[1:]:
+            def point_locate(error_path: KeyPath, point=point) -> Location:
+                if error_path and error_path[0] in point.field_locations:
+                    return point.field_locations[error_path[0]]
+                return locate(error_path)
+
+            validate(document, "controller", instance={**canonical, **point.fields},
+                     locate=point_locate)
 
     fields: dict[str, Any] = {}
     field_locations: dict[str, Location] = {
@@ -261,12 +355,55 @@ def load_controller(
         field_locations=field_locations,
         file=document.file,
         path=path,
+        schedule=schedule,
     )
     _check_controller(entry)
     return entry
 
 
+def _read_schedule(spec, manifest_at, document, kind, table, table_path, canonical, sources,
+                   mapping, row_scheduled, rows_value, rows_path):
+    """The binding's schedule; puts breakpoint 1's values into ``canonical``."""
+    if "rows" in spec:
+        points = read_rows(document, rows_value, rows_path, spec["variable"], row_scheduled,
+                           mapping, manifest_at("schedule", "rows"))
+        fields = row_scheduled
+        location = document.locate(rows_path)
+        form = "rows"
+    else:
+        where = manifest_at("schedule", "breakpoints")
+        breakpoints, rel = resolve_path(table, spec["breakpoints"], document, where,
+                                        "schedule breakpoints", base=table_path)
+        breakpoints_path = table_path + rel
+        arrays = {}
+        for field_name in SCHEDULABLE_FIELDS[kind]:
+            value = canonical.get(field_name)
+            if isinstance(value, list):
+                scale = key_and_scale(field_name, mapping)[1] if field_name in mapping else None
+                arrays[field_name] = (value, sources[field_name], scale)
+        points = read_arrays(document, breakpoints, breakpoints_path, arrays,
+                             spec["variable"], where)
+        fields = tuple(arrays)
+        location = document.locate(breakpoints_path)
+        form = "arrays"
+    parameter_key = "plant_parameter" if "plant_parameter" in spec else "variable"
+    schedule = make_schedule(spec, form, fields, points, location, manifest_at("schedule"),
+                             manifest_at("schedule", parameter_key))
+    first = schedule.points[0]
+    for field_name in fields:
+        canonical[field_name] = first.fields[field_name]
+        if form == "rows":
+            key = key_and_scale(field_name, mapping)[0]
+            sources[field_name] = rows_path + (0,) + tuple(
+                int(p) if p.isdigit() else p for p in key.split("."))
+        else:
+            sources[field_name] = sources[field_name] + (0,)
+    return schedule
+
+
 def _check_finite(document: Document, value: Any, path: KeyPath) -> None:
+    if isinstance(value, Unreadable):
+        raise value.error()
     problem = number_problem(value)
     if problem:
         raise document.error(path, problem)

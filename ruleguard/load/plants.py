@@ -128,7 +128,7 @@ def build_entry(
     # fields
     fields: dict[str, Any] = {}
     for key, value in raw.items():
-        if key in ("kind", "parameters", "vary", "description"):
+        if key in ("kind", "parameters", "vary", "description", "operating_range"):
             continue
         field_locations[key] = at(key)
         fields[key] = _convert(value, base + (key,), document, field_locations, key)
@@ -169,6 +169,31 @@ def build_entry(
             )
         vary[vname] = VaryRange(vname, lo, hi, scale, where)
 
+    # operating range (of a scheduling variable)
+    operating_range: dict[str, tuple[float, float, Location]] = {}
+    for oname, pair in raw.get("operating_range", {}).items():
+        where = at("operating_range", oname)
+        if oname not in parameters:
+            hint = suggestion(oname, sorted(parameters))
+            raise InputError.at(
+                where,
+                f"operating_range names '{oname}', which is not a parameter of plant "
+                f"'{name}'{hint}; declare it in parameters (its nominal value) first",
+            )
+        if oname in raw.get("vary", {}):
+            raise InputError.at(
+                where,
+                f"'{oname}' has both an operating_range and a vary range; a scheduling "
+                "variable is set by the schedule, not varied",
+            )
+        lo, hi = float(pair[0]), float(pair[1])
+        if lo > hi:
+            raise InputError.at(
+                where, f"operating_range '{oname}': min ({lo:g}) is above max ({hi:g})"
+            )
+        operating_range[oname] = (lo, hi, where)
+        field_locations[f"operating_range.{oname}"] = where
+
     measured = None
     if kind == "measured_response":
         measured = read_measured(
@@ -189,6 +214,7 @@ def build_entry(
         field_locations=field_locations,
         file=document.file,
         measured=measured,
+        operating_range=operating_range,
     )
     check_entry(entry)
     return entry
@@ -267,6 +293,15 @@ def check_entry(entry: PlantEntry) -> None:
                 raise InputError.at(
                     rng.location,
                     f"with {vname} = {value:g} (vary {vname}.{bound}): {exc.message}",
+                ) from None
+    for oname, (low, high, where) in entry.operating_range.items():
+        for bound, value in (("min", low), ("max", high)):
+            try:
+                _check_at(entry, {oname: value})
+            except InputError as exc:
+                raise InputError.at(
+                    where,
+                    f"with {oname} = {value:g} (operating_range {bound}): {exc.message}",
                 ) from None
 
 

@@ -138,6 +138,8 @@ def _load(root: Path, manifest: Manifest) -> Project:
     for spec in loops:
         _check_loop(spec, plants, by_name)
     _check_cycles(loops, by_name)
+    for spec in loops:
+        _check_schedule(spec, plants, by_name)
     if manifest.variants.mode == "corners":
         for spec in loops:
             _check_corners(spec, plants, by_name)
@@ -202,6 +204,39 @@ def _check_loop(spec: LoopSpec, plants: dict, by_name: dict) -> None:
             raise InputError.at(
                 location, f"bounds for '{field_name}': min ({low:g}) is above max ({high:g})"
             )
+
+
+def _check_schedule(spec: LoopSpec, plants: dict, by_name: dict) -> None:
+    """A schedule's variable is a parameter of the loop's plant, not varied; no
+    scheduled loop is the inner loop of a cascade."""
+    if spec.inner is not None and by_name[spec.inner].controller.schedule is not None:
+        raise InputError.at(
+            spec.field_locations["inner"],
+            f"inner loop '{spec.inner}' has a gain schedule; a scheduled loop cannot be the "
+            "inner loop of a cascade yet (check it on its own)",
+        )
+    schedule = spec.controller.schedule
+    if schedule is None:
+        return
+    entry = plants[spec.plant]
+    where = schedule.parameter_location
+    name = schedule.plant_parameter
+    if name not in entry.parameters:
+        known = sorted(entry.parameters)
+        hint = suggestion(name, known)
+        raise InputError.at(
+            where,
+            f"unknown scheduling variable '{name}': plant '{entry.name}' ({entry.file} line "
+            f"{entry.location.line}) has no parameter of that name{hint} (parameters: "
+            f"{', '.join(known) or 'none'}); declare it in the plant's parameters with its "
+            "nominal value and use it in the plant's expressions",
+        )
+    if name in entry.vary:
+        raise InputError.at(
+            entry.vary[name].location,
+            f"'{name}' is the scheduling variable of loop '{spec.name}' and cannot also be "
+            "varied; the schedule sets it at each breakpoint",
+        )
 
 
 def _check_cycles(loops: list[LoopSpec], by_name: dict) -> None:

@@ -52,10 +52,15 @@ MAX_FILE_BYTES = 2 * 1024 * 1024
 __all__ = [
     "MAX_FILE_BYTES",
     "Document",
+    "FIRMWARE_FORMATS",
     "KeyPath",
+    "Unreadable",
     "format_key",
+    "located_document",
     "parse_text",
+    "firmware_format_of",
     "read_document",
+    "read_firmware",
     "read_text",
     "resolve_inside",
     "tomllib",
@@ -75,7 +80,9 @@ class Document:
     text:
         The file's text (for source excerpts in reports).
     fmt:
-        ``"toml"`` or ``"json"``.
+        ``"toml"``, ``"json"``, or for firmware files also ``"c"``,
+        ``"yaml"``, ``"keyvalue"`` (those readers fill the source map when
+        they parse, see :func:`located_document`).
     """
 
     file: str
@@ -128,6 +135,30 @@ class Document:
             else:
                 return default
         return node
+
+
+@dataclass(frozen=True)
+class Unreadable:
+    """A symbol a firmware reader found but takes no value from.
+
+    A C header holds much that is no parameter (function-like macros, calls,
+    macros built from other macros); such a symbol is kept with the reason
+    and becomes an input error only when a binding uses it.
+    """
+
+    location: Location
+    message: str
+
+    def error(self) -> InputError:
+        return InputError.at(self.location, self.message)
+
+
+def located_document(
+    name: str, text: str, fmt: str, data: Any, positions: Mapping[KeyPath, tuple[int, int]]
+) -> Document:
+    """A :class:`Document` whose source map a reader built while parsing."""
+    source_map = {(): (1, 1), **positions}
+    return Document(name, data, text, fmt, {"map": source_map})
 
 
 # --------------------------------------------------------------------------- paths
@@ -240,7 +271,10 @@ def read_text(
 
 def _kind_of(name: str) -> str:
     suffix = PurePosixPath(name).suffix.lower()
-    return {".toml": "TOML", ".json": "JSON", ".csv": "CSV"}.get(suffix, "text")
+    return {
+        ".toml": "TOML", ".json": "JSON", ".csv": "CSV", ".h": "C", ".hpp": "C", ".c": "C",
+        ".yaml": "YAML", ".yml": "YAML", ".params": "parameter", ".cfg": "parameter",
+    }.get(suffix, "text")
 
 
 def format_of(name: str, origin: Location | None = None) -> str:
@@ -381,3 +415,66 @@ def _parse_json(name: str, text: str) -> Any:
         raise InputError(name, line, column, key, "JSON nesting is too deep") from None
 
 
+
+
+# --------------------------------------------------------------------------- firmware
+
+#: Formats a controller binding may read, and the extensions that imply each.
+FIRMWARE_FORMATS: Mapping[str, tuple[str, ...]] = {
+    "toml": (".toml",),
+    "json": (".json",),
+    "c": (".h", ".hpp", ".c"),
+    "yaml": (".yaml", ".yml"),
+    "keyvalue": (".params", ".cfg"),
+}
+
+
+def firmware_format_of(name: str, declared: str | None, origin: Location | None = None) -> str:
+    """The format of a firmware file: ``declared`` (the binding's ``format``) or by extension."""
+    if declared is not None:
+        return declared
+    suffix = PurePosixPath(name).suffix.lower()
+    for fmt, suffixes in FIRMWARE_FORMATS.items():
+        if suffix in suffixes:
+            return fmt
+    known = ", ".join(s for suffixes in FIRMWARE_FORMATS.values() for s in suffixes)
+    raise _origin_error(
+        origin,
+        name,
+        f"'{name}': unknown file type '{suffix}'; expected one of {known}, or give the "
+        'format in the binding (format = "c", "yaml", "keyvalue", "toml" or "json")',
+    )
+
+
+def read_firmware(
+    root: str | Path,
+    rel_path: str,
+    origin: Location | None = None,
+    fmt: str | None = None,
+    macros: Mapping[str, int] | None = None,
+) -> Document:
+    """Read, contain and parse a firmware file in any of :data:`FIRMWARE_FORMATS`.
+
+    ``fmt`` overrides the extension; ``macros`` chooses ``#if`` branches of a
+    C file (:mod:`ruleguard.load.c_source`). The readers of C, YAML and
+    key-value files are imported on first use only.
+    """
+    resolve_inside(root, rel_path, origin)
+    fmt = firmware_format_of(str(rel_path), fmt, origin)
+    name, text = read_text(root, rel_path, origin, MAX_FILE_BYTES)
+    if fmt in ("toml", "json"):
+        return parse_text(name, text, fmt)
+    try:
+        if fmt == "c":
+            from ruleguard.load.c_source import parse_c
+
+            return parse_c(name, text, macros)
+        if fmt == "yaml":
+            from ruleguard.load.yaml_source import parse_yaml
+
+            return parse_yaml(name, text)
+        from ruleguard.load.keyvalue_source import parse_keyvalue
+
+        return parse_keyvalue(name, text)
+    except InputError as exc:
+        raise exc.with_excerpt(text) from None

@@ -61,6 +61,9 @@ class PlantEntry:
     field_locations: Mapping[str, Location]
     file: str
     measured: MeasuredData | None = None
+    #: ``operating_range = { speed_mps = [0, 30] }``: the range of a parameter
+    #: the plant is operated over (a scheduling variable), with its location.
+    operating_range: Mapping[str, tuple[float, float, Location]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -72,6 +75,55 @@ class FilterEntry:
     location: Location
     field_locations: Mapping[str, Location]
     index: int
+
+
+@dataclass(frozen=True)
+class SchedulePoint:
+    """One breakpoint of a gain schedule (a row, or one element of each array).
+
+    ``number`` is 1-based in the order of the file (which must be increasing
+    in ``value``); ``fields`` holds the scheduled controller fields at this
+    point (canonical names, after ``map``/``scale``), ``field_locations``
+    the firmware's own element of each, ``value_location`` the element of the
+    scheduling variable.
+    """
+
+    number: int
+    value: float
+    fields: Mapping[str, float]
+    location: Location
+    value_location: Location
+    field_locations: Mapping[str, Location]
+
+
+@dataclass(frozen=True)
+class Schedule:
+    """A gain schedule: controller fields tabulated over a scheduling variable.
+
+    ``form`` is ``"rows"`` (an array of tables, one per breakpoint) or
+    ``"arrays"`` (a breakpoint array and one array per scheduled field).
+    ``plant_parameter`` is the parameter of the loop's plant entry that the
+    scheduling variable sets (by default its own name).
+    """
+
+    variable: str
+    plant_parameter: str
+    form: str
+    fields: tuple[str, ...]
+    points: tuple[SchedulePoint, ...]
+    location: Location
+    binding_location: Location
+    #: The manifest key that names the plant parameter (``plant_parameter``,
+    #: else ``variable``).
+    parameter_location: Location
+
+    @property
+    def low(self) -> float:
+        return self.points[0].value
+
+    @property
+    def high(self) -> float:
+        return self.points[-1].value
 
 
 @dataclass(frozen=True)
@@ -90,6 +142,7 @@ class ControllerEntry:
     field_locations: Mapping[str, Location]
     file: str
     path: str
+    schedule: Schedule | None = None
 
 
 @dataclass(frozen=True)

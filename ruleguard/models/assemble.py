@@ -67,6 +67,7 @@ Cascades (``inner = "name"``)
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -137,6 +138,7 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
     if spec.name in chain:
         raise InputError.at(spec.field_locations.get("inner", spec.location),
                             f"cascade cycle: {' -> '.join((*chain, spec.name))}")
+    spec = at_operating_point(spec, variant)
     rate = spec.sample_rate_hz
     h = None if rate is None else 1.0 / float(rate)
     if h is not None and not (math.isfinite(h) and h > 0):
@@ -223,6 +225,23 @@ def _build(project: Project, spec: LoopSpec, variant: Variant, chain: tuple[str,
         inner=inner_model,
     )
     return _Built(model, forward)
+
+
+def at_operating_point(spec: LoopSpec, variant: Variant) -> LoopSpec:
+    """The loop with its controller's scheduled fields set to the variant's operating point.
+
+    The controller then stands at the point's row (or breakpoint element):
+    its ``location`` and the scheduled fields' locations are those of the
+    point. Loops without a schedule are returned unchanged.
+    """
+    point = getattr(variant, "operating_point", None)
+    controller = spec.controller
+    if point is None or controller.schedule is None:
+        return spec
+    fields = {**controller.fields, **point.fields}
+    locations = {**controller.field_locations, **point.field_locations}
+    return dataclasses.replace(spec, controller=dataclasses.replace(
+        controller, fields=fields, field_locations=locations, location=point.location))
 
 
 def _controller_side(spec: LoopSpec, h: float | None, notes: list[str]

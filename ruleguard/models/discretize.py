@@ -535,6 +535,10 @@ def zoh_equivalent(
     systems", Automatica 18(4), 1982.
     """
     h = _check_sample_time(sample_time_s)
+    if isinstance(block, Factored):
+        fast = _modal_equivalent(block, h, delay_s)
+        if fast is not None:
+            return fast
     dss = zoh_state_space(block, h, delay_s)
     if isinstance(block, Factored):
         cont_poles = block.poles
@@ -608,6 +612,30 @@ def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
     return np.concatenate([real, paired, np.conj(paired)])
 
 
+def _fit_angles() -> np.ndarray:
+    """Points ``theta = w h`` of the gain fit: from near ``z = 1`` up to the Nyquist point."""
+    return np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+
+
+def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, theta: np.ndarray,
+                     target: np.ndarray) -> tuple[float, float, np.ndarray]:
+    """Least-squares real gain, its largest relative misfit, and the points used."""
+    x = 1j * theta
+    with np.errstate(all="ignore"):
+        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
+    mag = np.abs(target)
+    top = float(np.max(mag, initial=0.0))
+    if top == 0.0:
+        return 0.0, 0.0, np.zeros(theta.shape, dtype=bool)
+    keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
+    if not np.any(keep):
+        keep = mag >= 0.5 * top
+    ratio = shape[keep] / target[keep]
+    gain = float(np.real(np.sum(np.conj(ratio))) / np.sum(np.abs(ratio) ** 2))
+    resid = float(np.max(np.abs(gain * ratio - 1.0)))
+    return gain, resid, keep
+
+
 def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> float:
     """Real gain matching ``dss`` on the unit circle, in the relative sense.
 
@@ -619,21 +647,10 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
     rest (``s`` the factored shape, ``t`` the realization).
     """
     h = dss.sample_time_s
-    theta = np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+    theta = _fit_angles()
     x = 1j * theta
     target = dss._evaluate(np.exp(x), np.expm1(x))
-    with np.errstate(all="ignore"):
-        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
-    mag = np.abs(target)
-    top = float(np.max(mag, initial=0.0))
-    if top == 0.0:
-        return 0.0
-    keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
-    if not np.any(keep):
-        keep = mag >= 0.5 * top
-    ratio = shape[keep] / target[keep]
-    gain = float(np.real(np.sum(np.conj(ratio))) / np.sum(np.abs(ratio) ** 2))
-    resid = float(np.max(np.abs(gain * ratio - 1.0)))
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, theta, target)
     if not resid <= 1e-5:
         warnings.warn(
             f"zero-order-hold equivalent: the factored form reproduces the state-space "
@@ -642,6 +659,45 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
             stacklevel=3,
         )
     return gain
+
+
+def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | None:
+    """The ZOH equivalent by sampled modes (:mod:`ruleguard.models.modal_hold`), or None.
+
+    ``None`` (use the exponential of the augmented realization instead) when
+    the poles are not distinct, when the modal sum amplifies rounding by more
+    than :data:`~ruleguard.models.modal_hold.MODAL_AMPLIFICATION_LIMIT`, or
+    when the factored result misses the modal sum by more than
+    :data:`~ruleguard.models.modal_hold.MODAL_MISFIT_LIMIT`.
+    """
+    from ruleguard.models import modal_hold as mh
+
+    if block.is_discrete or not block.is_proper or block.poles.size == 0:
+        return None
+    whole, fraction = split_delay(block.delay_s + float(delay_s), h)
+    modes = mh.modal_hold(block, h, whole, fraction)
+    if modes is None:
+        return None
+    theta = _fit_angles()
+    x = 1j * theta
+    target, amplification = modes.evaluate_with_amplification(np.exp(x), np.expm1(x))
+    mag = np.abs(target)
+    top = float(np.max(mag, initial=0.0))
+    if not (top > 0.0 and np.isfinite(top)):
+        return None
+    # every point counts (also the deep roll-off): the zeros are computed from
+    # the same numbers and must hold their digits where |H| is small too
+    if not float(np.max(amplification)) <= mh.MODAL_AMPLIFICATION_LIMIT:
+        return None
+    a, b, c, d, shifted = modes.real_realization()
+    dss = DiscreteStateSpace(a, b, c, d, h, whole, shifted)
+    poles = np.exp(block.poles * h)
+    poles = np.concatenate([poles, np.zeros(int(modes.fraction) + whole, complex)])
+    zeros = discrete_zeros(dss)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, theta, target)
+    if not resid <= mh.MODAL_MISFIT_LIMIT:
+        return None
+    return Factored(zeros, poles, gain, 0.0, h)
 
 
 def _as_state_space(block: Factored | StateSpace) -> tuple[StateSpace, float]:

@@ -43,6 +43,7 @@ import numpy as np
 from ruleguard.errors import InputError
 from ruleguard.load.spec import LoopSpec, PlantEntry, Project, VaryRange
 from ruleguard.models.fieldvalues import resolve_parameters, to_float
+from ruleguard.models.schedules import OperatingPoint, nominal_point, operating_points
 
 #: Largest number of corners (FORMATS.md section 2).
 MAX_CORNER_PARAMETERS = 10
@@ -57,7 +58,9 @@ class Variant:
     Attributes
     ----------
     id:
-        ``"nominal"``, ``"corner-<k>"`` or ``"sample-<k>"`` (1-based).
+        ``"nominal"``, ``"corner-<k>"`` or ``"sample-<k>"`` (1-based); for a
+        scheduled loop also ``"schedule-<k>"``, ``"schedule-<k>.5"`` and
+        those crossed with the plant family (``"schedule-2/corner-3"``).
     parameters:
         Qualified name (``"entry.param"``) -> value, sorted by name; every
         varied name of the loop's entries (the nominal values for the
@@ -66,6 +69,8 @@ class Variant:
 
     id: str
     parameters: Mapping[str, float] = field(default_factory=dict)
+    #: The schedule point of a scheduled loop's variant (``None`` otherwise).
+    operating_point: OperatingPoint | None = None
 
     def values_for(self, entry_name: str) -> dict[str, float]:
         """This variant's values of one entry, by unqualified name."""
@@ -155,11 +160,56 @@ def _nominal(entry: PlantEntry, name: str, rng: VaryRange, env: Mapping[str, flo
 def loop_variants(project: Project, spec: LoopSpec) -> tuple[Variant, ...]:
     """The variants of one loop, nominal first (see the module documentation).
 
+    A scheduled loop's variants are :func:`scheduled_variants` of its plant
+    family's.
+
     Raises
     ------
     InputError
         More than ``2**10`` corners, a bad range, or an unknown entry.
     """
+    family = family_variants(project, spec)
+    if spec.controller.schedule is not None:
+        return scheduled_variants(project, spec, family)
+    return family
+
+
+def scheduled_variants(
+    project: Project, spec: LoopSpec, family: tuple[Variant, ...]
+) -> tuple[Variant, ...]:
+    """A scheduled loop's variants: its operating points crossed with the plant family.
+
+    First ``nominal``: the plant's nominal parameters at the nominal value of
+    the scheduled parameter, with the gains interpolated there
+    (:func:`ruleguard.models.schedules.nominal_point`). Then, in increasing
+    scheduling value, every breakpoint ``k`` and midpoint ``k.5``, each
+    crossed with the family (nominal first): ``schedule-k`` at the nominal
+    plant, ``schedule-k/corner-j`` (or ``/sample-j``) at the family's other
+    members. Every variant's ``parameters`` include the scheduled parameter
+    qualified by the plant entry (``pitch_plant.speed_mps``).
+    """
+    schedule = spec.controller.schedule
+    entry = project.plants[spec.plant]
+    qualified = f"{entry.name}.{schedule.plant_parameter}"
+    env = resolve_parameters(entry.parameters, {}, entry.location)
+    nominal_value = env[schedule.plant_parameter]
+
+    def with_value(parameters: Mapping[str, float], value: float) -> dict[str, float]:
+        merged = {**parameters, qualified: float(value)}
+        return {k: merged[k] for k in sorted(merged)}
+
+    variants = [Variant(NOMINAL_ID, with_value(family[0].parameters, nominal_value),
+                        nominal_point(schedule, nominal_value))]
+    for point in operating_points(schedule):
+        for member in family:
+            suffix = "" if member.id == NOMINAL_ID else f"/{member.id}"
+            variants.append(Variant(f"schedule-{point.label}{suffix}",
+                                    with_value(member.parameters, point.value), point))
+    return tuple(variants)
+
+
+def family_variants(project: Project, spec: LoopSpec) -> tuple[Variant, ...]:
+    """The plant family's variants of one loop (nominal, corners or samples)."""
     params = varied_parameters(project, spec)
     nominal = Variant(NOMINAL_ID, {p.qualified_name: p.nominal for p in params})
     if not params:

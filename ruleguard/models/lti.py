@@ -27,6 +27,9 @@ import numpy as np
 #: ``|p| <= BOUNDARY_ATOL``; a discrete pole when ``| |p| - 1 | <= BOUNDARY_RTOL``.
 BOUNDARY_RTOL = 1e-9
 BOUNDARY_ATOL = 1e-12
+#: Evaluations of at most this many (points x factors) use one broadcast
+#: product instead of a loop over the factors (fewer numpy calls per point).
+_BROADCAST_LIMIT = 4096
 
 
 def _as_complex_vector(values, name: str) -> np.ndarray:
@@ -101,8 +104,25 @@ class Factored:
         so that high orders neither overflow nor underflow.
         """
         x = np.asarray(x, dtype=complex)
-        out = np.full(x.shape, self.gain, dtype=complex)
         nz, npl = self.zeros.size, self.poles.size
+        if x.size * (nz + npl + 1) <= _BROADCAST_LIMIT:
+            # few points (root finders, peak refinement): one broadcast product
+            # of the same factors in the same order (gain, zero/pole ratios,
+            # unpaired zeros, unpaired poles), multiplied left to right
+            k = min(nz, npl)
+            xe = x[..., None]
+            parts = [np.full(x.shape + (1,), self.gain, dtype=complex)]
+            if k:
+                parts.append((xe - self.zeros[:k]) / (xe - self.poles[:k]))
+            if nz > k:
+                parts.append(xe - self.zeros[k:])
+            if npl > k:
+                parts.append(1.0 / (xe - self.poles[k:]))
+            out = np.multiply.reduce(np.concatenate(parts, axis=-1), axis=-1)
+            if self.delay_s:
+                out = out * np.exp(-x * self.delay_s)
+            return out
+        out = np.full(x.shape, self.gain, dtype=complex)
         for i in range(max(nz, npl)):
             if i < nz and i < npl:
                 out = out * ((x - self.zeros[i]) / (x - self.poles[i]))

@@ -64,6 +64,10 @@ def config_bounds(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
                 )
             )
             continue
+        schedule = getattr(ctx.spec.controller, "schedule", None)
+        if schedule is not None and name in schedule.fields:
+            out.extend(_scheduled_bounds(ctx, schedule, name, low, high, declared, path))
+            continue
         value = as_number(raw)
         if value is None:
             out.append(
@@ -103,6 +107,42 @@ def config_bounds(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Viola
     return out
 
 
+def _scheduled_bounds(ctx, schedule, name, low, high, declared, path) -> list[Violation]:
+    """A scheduled field's bounds at every breakpoint: the farthest one outside, at its row."""
+    worst = None
+    for point in schedule.points:
+        value = point.fields[name]
+        if low is not None and value < float(low):
+            excess, limit, side = float(low) - value, float(low), "below the minimum"
+        elif high is not None and value > float(high):
+            excess, limit, side = value - float(high), float(high), "above the maximum"
+        else:
+            continue
+        if worst is None or excess > worst[0]:
+            worst = (excess, limit, side, point)
+    if worst is None:
+        return []
+    _, limit, side, point = worst
+    unit = unit_of_field(name)
+    suffix = f" {unit}" if unit else ""
+    return [Violation(
+        variant=None,
+        message=(
+            f"`{name}` = {format_number(point.fields[name], 6)}{suffix} at schedule breakpoint "
+            f"{point.number} ({schedule.variable} = {format_number(point.value, 6)}) is {side} "
+            f"{format_number(limit, 6)}{suffix} (bounds [{format_number(low, 6)}, "
+            f"{format_number(high, 6)}] declared for loop {ctx.spec.name})"
+        ),
+        measured=point.fields[name],
+        limit=limit,
+        unit=unit,
+        frequency_hz=None,
+        location=point.field_locations.get(name, point.location),
+        related=(declared,),
+        key_path=path,
+    )]
+
+
 RULES: tuple[RuleSpec, ...] = (
     RuleSpec(
         id="config.bounds",
@@ -114,7 +154,8 @@ RULES: tuple[RuleSpec, ...] = (
             "lies in [min, max], ends included. Names are ruleguard's field names after "
             "`map` (so `kp` even when the firmware calls it `P`); `filters.<i>.<field>` "
             "reaches a filter entry. A name the controller does not set, or a value that is "
-            "not a number, gets a note.\n\n"
+            "not a number, gets a note. A field a gain schedule tabulates is checked at "
+            "every breakpoint (the farthest outside is reported, at its row).\n\n"
             "Why it matters: bounds record what a review accepted, what an actuator or a "
             "fixed-point format can hold, or what a safety analysis assumed. A retune that "
             "leaves them is caught at commit time, not on the machine.\n\n"

@@ -34,6 +34,7 @@ FAMILY_MODULES: tuple[str, ...] = (
     "steady_state",
     "bounds",
     "masks",
+    "schedule",
 )
 
 

@@ -30,6 +30,7 @@ from ruleguard.errors import InputError
 from ruleguard.location import Location
 from ruleguard.rules.base import Finding, LoopContext, Severity, Violation
 from ruleguard.rules.catalog import RULES, UnknownRule, check_patterns, is_selected, matches
+from ruleguard.rules.locations import at_operating_point
 from ruleguard.rules.spec import Adjustment, ParameterValues, Ruleset, RuleSetting, Waiver
 
 CLOSED_LOOP = "stability.closed-loop"
@@ -280,6 +281,7 @@ def iter_findings(
                 severity = effective.severity
                 violations = RULES[rule_id].function(ctx, effective.parameters)
             for violation in violations:
+                violation = at_operating_point(ctx, violation)
                 waiver = next((w for w in active if waiver_applies(w, rule_id, name)), None)
                 if waiver is not None:
                     hits[id(waiver)] += 1

@@ -48,7 +48,7 @@ from ruleguard.rules.locations import (
     key,
     plant_location,
 )
-from ruleguard.rules.responses import refine_maximum
+from ruleguard.rules.responses import refine_maxima
 from ruleguard.rules.spec import Parameter, RuleSpec
 
 #: Filter fields that place a filter in frequency (FORMATS.md section 3).
@@ -209,21 +209,41 @@ def plant_resonances(
     return out
 
 
-def _peak_db(open_loop, w_peak: float, zeta: float) -> tuple[float, float]:
-    """``(w, |L| dB)`` at the largest |L| across a resonance at ``w_peak`` (refined)."""
-    half = min(max(4.0 * abs(zeta), 1e-4), 0.9)
+def _peaks_db(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[float, float]]:
+    """``(w, |L| dB)`` at the largest |L| across each resonance ``(w_peak, zeta)``, refined.
+
+    Every resonance is sampled at 801 points across ``w_peak (1 +- 4 zeta)``
+    (one evaluation for all of them); each grid maximum is then refined
+    between its neighbours by :func:`ruleguard.rules.responses.refine_maxima`.
+    """
+    if not resonances:
+        return []
     top = open_loop.w_max
-    lo = w_peak * (1.0 - half)
-    hi = min(w_peak * (1.0 + half), top) if math.isfinite(top) else w_peak * (1.0 + half)
-    w = np.unique(np.concatenate([np.linspace(lo, hi, 801), [min(w_peak, hi)]]))
-    w = w[w > 0]
+    grids = []
+    for w_peak, zeta in resonances:
+        half = min(max(4.0 * abs(zeta), 1e-4), 0.9)
+        lo = w_peak * (1.0 - half)
+        hi = min(w_peak * (1.0 + half), top) if math.isfinite(top) else w_peak * (1.0 + half)
+        w = np.unique(np.concatenate([np.linspace(lo, hi, 801), [min(w_peak, hi)]]))
+        grids.append(w[w > 0])
 
     def values(x):
         return np.nan_to_num(db(open_loop.response(x)), nan=-np.inf)
 
-    y = values(w)
-    i = int(np.argmax(y))
-    return refine_maximum(values, w, y, i)
+    sizes = [g.size for g in grids]
+    y_all = values(np.concatenate(grids))
+    lo, hi, w0, y0 = [], [], [], []
+    start = 0
+    for w, n in zip(grids, sizes, strict=True):
+        y = y_all[start:start + n]
+        start += n
+        i = int(np.argmax(y))
+        lo.append(w[max(i - 1, 0)])
+        hi.append(w[min(i + 1, w.size - 1)])
+        w0.append(w[i])
+        y0.append(y[i])
+    w_at, peak = refine_maxima(values, np.array(lo), np.array(hi), np.array(w0), np.array(y0))
+    return [(float(a), float(b)) for a, b in zip(w_at, peak, strict=True)]
 
 
 def _responsible_filter(ctx: LoopContext, resonance_hz: float) -> tuple[Any, int | None]:
@@ -265,10 +285,10 @@ def resonance_coverage(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[
             modes.sort()
         crossings = [c.hz for c in ev.analysis.margins.crossovers if c.hz is not None]
         f_c = min(crossings) if crossings else 0.0
-        for k, (wn, zeta, w_peak) in enumerate(modes):
-            if wn / (2.0 * math.pi) <= f_c:
-                continue
-            w_at, peak_db = _peak_db(model.open_loop, w_peak, zeta)
+        above = [(k, wn, zeta, w_peak) for k, (wn, zeta, w_peak) in enumerate(modes)
+                 if wn / (2.0 * math.pi) > f_c]
+        peaks = _peaks_db(model.open_loop, [(w_peak, zeta) for _, _, zeta, w_peak in above])
+        for (k, wn, zeta, _), (w_at, peak_db) in zip(above, peaks, strict=True):
             best = worst.get(k)
             if best is None or peak_db > best[0]:
                 worst[k] = (peak_db, ev, wn, zeta, w_at, f_c)

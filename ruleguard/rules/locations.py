@@ -16,10 +16,11 @@ they are built from names, never from line numbers or measured values.
 from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
+from dataclasses import replace
 from typing import Any
 
 from ruleguard.location import Location
-from ruleguard.rules.base import LoopContext
+from ruleguard.rules.base import LoopContext, Violation
 from ruleguard.rules.spec import threshold_location
 
 
@@ -108,3 +109,39 @@ def key(*parts: str) -> str:
     Used by the other rule families, usually starting from a location's key.
     """
     return ".".join(p for p in parts if p)
+
+
+def at_operating_point(ctx: LoopContext, violation: Violation) -> Violation:
+    """A scheduled loop's violation moved to the schedule row of its variant.
+
+    A violation of variant ``schedule-3`` (or ``schedule-3/corner-2``) that
+    points at the controller table, or at one of its scheduled fields, points
+    at breakpoint 3's row (or array element, or that field's element)
+    instead; the controller table and, for an interpolated point, the other
+    breakpoint it depends on become related locations. Anything else is
+    returned unchanged.
+    """
+    controller = ctx.spec.controller
+    if getattr(controller, "schedule", None) is None or violation.variant is None:
+        return violation
+    point = None
+    for evaluation in ctx.evaluations:
+        if getattr(evaluation.variant, "id", None) == violation.variant:
+            point = getattr(evaluation.variant, "operating_point", None)
+            break
+    if point is None:
+        return violation
+    location = violation.location
+    moved = None
+    if location == controller.location:
+        moved = point.location
+    else:
+        for name, where in controller.field_locations.items():
+            if where == location and name in point.field_locations:
+                moved = point.field_locations[name]
+                break
+    if moved is None or moved == location:
+        return violation
+    related = [*point.related, controller.location]
+    related += [loc for loc in violation.related if loc not in related]
+    return replace(violation, location=moved, related=tuple(related))
