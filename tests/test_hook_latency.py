@@ -211,5 +211,6 @@ def test_timings_of_a_warm_run_count_cache_hits(demo):
     base = ["check", "--manifest", str(demo / "ruleguard.toml"), "--as-of", AS_OF]
     _run(base)
     _, _, err = _run([*base, "--timings"])
-    assert "loops from the cache: 7" in err
+    loops = (demo / "ruleguard.toml").read_text(encoding="utf-8").count("[[loops]]")
+    assert f"loops from the cache: {loops}" in err
     assert "loops analysed: 0" in err
