@@ -19,6 +19,13 @@ be deleted at any time. Entries are JSON (never pickle) and name the version
 that wrote them; an entry from another version, or one that cannot be read
 or parsed, is a miss. The cache never writes outside its folder, so never to
 an input; a cache folder that is a symlink or not a folder disables it.
+
+The same folder keeps ``validated.json``: the digests of input values that
+passed their JSON Schema (:class:`ValidatedDocuments`,
+:func:`ruleguard.load.validation.validation_digest`: ruleguard version,
+schema text and value). A file whose content passed once is not validated
+again; a changed file is. Like the entries, the memo is trusted only from
+the version that wrote it.
 """
 
 from __future__ import annotations
@@ -50,6 +57,9 @@ CACHEDIR_TAG = (
     "# For information about cache directory tags see https://bford.info/cachedir/\n"
 )
 MAX_ENTRIES = 2000
+VALIDATED_FILE = "validated.json"
+#: Most digests ``validated.json`` keeps (the ones used most recently).
+MAX_VALIDATED = 5000
 
 
 class LoopCache:
@@ -208,7 +218,10 @@ class LoopCache:
 
     def _prune(self, keep: int | None = None) -> None:
         keep = MAX_ENTRIES if keep is None else keep
-        entries = [p for p in self.folder.glob("*.json") if not p.name.startswith(".")]
+        entries = [
+            p for p in self.folder.glob("*.json")
+            if not p.name.startswith(".") and p.name != VALIDATED_FILE
+        ]
         if len(entries) <= keep:
             return
         entries.sort(key=lambda p: p.stat().st_mtime)
@@ -225,10 +238,80 @@ class LoopCache:
             if path.is_file() and (
                 path.suffix == ".json" or path.name in (".gitignore", "CACHEDIR.TAG")
             ):
-                removed += path.suffix == ".json"
+                removed += path.suffix == ".json" and path.name != VALIDATED_FILE
                 path.unlink(missing_ok=True)
         try:
             self.folder.rmdir()
         except OSError:
             pass
         return removed
+
+
+class ValidatedDocuments:
+    """The digests of input values that passed their schema, kept in the cache folder.
+
+    A :class:`~ruleguard.load.validation.ValidationMemo`: read once from
+    ``validated.json`` (a missing, unreadable or other-version file is an
+    empty memo), extended while a project loads, written back by
+    :meth:`save` when it learnt something. The digests of this run come
+    last, so pruning to :data:`MAX_VALIDATED` drops the least recent.
+    """
+
+    def __init__(self, cache: LoopCache) -> None:
+        self.cache = cache
+        self._known: dict[str, None] = {}
+        self._used: dict[str, None] = {}
+        self._learnt = False
+        if cache.enabled and cache._usable_folder():
+            self._known = dict.fromkeys(self._read())
+
+    def _read(self) -> list[str]:
+        try:
+            data = json.loads((self.cache.folder / VALIDATED_FILE).read_text(encoding="utf-8"))
+            if data.get("cache_format") != CACHE_FORMAT or data.get("tool_version") != __version__:
+                return []
+            return [d for d in data["digests"] if isinstance(d, str)]
+        except (OSError, ValueError, KeyError, TypeError, AttributeError):
+            return []
+
+    def __contains__(self, digest: object) -> bool:
+        if digest in self._known:
+            self._used[digest] = None  # type: ignore[index]
+            return True
+        return False
+
+    def add(self, digest: str) -> None:
+        """Remember that the value with ``digest`` passed its schema."""
+        if digest not in self._known:
+            self._known[digest] = None
+            self._learnt = True
+        self._used[digest] = None
+
+    def save(self, inputs=()) -> None:
+        """Write the memo back when it learnt a digest (silently skipped when
+        the folder cannot be used, or when ``inputs``, the project's input
+        files, include a file in the cache folder)."""
+        if not (self._learnt and self.cache.enabled and self.cache._usable_folder()):
+            return
+        self.cache._inputs |= set(inputs)
+        if f"{CACHE_FOLDER}/{VALIDATED_FILE}" in self.cache._inputs:
+            return
+        order = [d for d in self._known if d not in self._used] + list(self._used)
+        entry = {
+            "cache_format": CACHE_FORMAT,
+            "tool_version": __version__,
+            "digests": order[-MAX_VALIDATED:],
+        }
+        try:
+            self.cache._prepare_folder()
+            fd, tmp = tempfile.mkstemp(dir=self.cache.folder, prefix=".tmp-", suffix=".json")
+            try:
+                with os.fdopen(fd, "w", encoding="utf-8") as handle:
+                    handle.write(json.dumps(entry))
+                os.replace(tmp, self.cache.folder / VALIDATED_FILE)
+            except BaseException:
+                Path(tmp).unlink(missing_ok=True)
+                raise
+        except OSError:
+            return
+        self._learnt = False

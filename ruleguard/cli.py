@@ -95,6 +95,11 @@ def _build_parser() -> _Parser:
         help="scheduler of --executor dask (default: a local cluster of --jobs workers)",
     )
     check.add_argument(
+        "--timings",
+        action="store_true",
+        help="print the seconds spent in each stage of the run to stderr",
+    )
+    check.add_argument(
         "--as-of",
         metavar="YYYY-MM-DD",
         help="evaluate waiver expiry as of this date (default: today, UTC)",
@@ -215,8 +220,20 @@ def _parse_date(text: str | None) -> _dt.date:
 
 
 def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
-    from ruleguard.pipeline import CheckOptions, check_project
+    from ruleguard.timings import StageClock, recording, render_table
+
+    clock = StageClock() if args.timings else None
+    with recording(clock):
+        code = _run_check(args, stdout, stderr, clock)
+    if clock is not None:
+        stderr.write(render_table(clock))
+    return code
+
+
+def _run_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO, clock) -> int:
+    from ruleguard.pipeline import CheckOptions, RunStatistics, check_project
     from ruleguard.rules.base import Severity
+    from ruleguard.timings import stage
 
     options = CheckOptions(
         only=tuple(args.only),
@@ -232,19 +249,25 @@ def _cmd_check(args: argparse.Namespace, stdout: TextIO, stderr: TextIO) -> int:
         executor=args.executor,
         cluster_address=args.cluster_address,
     )
-    manifest = _manifest_path(args.manifest, tuple(args.files))
+    with stage("load"):
+        manifest = _manifest_path(args.manifest, tuple(args.files))
     progress = _progress_for(stderr, quiet=args.quiet or args.output_format != "text")
-    report = check_project(manifest, options, progress=progress)
+    statistics = RunStatistics()
+    report = check_project(manifest, options, progress=progress, statistics=statistics)
+    if clock is not None:
+        clock.count("loops analysed", statistics.analysed_loops)
+        clock.count("loops from the cache", statistics.cached_loops)
 
-    if args.output:
-        out_path = Path(args.output)
-        _refuse_input_overwrite(out_path, report)
-        text = _render(report, args.output_format, stream=None, quiet=args.quiet)
-        out_path.parent.mkdir(parents=True, exist_ok=True)
-        out_path.write_text(text, encoding="utf-8")
-        stdout.write(_render(report, "text", stream=stdout, quiet=args.quiet))
-    else:
-        stdout.write(_render(report, args.output_format, stream=stdout, quiet=args.quiet))
+    with stage("report"):
+        if args.output:
+            out_path = Path(args.output)
+            _refuse_input_overwrite(out_path, report)
+            text = _render(report, args.output_format, stream=None, quiet=args.quiet)
+            out_path.parent.mkdir(parents=True, exist_ok=True)
+            out_path.write_text(text, encoding="utf-8")
+            stdout.write(_render(report, "text", stream=stdout, quiet=args.quiet))
+        else:
+            stdout.write(_render(report, args.output_format, stream=stdout, quiet=args.quiet))
     return EXIT_FINDINGS if report.failed else EXIT_CLEAN
 
 

@@ -16,6 +16,7 @@ from pathlib import Path
 from ruleguard import __version__
 from ruleguard.errors import InputError, LoopNotAnalysable
 from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
+from ruleguard.timings import stage
 
 #: Progress callback: (loops done, loops in all, name of the loop now).
 Progress = Callable[[int, int, str], None]
@@ -75,20 +76,42 @@ def check_project(
     statistics: RunStatistics | None = None,
 ):
     """Check every (selected) loop of the project at ``manifest``; return the Report."""
-    from ruleguard.load.project import load_project
-    from ruleguard.load.rulesets import load_ruleset
-
     options = options or CheckOptions()
-    project = load_project(Path(manifest))
-    ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+    with stage("load"):
+        from ruleguard.load.project import load_project
+        from ruleguard.load.rulesets import load_ruleset
+        from ruleguard.load.validation import remembering
+
+        memo = _validation_memo(manifest) if options.use_cache else None
+        with remembering(memo):
+            project = load_project(Path(manifest))
+            ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+        if memo is not None:
+            with stage("cache"):
+                memo.save(set(project.texts) | set(_all_inputs(project)))
     return check_loaded(project, ruleset, options, progress=progress, statistics=statistics)
+
+
+def _validation_memo(manifest: str | Path):
+    """The schema-validation memo of the cache folder beside ``manifest``."""
+    from ruleguard.cache import LoopCache, ValidatedDocuments
+
+    with stage("cache"):
+        root = Path(manifest).absolute().parent.resolve()
+        return ValidatedDocuments(LoopCache(root, enabled=True))
+
+
+def _all_inputs(project) -> set[str]:
+    inputs = getattr(project, "inputs", None) or {}
+    return {rel for files in inputs.values() for rel in files}
 
 
 def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, statistics=None):
     """The rest of :func:`check_project`, from a loaded project and ruleset."""
-    from ruleguard.report.model import Report, RuleInfo
-    from ruleguard.rules.catalog import RULES
-    from ruleguard.rules.engine import evaluate
+    with stage("rules"):
+        from ruleguard.report.model import Report, RuleInfo
+        from ruleguard.rules.catalog import RULES
+        from ruleguard.rules.engine import evaluate
 
     stats = statistics if statistics is not None else RunStatistics()
     selected = _selected_loops(project, options)
@@ -119,9 +142,10 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     to_analyse = []
     for spec in specs:
         if cache is not None:
-            key = cache.key_for(project, spec.name, ruleset_print, cache_options)
-            keys[spec.name] = key
-            hit = cache.get(key)
+            with stage("cache"):
+                key = cache.key_for(project, spec.name, ruleset_print, cache_options)
+                keys[spec.name] = key
+                hit = cache.get(key)
             if hit is not None:
                 loop_results[spec.name], cached_findings[spec.name] = hit
                 stats.cached_loops += 1
@@ -147,37 +171,41 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     if progress is not None:
         progress(len(specs), len(specs), "")
 
-    fresh = evaluate(
-        contexts,
-        ruleset,
-        only=options.only,
-        skip=options.skip,
-        today=today,
-        cached=cached_findings,
-    )
+    with stage("rules"):
+        fresh = evaluate(
+            contexts,
+            ruleset,
+            only=options.only,
+            skip=options.skip,
+            today=today,
+            cached=cached_findings,
+        )
     if cache is not None:
         by_loop: dict[str, list[Finding]] = {c.spec.name: [] for c in contexts}
         for f in fresh:
             if f.loop in by_loop:
                 by_loop[f.loop].append(f)
-        for name, found in by_loop.items():
-            if name in keys:  # loops cut short by the time budget are not stored
-                cache.put(keys[name], loop_results[name], tuple(found))
+        with stage("cache"):
+            for name, found in by_loop.items():
+                if name in keys:  # loops cut short by the time budget are not stored
+                    cache.put(keys[name], loop_results[name], tuple(found))
         stats.extra["cache_hits"] = cache.hits
         stats.extra["cache_misses"] = cache.misses
 
     if options.want_curves:  # after the cache is written: curves never enter it
-        for spec in specs:
-            loop_results[spec.name] = with_response_curves(
-                project, spec, loop_results[spec.name], built_models.get(spec.name, {})
-            )
+        with stage("report"):
+            for spec in specs:
+                loop_results[spec.name] = with_response_curves(
+                    project, spec, loop_results[spec.name], built_models.get(spec.name, {})
+                )
 
-    findings = _ordered_findings(specs, fresh, cached_findings)
-    active = _active_rules(ruleset, specs, loop_results, options)
-    rules = tuple(
-        RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
-        for r in RULES.values()
-    )
+    with stage("rules"):
+        findings = _ordered_findings(specs, fresh, cached_findings)
+        active = _active_rules(ruleset, specs, loop_results, options)
+        rules = tuple(
+            RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
+            for r in RULES.values()
+        )
     return Report(
         tool_version=__version__,
         project_name=project.name,

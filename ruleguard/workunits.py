@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 
 from ruleguard.errors import InputError, LoopNotAnalysable, NumericalWarning
 from ruleguard.location import Location
+from ruleguard.timings import stage
 
 #: Most variants in one chunk: large enough that 10,000 variants make a few
 #: dozen tasks rather than 10,000, small enough that results stream back and
@@ -242,8 +243,10 @@ def _variant_analysis(project, spec, variant):
     from ruleguard.analysis.margins import analyse_open_loop
     from ruleguard.models.assemble import build_loop
 
-    model = build_loop(project, spec, variant)
-    inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse_open_loop)
+    with stage("build"):  # recorded when the chunk runs in the recording process
+        model = build_loop(project, spec, variant)
+    with stage("analysis"):
+        inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse_open_loop)
     if inner_reason is not None:
         location = spec.field_locations.get("inner", spec.location)
         stop = LoopStop(inner_reason, "stability.closed-loop", location)
@@ -255,7 +258,9 @@ def _variant_analysis(project, spec, variant):
             "stability.closed-loop",
             spec.controller.location,
         )
-    return model, None, inner_analysis, analyse_open_loop(model.open_loop)
+    with stage("analysis"):
+        analysis = analyse_open_loop(model.open_loop)
+    return model, None, inner_analysis, analysis
 
 
 def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:

@@ -24,6 +24,7 @@ from the catalog defaults (the values ``baseline`` states, so extending
 from __future__ import annotations
 
 import datetime
+import functools
 import math
 import posixpath
 from importlib import resources
@@ -41,8 +42,9 @@ BUILTIN_PREFIX = "<builtin>/"
 _MAX_CHAIN = 32
 
 
+@functools.cache
 def _builtin_folder():
-    """The folder of the built-in rulesets.
+    """The folder of the built-in rulesets (found once per process).
 
     Installed, they are the package data of ``ruleguard.rulesets`` (the
     repository's top-level ``rulesets/``, mapped by pyproject.toml). When the

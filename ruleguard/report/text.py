@@ -17,6 +17,14 @@ Layout (our own):
 Colour only when asked (``color=True``; :func:`wants_color` decides it for a
 stream: a terminal, and ``NO_COLOR`` unset or empty). ``quiet=True`` prints the
 unwaived findings only. Text from the inputs is never read as markup.
+
+The layout is drawn by ``rich``. Without colour, a report whose every piece
+is plain (tables that fit the width, text without tabs, control characters
+or characters whose terminal width may differ from one cell) is written by
+:class:`_PlainOut`, which lays out the same characters without importing
+``rich`` (a third of a warm pre-commit hook's time); anything else goes to
+:class:`_RichOut`. Both draw from the same calls, and the tests compare
+their output.
 """
 
 from __future__ import annotations
@@ -80,62 +88,182 @@ def render(
     relative to it, so a terminal or editor opens them from there; without
     it they are relative to the manifest's folder, as in every machine format.
     """
-    from rich.console import Console
+    if not color:
+        try:
+            return _draw(_PlainOut(width or 100), report, quiet, base_dir)
+        except _NeedsRich:
+            pass
+    return _draw(_RichOut(width or 100, color), report, quiet, base_dir)
 
+
+def _draw(out, report: Report, quiet: bool, base_dir: str | None) -> str:
     prefix = _path_prefix(report.root, base_dir)
-
-    buffer = io.StringIO()
-    console = Console(
-        file=buffer,
-        width=width or 100,
-        force_terminal=color,
-        color_system="standard" if color else None,
-        no_color=not color,
-        highlight=False,
-        emoji=False,
-        markup=False,
-        legacy_windows=False,
-    )
     if not quiet:
-        _heading(console, report)
+        _heading(out, report)
         for loop in report.loops:
-            _loop_block(console, report, loop)
+            _loop_block(out, report, loop)
     active = [f for f in report.findings if not f.waived]
     waived = [f for f in report.findings if f.waived]
     active.sort(key=lambda f: -Severity(f.severity).rank)  # stable: report order within
     if active and not quiet:
-        console.print(_styled(f"findings ({len(active)})", "bold"))
+        out.line([(f"findings ({len(active)})", "bold")], soft_wrap=False)
     for finding in active:
-        _finding_block(console, report, finding, prefix)
+        _finding_block(out, report, finding, prefix)
     if quiet:
-        return buffer.getvalue()
+        return out.text()
     if waived:
-        console.print(_styled(f"waived ({len(waived)})", "bold"))
+        out.line([(f"waived ({len(waived)})", "bold")], soft_wrap=False)
         for finding in waived:
-            _finding_block(console, report, finding, prefix)
-    _result_line(console, report)
-    console.print(_styled(CAUTION, "dim"), soft_wrap=True)
-    return buffer.getvalue()
+            _finding_block(out, report, finding, prefix)
+    _result_line(out, report)
+    out.line([(CAUTION, "dim")])
+    return out.text()
+
+
+# ---------------------------------------------------------------- drawing
+#: A piece of a line: its text and a rich style ("" for none).
+Part = tuple[str, str]
+
+
+class _NeedsRich(Exception):
+    """The plain writer cannot promise rich's layout for this report."""
+
+
+class _RichOut:
+    """Lines and tables drawn by rich (colour, wrapping of what does not fit)."""
+
+    def __init__(self, width: int, color: bool) -> None:
+        from rich.console import Console
+
+        self._buffer = io.StringIO()
+        self._console = Console(
+            file=self._buffer,
+            width=width,
+            force_terminal=color,
+            color_system="standard" if color else None,
+            no_color=not color,
+            highlight=False,
+            emoji=False,
+            markup=False,
+            legacy_windows=False,
+        )
+        self.color = bool(self._console.color_system)
+
+    @staticmethod
+    def _text(parts: list[Part]):
+        from rich.text import Text
+
+        line = Text()
+        for text, style in parts:
+            line.append(text, style)
+        return line
+
+    def line(self, parts: list[Part], *, soft_wrap: bool = True) -> None:
+        if soft_wrap:
+            self._console.print(self._text(parts), soft_wrap=True)
+        else:
+            self._console.print(self._text(parts))
+
+    def blank(self) -> None:
+        self._console.print()
+
+    def table(self, columns: list[tuple[str, str, str]], rows: list[list[Part]]) -> None:
+        """``columns``: (header, justify, style); ``rows``: one Part per cell."""
+        from rich import box
+        from rich.table import Table
+
+        table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1))
+        for header, justify, style in columns:
+            table.add_column(header, justify=justify, style=style)  # type: ignore[arg-type]
+        for row in rows:
+            table.add_row(*(self._text([cell]) for cell in row))
+        self._console.print(table)
+
+    def text(self) -> str:
+        return self._buffer.getvalue()
+
+
+#: Characters beyond Latin-1 that the reports use, one terminal cell each.
+_ONE_CELL = frozenset("…─┆∞−±≤≥→×ΩΔωπ")
+
+
+def _plain_enough(text: str) -> bool:
+    """Text whose every character takes one terminal cell and passes rich unchanged."""
+    return all(
+        " " <= ch <= "~" or ("\u00a0" <= ch < "\u0300" and ch != "\u00ad") or ch in _ONE_CELL
+        for ch in text
+    )
+
+
+class _PlainOut:
+    """The same characters as :class:`_RichOut` without colour, without rich.
+
+    Raises :class:`_NeedsRich` for what it does not lay out the way rich
+    does: a character outside :func:`_plain_enough`, a line without soft
+    wrap or a table wider than ``width``.
+    """
+
+    color = False
+
+    def __init__(self, width: int) -> None:
+        self.width = width
+        self._lines: list[str] = []
+
+    def _join(self, parts: list[Part]) -> str:
+        text = "".join(t for t, _ in parts)
+        for piece in text.split("\n"):
+            if not _plain_enough(piece):
+                raise _NeedsRich
+        return text
+
+    def line(self, parts: list[Part], *, soft_wrap: bool = True) -> None:
+        text = self._join(parts)
+        if not soft_wrap and ("\n" in text or len(text) > self.width or text != text.strip()):
+            raise _NeedsRich
+        self._lines.append(text)
+
+    def blank(self) -> None:
+        self._lines.append("")
+
+    def table(self, columns: list[tuple[str, str, str]], rows: list[list[Part]]) -> None:
+        cells = [[header for header, _, _ in columns]]
+        for row in rows:
+            texts = [self._join([cell]) for cell in row]
+            if any("\n" in t or t != t.strip() for t in texts):
+                raise _NeedsRich
+            cells.append(texts)
+        for header, _, _ in columns:
+            self._join([(header, "")])
+        widths = [max(len(r[i]) for r in cells) for i in range(len(columns))]
+        # SIMPLE_HEAD without edges: one space of padding each side of a cell
+        # (none at the outer edges) and a blank divider: three spaces between
+        total = sum(widths) + 3 * (len(columns) - 1)
+        if total > self.width:
+            raise _NeedsRich
+        for n, texts in enumerate(cells):
+            shown = [
+                t.rjust(w) if justify == "right" else t.ljust(w)
+                for t, w, (_, justify, _) in zip(texts, widths, columns, strict=True)
+            ]
+            self._lines.append("   ".join(shown))
+            if n == 0:
+                self._lines.append("─" * total)
+
+    def text(self) -> str:
+        return "".join(line + "\n" for line in self._lines)
 
 
 # ---------------------------------------------------------------- pieces
-def _styled(text: str, style: str = ""):
-    from rich.text import Text
-
-    return Text(text, style=style)
-
-
-def _heading(console, report: Report) -> None:
-    from rich.text import Text
-
-    line = Text()
-    line.append(f"ruleguard {report.tool_version}", "bold")
-    line.append(f"  project {report.project_name or '-'}")
-    line.append(f"  manifest {report.manifest_file}")
+def _heading(out, report: Report) -> None:
+    line: list[Part] = [
+        (f"ruleguard {report.tool_version}", "bold"),
+        (f"  project {report.project_name or '-'}", ""),
+        (f"  manifest {report.manifest_file}", ""),
+    ]
     if report.ruleset_name:
-        line.append(f"  ruleset {report.ruleset_name}")
-    console.print(line, soft_wrap=True)
-    console.print()
+        line.append((f"  ruleset {report.ruleset_name}", ""))
+    out.line(line)
+    out.blank()
 
 
 def _describe_discretization(discretization) -> str:
@@ -176,56 +304,46 @@ def _cell(figure: Figure, unit: str | None) -> str:
     return text
 
 
-def _loop_block(console, report: Report, loop: LoopResult) -> None:
-    from rich import box
-    from rich.table import Table
-    from rich.text import Text
-
-    title = Text()
-    title.append(f"loop {loop.name}", "bold")
-    title.append(f"  {_loop_header(loop)}")
-    console.print(title, soft_wrap=True)
+def _loop_block(out, report: Report, loop: LoopResult) -> None:
+    out.line([(f"loop {loop.name}", "bold"), (f"  {_loop_header(loop)}", "")])
     summary = loop_summary(loop)
     if not summary.analysed:
         reason = loop.not_analysed_reason or "no reason given"
-        console.print(_styled(f"  not analysed: {reason}", "bold red"), soft_wrap=True)
-        console.print()
+        out.line([(f"  not analysed: {reason}", "bold red")])
+        out.blank()
         return
 
     several = summary.variants > 1
-    table = Table(box=box.SIMPLE_HEAD, show_edge=False, pad_edge=False, padding=(0, 1))
-    table.add_column("figure", style="bold" if console.color_system else "")
-    table.add_column("nominal", justify="right")
+    columns = [("figure", "left", "bold" if out.color else ""), ("nominal", "right", "")]
     if several:
-        table.add_column(f"worst of {summary.variants} variants", justify="right")
-        table.add_column("variant")
+        columns.append((f"worst of {summary.variants} variants", "right", ""))
+        columns.append(("variant", "left", ""))
 
     nominal = loop.variants[0].analysis.stability
     verdict_nominal = _stability_word(nominal)
-    row = [Text("closed loop"), _verdict_text(verdict_nominal, nominal.stable)]
+    row: list[Part] = [("closed loop", ""), _verdict_text(verdict_nominal, nominal.stable)]
     if several:
         count = len(summary.unstable_variants)
         if count:
             row += [
                 _verdict_text(f"{count} unstable", False),
-                Text(", ".join(summary.unstable_variants[:3])
-                     + (" …" if count > 3 else "")),
+                (", ".join(summary.unstable_variants[:3]) + (" …" if count > 3 else ""), ""),
             ]
         else:
-            row += [_verdict_text("all stable", True), Text("")]
-    table.add_row(*row)
+            row += [_verdict_text("all stable", True), ("", "")]
+    rows = [row]
 
     p_values = [v.analysis.stability.open_loop_unstable_poles for v in loop.variants]
     n_values = [v.analysis.stability.ccw_encirclements for v in loop.variants]
     ids = [v.id for v in loop.variants]
-    table.add_row(*_plain_row("open-loop unstable poles P", p_values, ids, several))
-    table.add_row(*_plain_row("ccw encirclements of -1", n_values, ids, several))
+    rows.append(_plain_row("open-loop unstable poles P", p_values, ids, several))
+    rows.append(_plain_row("ccw encirclements of -1", n_values, ids, several))
     for figure_row in summary.rows:
-        table.add_row(*_figure_row(figure_row, several))
-    console.print(table)
+        rows.append(_figure_row(figure_row, several))
+    out.table(columns, rows)
     for note in loop.notes:
-        console.print(_styled(f"  note: {note}", "dim"), soft_wrap=True)
-    console.print()
+        out.line([(f"  note: {note}", "dim")])
+    out.blank()
 
 
 def _stability_word(stability) -> str:
@@ -236,34 +354,30 @@ def _stability_word(stability) -> str:
     return f"unstable (Z = {stability.closed_loop_unstable_poles})"
 
 
-def _verdict_text(word: str, good: bool):
-    return _styled(word, "green" if good else "bold red")
+def _verdict_text(word: str, good: bool) -> Part:
+    return (word, "green" if good else "bold red")
 
 
-def _plain_row(label: str, values: list, ids: list[str], several: bool):
-    from rich.text import Text
-
+def _plain_row(label: str, values: list, ids: list[str], several: bool) -> list[Part]:
     shown = ["-" if v is None else str(v) for v in values]
-    row = [Text(label), Text(shown[0])]
+    row = [(label, ""), (shown[0], "")]
     if several:
         differing = [(i, s) for i, s in zip(ids, shown, strict=True) if s != shown[0]]
         if not differing:
-            row += [Text(shown[0]), Text("")]
+            row += [(shown[0], ""), ("", "")]
         else:
             distinct = sorted({s for _, s in differing}, key=[s for _, s in differing].index)
-            row += [Text(", ".join(distinct)), Text(differing[0][0])]
+            row += [(", ".join(distinct), ""), (differing[0][0], "")]
     return row
 
 
-def _figure_row(row: FigureRow, several: bool):
-    from rich.text import Text
-
+def _figure_row(row: FigureRow, several: bool) -> list[Part]:
     label = row.label + (f" ({row.unit})" if row.unit in ("samples",) else "")
-    cells = [Text(label), Text(_cell(row.nominal, row.unit))]
+    cells = [(label, ""), (_cell(row.nominal, row.unit), "")]
     if several:
-        cells.append(Text(_cell(row.worst, row.unit)))
+        cells.append((_cell(row.worst, row.unit), ""))
         shown = row.worst.variant if row.worst.state != NOT_APPLICABLE else None
-        cells.append(Text(shown or ""))
+        cells.append((shown or "", ""))
     return cells
 
 
@@ -328,64 +442,50 @@ def _excerpt(report: Report, location: Location) -> list[tuple[str, str]]:
     return rows
 
 
-def _finding_block(console, report: Report, finding: Finding, prefix: str = "") -> None:
-    from rich.text import Text
-
+def _finding_block(out, report: Report, finding: Finding, prefix: str = "") -> None:
     severity = Severity(finding.severity).value
-    first = Text()
-    first.append(_place(finding.location, report, prefix), "bold")
-    first.append(": ")
+    first: list[Part] = [(_place(finding.location, report, prefix), "bold"), (": ", "")]
     if finding.waived:
-        first.append(f"waived {severity}", "dim")
+        first.append((f"waived {severity}", "dim"))
     else:
-        first.append(severity, SEVERITY_STYLE.get(severity, ""))
-    first.append(": ")
-    first.append(finding.rule, "magenta")
-    first.append(": ")
-    first.append(finding.message)
-    console.print(first, soft_wrap=True)
+        first.append((severity, SEVERITY_STYLE.get(severity, "")))
+    first += [(": ", ""), (finding.rule, "magenta"), (": ", ""), (finding.message, "")]
+    out.line(first)
 
     excerpt = _excerpt(report, finding.location)
     width = max([len(g) for g, _ in excerpt] + [4])
     pad = " " * (width + 1)
-    console.print(_styled(f"{pad}  {_detail(finding)}", "dim"), soft_wrap=True)
+    out.line([(f"{pad}  {_detail(finding)}", "dim")])
     for gutter, line in excerpt:
-        row = Text()
-        row.append(f"{gutter.rjust(width + 1)} ┆ ", "dim")
-        row.append(line, "" if gutter else ("bold red" if not finding.waived else "dim"))
-        console.print(row, soft_wrap=True)
+        style = "" if gutter else ("bold red" if not finding.waived else "dim")
+        out.line([(f"{gutter.rjust(width + 1)} ┆ ", "dim"), (line, style)])
     if finding.waived and finding.waiver_reason:
-        console.print(_styled(f"{pad}  waiver: {finding.waiver_reason}", "dim"), soft_wrap=True)
+        out.line([(f"{pad}  waiver: {finding.waiver_reason}", "dim")])
     hint = hint_line(finding.hint)
     if hint:
-        console.print(_styled(f"{pad}  fix hint: {hint}", "cyan"), soft_wrap=True)
+        out.line([(f"{pad}  fix hint: {hint}", "cyan")])
     for related in finding.related:
         key = f" ({related.key})" if related.key else ""
-        console.print(
-            _styled(f"{pad}  see {_place(related, report, prefix)}{key}", "dim"), soft_wrap=True
-        )
-    console.print()
+        out.line([(f"{pad}  see {_place(related, report, prefix)}{key}", "dim")])
+    out.blank()
 
 
-def _result_line(console, report: Report) -> None:
-    from rich.text import Text
-
+def _result_line(out, report: Report) -> None:
     errors = report.count(Severity.ERROR)
     warnings = report.count(Severity.WARNING)
     notes = report.count(Severity.NOTE)
-    line = Text()
-    if report.failed:
-        line.append("FAIL", "bold red")
-    else:
-        line.append("PASS", "bold green")
-    line.append(
-        f"  {_plural(errors, 'error')}, {_plural(warnings, 'warning')}, "
-        f"{_plural(notes, 'note')}, {report.waived} waived"
-        f" · {_plural(len(report.loops), 'loop')}, "
-        f"{_plural(report.evaluations, 'evaluation')}"
-        f" · fails at {Severity(report.fail_at).value}"
-    )
-    console.print(line, soft_wrap=True)
+    verdict = ("FAIL", "bold red") if report.failed else ("PASS", "bold green")
+    out.line([
+        verdict,
+        (
+            f"  {_plural(errors, 'error')}, {_plural(warnings, 'warning')}, "
+            f"{_plural(notes, 'note')}, {report.waived} waived"
+            f" · {_plural(len(report.loops), 'loop')}, "
+            f"{_plural(report.evaluations, 'evaluation')}"
+            f" · fails at {Severity(report.fail_at).value}",
+            "",
+        ),
+    ])
 
 
 def _plural(count: int, word: str) -> str:

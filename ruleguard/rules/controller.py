@@ -26,8 +26,7 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     as_number,

@@ -13,8 +13,7 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.location import Location
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
 from ruleguard.rules.locations import controller_location, key_path, related_locations

@@ -27,9 +27,8 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
-from ruleguard.models.discretize import prewarp_shift, tustin_constant
+from ruleguard.deferred import discretize
+from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
     as_number,
@@ -71,10 +70,10 @@ def tustin_shift_percent(
     ``w = w0``. The shift is ``100 (f - landed) / f`` (positive: lower).
     """
     if prewarp_hz is None:
-        landed = prewarp_shift(design_hz, sample_rate_hz)
+        landed = discretize.prewarp_shift(design_hz, sample_rate_hz)
     else:
         h = 1.0 / sample_rate_hz
-        c = tustin_constant(h, 2.0 * math.pi * prewarp_hz)
+        c = discretize.tustin_constant(h, 2.0 * math.pi * prewarp_hz)
         landed = (2.0 / h) * math.atan(2.0 * math.pi * design_hz / c) / (2.0 * math.pi)
     return landed, 100.0 * (design_hz - landed) / design_hz
 

@@ -17,8 +17,7 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import db, format_number, note, unanalysed_notes, variant_id
 from ruleguard.rules.locations import controller_location, key

@@ -28,8 +28,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
 from ruleguard.rules.evidence import note, unanalysed_notes, variant_id
 from ruleguard.rules.locations import block_location, controller_field_location, key

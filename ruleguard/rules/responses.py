@@ -15,7 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-import numpy as np
+from ruleguard.deferred import numpy as np
 
 SIGNALS = ("loop", "sensitivity", "complementary", "controller")
 

@@ -17,8 +17,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import param, unanalysed_notes, variant_id
 from ruleguard.rules.locations import controller_field_location, controller_location, key
