@@ -38,8 +38,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.errors import InputError
 from ruleguard.load.spec import LoopSpec, PlantEntry, Project, VaryRange
 from ruleguard.models.fieldvalues import resolve_parameters, to_float

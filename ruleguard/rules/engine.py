@@ -26,8 +26,7 @@ import fnmatch
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.errors import InputError
 from ruleguard.location import Location
 from ruleguard.rules.base import Finding, LoopContext, Severity, Violation

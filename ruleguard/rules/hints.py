@@ -55,8 +55,7 @@ from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 from typing import Any
 
-import numpy as np
-
+from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
 
 #: Rules a hint is given for, and that the gain factor range satisfies at once.
