@@ -295,8 +295,7 @@ class SampledContour:
             return
         mids = 0.5 * (br.w[idx] + br.w[idx + 1])
         Lm = self.evaluate(mids)
-        left = self.rational.step_bound(br.w[idx], mids)
-        right = self.rational.step_bound(mids, br.w[idx + 1])
+        left, right = _halves_bound(self.rational, br.w[idx], mids, br.w[idx + 1])
         w = np.insert(br.w, idx + 1, mids)
         L = np.insert(br.L, idx + 1, Lm)
         bound = br.bound.copy()
@@ -366,9 +365,18 @@ class SampledContour:
                 self._insert(bi, split)
 
     # ------------------------------------------------------------ geometry
-    def min_distance(self, point: complex) -> tuple[float, float | None]:
-        """Smallest ``|L - point|`` on the contour and the frequency (rad/s) where."""
+    def min_distance(self, point: complex,
+                     threshold: float | None = None) -> tuple[float, float | None]:
+        """Smallest ``|L - point|`` on the contour and the frequency (rad/s) where.
+
+        With ``threshold``, only the question "is the distance at most
+        ``threshold``?" is answered exactly: a local minimum whose bracket
+        provably stays farther than ``threshold`` (on a step of the rational
+        part with step bound ``beta``, ``|L(w) - L(a)| <= (e^beta - 1) |L(a)|``)
+        keeps its sampled value instead of being refined.
+        """
         p = complex(point)
+        prune = threshold is not None and not self.open_loop.factors
         best, best_w = math.inf, None
         for br in self.branches:
             d = np.abs(br.L - p)
@@ -386,6 +394,8 @@ class SampledContour:
                 lo = br.w[max(i - 1, 0)]
                 hi = br.w[min(i + 1, br.w.size - 1)]
                 val, wv = float(d[i]), float(br.w[i])
+                if prune and _bracket_floor(br, int(i), d) * (1.0 - 1e-9) > threshold:
+                    hi = lo  # provably farther than the threshold: not refined
                 if hi > lo:
                     wv2, val2 = _minimize(lambda x: abs(self.evaluate_scalar(x) - p), lo, hi)
                     if val2 < val:
@@ -437,8 +447,9 @@ class SampledContour:
         """Counter-clockwise encirclements of ``point`` (None: the curve passes through it)."""
         p = complex(point)
         self.refine_for_point(p)
-        dist, _ = self.min_distance(p)
-        if dist <= CRITICAL_TOL * max(1.0, abs(p)):
+        tol = CRITICAL_TOL * max(1.0, abs(p))
+        dist, _ = self.min_distance(p, threshold=tol)
+        if dist <= tol:
             return None
         total = self.angle_sum(p) / (2 * math.pi)
         n = round(total)
@@ -451,6 +462,25 @@ class SampledContour:
 
 
 # --------------------------------------------------------------------------- helpers
+def _bracket_floor(br: Branch, i: int, dist: np.ndarray) -> float:
+    """Lower bound of ``|L - p|`` over ``[w_{i-1}, w_{i+1}]`` (``dist`` = sampled ``|L - p|``).
+
+    On each step ``[k, k + 1]`` the curve stays within ``(e^beta - 1) |L_e|``
+    of either end point ``L_e`` (``beta`` the step bound, valid from both ends).
+    """
+    floor = math.inf
+    for k in (i - 1, i):
+        if k < 0 or k + 1 >= br.w.size:
+            continue
+        beta = float(br.bound[k])
+        if not math.isfinite(beta) or beta > 50.0:
+            return 0.0
+        grow = math.expm1(beta)
+        step = max(float(dist[e]) - grow * abs(complex(br.L[e])) for e in (k, k + 1))
+        floor = min(floor, step)
+    return max(floor, 0.0) if math.isfinite(floor) else 0.0
+
+
 def _principal(ratio: complex) -> float:
     return math.atan2(ratio.imag, ratio.real)
 
@@ -595,6 +625,13 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
     return np.unique(w)
 
 
+def _halves_bound(rational: RationalResponse, a: np.ndarray, mid: np.ndarray,
+                  b: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Step bounds of the halves ``[a, mid]`` and ``[mid, b]`` (one vectorized call)."""
+    both = rational.step_bound(np.concatenate([a, mid]), np.concatenate([mid, b]))
+    return both[: a.size], both[a.size:]
+
+
 def _refine_rational(rational: RationalResponse, w: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Bisect steps until the rational step bound is below ``STEP_BOUND``."""
     w = np.asarray(w, dtype=float)
@@ -605,8 +642,7 @@ def _refine_rational(rational: RationalResponse, w: np.ndarray) -> tuple[np.ndar
             break
         idx = np.nonzero(split)[0]
         mids = 0.5 * (w[idx] + w[idx + 1])
-        left = rational.step_bound(w[idx], mids)
-        right = rational.step_bound(mids, w[idx + 1])
+        left, right = _halves_bound(rational, w[idx], mids, w[idx + 1])
         w = np.insert(w, idx + 1, mids)
         bound[idx] = left
         bound = np.insert(bound, idx + 1, right)

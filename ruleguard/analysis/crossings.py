@@ -266,7 +266,7 @@ def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | 
 
 
 def peak(contour: SampledContour, fun_vec, fun_scalar=None,
-         candidates: int = 4) -> tuple[float, float]:
+         candidates: int = 4, upper_bound=None) -> tuple[float, float]:
     """Maximum of ``fun_vec(L)`` over the frequency axis, refined (Brent minimization).
 
     Returns ``(value, w)``. The largest grid maxima (those above a fifth of
@@ -274,6 +274,15 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
     a factor 5, see ``SampledContour.refine_for_point``) are refined on the
     exact response between their neighbours; ``fun_scalar`` is the same
     function of a complex scalar.
+
+    ``upper_bound(L_e, r)``, when given, bounds ``fun`` over every ``L`` with
+    ``|L - L_e| <= r``. Candidates are refined best first, and one whose
+    bracket provably stays below the best value refined so far is skipped:
+    on a step ``[a, b]`` of the rational part with step bound ``beta``
+    (``|log L(w) - log L(a)| <= beta`` for every ``w`` in the step, see
+    ``RationalResponse.step_bound``), ``|L(w) - L(a)| <= (e^beta - 1) |L(a)|``
+    because ``|e^z - 1| <= e^|z| - 1``. The skipped candidate could not have
+    won, so the result is the same as without the bound.
     """
     if fun_scalar is None:
         def fun_scalar(L):
@@ -300,6 +309,9 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
         br = contour.branches[bi]
         wv = float(br.w[i])
         lo, hi = br.w[max(i - 1, 0)], br.w[min(i + 1, br.w.size - 1)]
+        if (upper_bound is not None and math.isfinite(best)
+                and _bracket_bound(br, i, upper_bound) * (1.0 + 1e-9) < best):
+            continue  # cannot beat the best one (see the docstring)
         if hi > lo:
             def neg(x):
                 return -fun_scalar(contour.evaluate_scalar(x))
@@ -310,6 +322,26 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
         if val > best:
             best, best_w = val, wv
     return best, best_w
+
+
+def _bracket_bound(br, i: int, upper_bound) -> float:
+    """Upper bound of the peaked function over ``[w_{i-1}, w_{i+1}]`` of branch ``br``."""
+    worst = 0.0
+    for k in (i - 1, i):  # the steps [k, k + 1] on either side of sample i
+        if k < 0 or k + 1 >= br.w.size:
+            continue
+        beta = float(br.bound[k])
+        if not math.isfinite(beta) or beta > 50.0:
+            return math.inf
+        grow = math.expm1(beta)
+        step = math.inf
+        for e in (k, k + 1):  # the step bound holds from either end point
+            L_e = complex(br.L[e])
+            if not (math.isfinite(L_e.real) and math.isfinite(L_e.imag)):
+                continue
+            step = min(step, upper_bound(L_e, grow * abs(L_e)))
+        worst = max(worst, step)
+    return worst
 
 
 def _peak_zoom(contour: SampledContour, fun_vec, chosen) -> tuple[float, float]:

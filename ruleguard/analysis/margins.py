@@ -330,9 +330,34 @@ def _s_half_scalar(L: complex) -> float:
 _SCALAR = {_abs_s: _s_scalar, _abs_t: _t_scalar, _abs_s_half: _s_half_scalar}
 
 
+def _gap(L: complex, r: float) -> float:
+    """Lower bound of ``|1 + L'|`` over ``|L' - L| <= r`` (0 when the disc reaches -1)."""
+    return max(abs(1.0 + L) - r, 0.0)
+
+
+def _s_upper(L: complex, r: float) -> float:
+    g = _gap(L, r)
+    return math.inf if g == 0.0 else 1.0 / g
+
+
+def _t_upper(L: complex, r: float) -> float:
+    g = _gap(L, r)
+    return math.inf if g == 0.0 else (abs(L) + r) / g
+
+
+def _s_half_upper(L: complex, r: float) -> float:
+    g = _gap(L, r)
+    return math.inf if g == 0.0 else (abs(1.0 - L) + r) / (2.0 * g)
+
+
+#: Bounds of each peaked function over a disc of ``L`` values (triangle
+#: inequality), used by :func:`peak` to skip candidates that cannot win.
+_UPPER = {_abs_s: _s_upper, _abs_t: _t_upper, _abs_s_half: _s_half_upper}
+
+
 def _extreme(contour: SampledContour, fun, limit_at_arcs: float) -> tuple[float, float]:
     """Peak of ``fun(L)`` over the frequency axis, arcs' limits included."""
-    val, w = peak(contour, fun, _SCALAR[fun])
+    val, w = peak(contour, fun, _SCALAR[fun], upper_bound=_UPPER[fun])
     for ind in contour.indentations:
         if ind.order > 0 and limit_at_arcs > val:
             val, w = limit_at_arcs, ind.w0
