@@ -8,6 +8,7 @@ composition of the pure stages.
 from __future__ import annotations
 
 import datetime as _dt
+import itertools
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -17,6 +18,7 @@ from ruleguard import __version__
 from ruleguard.errors import InputError, LoopNotAnalysable
 from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
 from ruleguard.timings import stage
+from ruleguard.workunits import JudgedLoop
 
 #: Progress callback: (loops done, loops in all, name of the loop now).
 Progress = Callable[[int, int, str], None]
@@ -139,6 +141,8 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     contexts: list[LoopContext] = []
     keys: dict[str, str] = {}
     built_models: dict[str, dict] = {}  # loop -> variant id -> LoopModel (for curves)
+    judging = _judging_request(ruleset, options, today)
+    judged_findings: dict[str, tuple[Finding, ...]] = {}
     to_analyse = []
     for spec in specs:
         if cache is not None:
@@ -153,9 +157,18 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         to_analyse.append(spec)
     analysed_by_name = {}
     for i, analysed in enumerate(
-        _analyse_loops(project, to_analyse, options, deadline, progress, len(specs))
+        _analyse_loops(project, to_analyse, options, deadline, progress, len(specs),
+                       judge=judging)
     ):
         spec = to_analyse[i]
+        if isinstance(analysed, JudgedLoop):  # built, analysed and judged by its worker
+            if not analysed.cacheable:
+                keys.pop(spec.name, None)
+            stats.analysed_loops += 1
+            stats.evaluations += analysed.evaluations
+            loop_results[spec.name] = analysed.result
+            judged_findings[spec.name] = analysed.findings
+            continue
         analysed = without_unwanted_midpoints(analysed, ruleset)
         analysed_by_name[spec.name] = analysed
         if not analysed.cacheable:
@@ -179,9 +192,13 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
             skip=options.skip,
             today=today,
             cached=cached_findings,
+            judged=judged_findings,
+            loop_names=[s.name for s in project.loops],
         )
     if cache is not None:
         by_loop: dict[str, list[Finding]] = {c.spec.name: [] for c in contexts}
+        for name, found in judged_findings.items():
+            by_loop[name] = list(found)
         for f in fresh:
             if f.loop in by_loop:
                 by_loop[f.loop].append(f)
@@ -200,7 +217,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
                 )
 
     with stage("rules"):
-        findings = _ordered_findings(specs, fresh, cached_findings)
+        findings = _ordered_findings(specs, fresh, {**cached_findings, **judged_findings})
         active = _active_rules(ruleset, specs, loop_results, options)
         rules = tuple(
             RuleInfo(r.id, r.summary, r.explanation, r.default_severity.value)
@@ -219,6 +236,55 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         fail_at=options.fail_at,
         active_rules=active,
         waivers_as_of=today.isoformat(),
+    )
+
+
+@dataclass(frozen=True)
+class LoopJudging:
+    """What a worker needs to apply the ruleset to a loop it analysed whole."""
+
+    ruleset: object
+    only: tuple[str, ...]
+    skip: tuple[str, ...]
+    today: _dt.date
+
+
+def _judging_request(ruleset, options: CheckOptions, today: _dt.date) -> LoopJudging | None:
+    """Judge loops where they are analysed, unless curves are wanted (they need
+    the models here) or the rule selection is invalid (its error is raised by
+    :func:`ruleguard.rules.engine.evaluate`, in its turn)."""
+    from ruleguard.rules.catalog import UnknownRule, check_patterns
+
+    if options.want_curves:
+        return None
+    try:
+        check_patterns(tuple(options.only))
+        check_patterns(tuple(options.skip))
+    except UnknownRule:
+        return None
+    return LoopJudging(ruleset, tuple(options.only), tuple(options.skip), today)
+
+
+def judge_loop(project, spec, outcomes, judging: LoopJudging) -> JudgedLoop:
+    """One loop assembled from all its variants' outcomes and judged (in a worker).
+
+    The same steps, in the same order, as :func:`check_loaded` takes for a
+    loop analysed in this process; the findings are those
+    :func:`ruleguard.rules.engine.evaluate` gives for the loop alone (the
+    ruleset's own findings, about waivers, are made by the caller).
+    """
+    from ruleguard.rules.engine import evaluate
+
+    analysed = _assemble_loop(project, spec, iter(outcomes))
+    analysed = without_unwanted_midpoints(analysed, judging.ruleset)
+    with stage("rules"):
+        found = evaluate([analysed.context], judging.ruleset, only=judging.only,
+                         skip=judging.skip, today=judging.today)
+    return JudgedLoop(
+        analysed.result,
+        tuple(f for f in found if f.loop == spec.name),
+        len(analysed.context.evaluations),
+        analysed.cacheable,
     )
 
 
@@ -306,13 +372,16 @@ def analyse_loop(
 
 
 def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, total,
-                   executor=None):
+                   executor=None, judge: LoopJudging | None = None):
     """Every loop of ``specs`` analysed (an iterator of AnalysedLoop, in order).
 
     The variants of all loops are cut into chunks
     (:mod:`ruleguard.workunits`) and run by the chosen executor
     (:mod:`ruleguard.executors`); the outcomes come back in order, so the
     result does not depend on the executor or the number of workers.
+
+    With ``judge``, a loop whose variants fit one chunk is also judged
+    where it runs and comes back as a :class:`JudgedLoop` (no models).
     """
     from ruleguard.executors import ChunkStream, make_executor
     from ruleguard.models.families import loop_variants
@@ -340,12 +409,18 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
             (chunk_size(len(v), executor.workers) for _, v, _ in families if v), default=1
         )
 
+        # enough loops to keep every worker busy: a small loop goes whole, so
+        # its worker can judge it (judge) and send back no models
+        many = len(families) >= 2 * executor.workers
+
         def chunks():
             for spec, variants, _ in families:
                 if variants:
+                    whole = many and len(variants) <= WHOLE_LOOP_VARIANTS
                     yield from split_variants(
-                        spec.name, variants, size, deadline, options.time_budget_s,
-                        prepare_rounding=rounding,
+                        spec.name, variants, max(size, len(variants)) if whole else size,
+                        deadline, options.time_budget_s,
+                        prepare_rounding=rounding, judge=judge,
                     )
 
         stream = ChunkStream(executor, chunks())
@@ -357,10 +432,19 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
             done += 1
             if error is not None:
                 raise error
-            yield _assemble_loop(project, spec, _loop_outcomes(outcomes, stream, spec,
-                                                               len(variants)))
+            found = _loop_outcomes(outcomes, stream, spec, len(variants))
+            first = next(found)
+            if isinstance(first, JudgedLoop):
+                yield first
+            else:
+                yield _assemble_loop(project, spec, itertools.chain((first,), found))
     finally:
         executor.close()
+
+
+#: A loop of at most this many variants is one chunk when the run has at
+#: least two loops per worker (and so is judged where it is analysed).
+WHOLE_LOOP_VARIANTS = 16
 
 
 def _rounding_rule_selected(options: CheckOptions) -> bool:
@@ -379,6 +463,9 @@ def _loop_outcomes(outcomes, stream, spec, count: int):
         if chunk.loop != spec.name:  # pragma: no cover - chunks come in loop order
             raise RuntimeError("chunks out of order")
         for outcome in found:
+            if isinstance(outcome, JudgedLoop):
+                yield outcome
+                continue
             if outcome.stop is not None:
                 stream.stop_loop(spec.name)
                 yield outcome

@@ -63,6 +63,10 @@ class VariantChunk:
     #: Round the coefficients to the controller's ``numeric_format`` and
     #: analyse that loop too (for rule ``quantization.robust``).
     prepare_rounding: bool = False
+    #: When the chunk holds every variant of its loop: apply the ruleset
+    #: there too (a :class:`ruleguard.pipeline.LoopJudging`), so the worker
+    #: returns a :class:`JudgedLoop` and no model travels back.
+    judge: object | None = None
 
 
 @dataclass(frozen=True)
@@ -116,6 +120,22 @@ class VariantOutcome:
     prepared: dict = field(default_factory=dict)
 
 
+@dataclass(frozen=True, eq=False)
+class JudgedLoop:
+    """A whole loop built, analysed and judged where its chunk ran.
+
+    ``result`` is its :class:`~ruleguard.report.model.LoopResult`,
+    ``findings`` its findings (waivers applied, in the engine's order),
+    ``evaluations`` the number of analysed variants; ``cacheable`` as in
+    :class:`ruleguard.pipeline.AnalysedLoop`.
+    """
+
+    result: object
+    findings: tuple
+    evaluations: int
+    cacheable: bool = True
+
+
 #: Key of the rounded loop in ``VariantOutcome.prepared`` / ``Evaluation.prepared``.
 ROUNDED = "quantization.rounded"
 
@@ -137,17 +157,24 @@ def split_variants(
     budget_s: float | None = None,
     *,
     prepare_rounding: bool = False,
+    judge: object | None = None,
 ) -> tuple[VariantChunk, ...]:
-    """``variants`` cut into chunks of at most ``size``, in order."""
+    """``variants`` cut into chunks of at most ``size``, in order.
+
+    ``judge`` (the ruleset and selection) goes with a loop that fits one
+    chunk: that chunk is then judged where it runs (:class:`JudgedLoop`).
+    """
+    whole = judge if len(variants) <= max(1, size) else None
     return tuple(
         VariantChunk(
-            loop, i, tuple(variants[i:i + size]), deadline_epoch_s, budget_s, prepare_rounding
+            loop, i, tuple(variants[i:i + size]), deadline_epoch_s, budget_s, prepare_rounding,
+            whole,
         )
         for i in range(0, len(variants), max(1, size))
     )
 
 
-def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
+def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...] | tuple[JudgedLoop]:
     """Build and analyse the variants of ``chunk``; stop after the first that stops the loop.
 
     Parameters
@@ -160,7 +187,9 @@ def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
     Returns
     -------
     tuple of VariantOutcome
-        One per variant in order, the last one possibly with ``stop`` set.
+        One per variant in order, the last one possibly with ``stop`` set;
+        or, for a chunk with ``judge`` whose variants all finished, the one
+        :class:`JudgedLoop` of its loop.
     """
     spec = next(s for s in project.loops if s.name == chunk.loop)
     out: list[VariantOutcome] = []
@@ -180,6 +209,11 @@ def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
         out.append(outcome)
         if outcome.stop is not None:
             break
+    if chunk.judge is not None and chunk.start == 0 and len(out) == len(chunk.variants) \
+            and all(o.stop is None for o in out):
+        from ruleguard.pipeline import judge_loop
+
+        return (judge_loop(project, spec, out, chunk.judge),)
     return tuple(out)
 
 

@@ -122,3 +122,53 @@ def test_overflowing_gain_fails_the_gate_instead_of_crashing(demo):
     failure = next(f for f in found if f.rule == "stability.closed-loop")
     assert "numerical failure" in failure.message
     assert failure.location.file == "firmware/tilt.toml"
+
+
+def _report_json(demo, options):
+    from ruleguard.report.json_report import render
+
+    return render(check_project(demo / "ruleguard.toml", options))
+
+
+@pytest.mark.parametrize("jobs", [1, 2])
+def test_loops_judged_by_their_workers_match_judging_here(demo, monkeypatch, jobs):
+    """A loop that fits one chunk is judged where it is analysed (pipeline.judge_loop);
+    the report must be byte for byte the one of judging every loop in this process,
+    including waiver bookkeeping: a second waiver for the same finding is unused
+    (the engine applies the first that matches)."""
+    import ruleguard.pipeline as pipeline
+
+    policy = next((demo / "policy").glob("*.toml"))
+    policy.write_text(
+        policy.read_text(encoding="utf-8")
+        + '\n[[waivers]]\nrule = "sensitivity.peak"\nloops = ["housing.*"]\n'
+        'reason = "overlaps the first"\nexpires = 2027-03-01\n'
+        '\n[[waivers]]\nrule = "margin.delay"\nloops = ["nothing.*"]\nreason = "no such loop"\n',
+        encoding="utf-8",
+    )
+    options = CheckOptions(today=AS_OF, jobs=jobs)
+    names = []
+    real = pipeline.judge_loop
+
+    def counting(project, spec, outcomes, judging):
+        names.append(spec.name)
+        return real(project, spec, outcomes, judging)
+
+    monkeypatch.setattr(pipeline, "judge_loop", counting)
+    judged = _report_json(demo, options)
+    if jobs == 1:  # judged in this process: seen (8 loops, at most 16 variants but one)
+        assert "housing.heater" in names and "window.heater" not in names
+    monkeypatch.setattr(pipeline, "_judging_request", lambda *args: None)
+    here = _report_json(demo, options)
+    assert judged == here
+    # the overlapping waiver and the one naming no loop, as judged here
+    assert judged.count('"waiver.unused"') == 2
+
+
+def test_judged_loops_enter_the_cache_with_their_findings(demo):
+    first = check_project(demo / "ruleguard.toml", CheckOptions(today=AS_OF, use_cache=True))
+    stats = RunStatistics()
+    again = check_project(demo / "ruleguard.toml", CheckOptions(today=AS_OF, use_cache=True),
+                          statistics=stats)
+    assert stats.analysed_loops == 0 and stats.cached_loops == len(first.loops)
+    assert again.findings == first.findings

@@ -238,6 +238,8 @@ def iter_findings(
     skip: Sequence[str] = (),
     today: datetime.date | None = None,
     cached: Mapping[str, Sequence[Finding]] | None = None,
+    judged: Mapping[str, Sequence[Finding]] | None = None,
+    loop_names: Sequence[str] | None = None,
 ) -> Iterator[Finding]:
     """Every finding, lazily, in the documented order (see :func:`evaluate`)."""
     only, skip = tuple(only), tuple(skip)
@@ -257,6 +259,17 @@ def iter_findings(
             for w in active:
                 if f.waived and waiver_applies(w, f.rule, f.loop):
                     hits[id(w)] += 1
+
+    for loop_name, found in (judged or {}).items():
+        # judged this run elsewhere: each finding used the first waiver that applies
+        evaluated.add(loop_name)
+        for f in found:
+            if f.waived:
+                waiver = next((w for w in active if waiver_applies(w, f.rule, f.loop)), None)
+                if waiver is not None:
+                    hits[id(waiver)] += 1
+    if judged and loop_names is not None:
+        project_loops = list(loop_names)  # as the first analysed context would give
 
     loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
     for ctx in contexts:
@@ -392,6 +405,8 @@ def evaluate(
     skip: Sequence[str] = (),
     today: datetime.date | None = None,
     cached: Mapping[str, Sequence[Finding]] | None = None,
+    judged: Mapping[str, Sequence[Finding]] | None = None,
+    loop_names: Sequence[str] | None = None,
 ) -> tuple[Finding, ...]:
     """Apply ``ruleset`` to analysed loops; return every finding.
 
@@ -411,6 +426,13 @@ def evaluate(
     cached:
         Findings of loops taken from the cache (loop name -> findings): they are
         not re-evaluated, but count as evaluated for ``waiver.unused``.
+    judged:
+        Findings of loops judged this run by the workers that analysed them
+        (:func:`ruleguard.pipeline.judge_loop`): not returned again, and
+        their waivers count as used exactly as if judged here.
+    loop_names:
+        The project's loop names, for ``waiver.unused`` when loops were
+        judged elsewhere (otherwise read from the contexts' project).
 
     Returns
     -------
@@ -419,5 +441,6 @@ def evaluate(
         findings about the ruleset last.
     """
     return tuple(
-        iter_findings(contexts, ruleset, only=only, skip=skip, today=today, cached=cached)
+        iter_findings(contexts, ruleset, only=only, skip=skip, today=today, cached=cached,
+                      judged=judged, loop_names=loop_names)
     )
