@@ -116,8 +116,12 @@ class RationalResponse:
         off = ~block.on_boundary(self.zeros)
         self._bound_zeros = int(np.count_nonzero(off))
         self._bound_roots = np.concatenate([self.zeros[off], self.poles])
-        self._zl = [complex(z) for z in self.zeros]
-        self._pl = [complex(p) for p in self.poles]
+        zl = [complex(z) for z in self.zeros]
+        pl = [complex(p) for p in self.poles]
+        #: (zero, pole) pairs, then the poles left over, in the order of the
+        #: vectorized path (plain complex numbers for :meth:`value`)
+        self._pairs = tuple(zip(zl, pl[:n], strict=True))
+        self._lone = tuple(pl[n:])
 
     @property
     def relative_degree(self) -> int:
@@ -146,13 +150,11 @@ class RationalResponse:
         """Scalar evaluation in plain complex arithmetic (root finders)."""
         x = 1j * w if self.h is None else cmath.exp(1j * w * self.h)
         out = complex(self.gain)
-        n = len(self._zl)
         try:
-            for i, p in enumerate(self._pl):
-                if i < n:
-                    out *= (x - self._zl[i]) / (x - p)
-                else:
-                    out /= x - p
+            for z, p in self._pairs:
+                out *= (x - z) / (x - p)
+            for p in self._lone:
+                out /= x - p
         except ZeroDivisionError:
             return complex(math.inf, 0.0)
         if self.delay:
