@@ -356,3 +356,35 @@ def test_valid_demo_check_does_not_import_jsonschema(tmp_path):
 def test_module_has_no_jsonschema_import():
     source = Path(schema_predicate.__file__).read_text("utf-8")
     assert "import jsonschema" not in source and "from jsonschema" not in source
+
+
+# ------------------------------------------------------------------ the finite-number scan
+
+_LEAVES = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True), st.integers(), st.booleans(),
+    st.text(max_size=3), st.none(),
+    st.sampled_from([10**300, -(10**300), 2**1024, -(2**1024), 2**1023, 10**308 * 17]),
+)
+_NESTED = st.recursive(
+    _LEAVES,
+    lambda inner: st.lists(inner, max_size=4) | st.dictionaries(st.text(max_size=2), inner,
+                                                                max_size=4),
+    max_leaves=12,
+)
+
+
+@settings(max_examples=400, deadline=None)
+@given(_NESTED)
+def test_quick_finite_scan_matches_the_located_one(value):
+    # reference: number_problem on every node, as check_finite walks them
+    def nodes(node):
+        yield node
+        if isinstance(node, dict):
+            for item in node.values():
+                yield from nodes(item)
+        elif isinstance(node, list):
+            for item in node:
+                yield from nodes(item)
+
+    expected = any(validation.number_problem(node) for node in nodes(value))
+    assert validation._has_number_problem(value) == expected

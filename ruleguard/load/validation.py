@@ -161,8 +161,43 @@ def number_problem(value: Any) -> str | None:
     return None
 
 
+def _has_number_problem(data: Any) -> bool:
+    """Whether :func:`number_problem` finds anything in ``data`` (no key paths built)."""
+    isfinite = math.isfinite
+    stack = [data]
+    while stack:
+        node = stack.pop()
+        kind = type(node)
+        if kind is str or kind is bool:
+            continue
+        if kind is float:
+            if not isfinite(node):
+                return True
+        elif kind is int:
+            if not -_SAFE_INT < node < _SAFE_INT and number_problem(node):
+                return True
+        elif kind is dict:
+            stack.extend(node.values())
+        elif kind is list:
+            stack.extend(node)
+        else:  # anything else (dates from TOML, subclasses): as check_finite sees it
+            if number_problem(node):
+                return True
+            if isinstance(node, dict):
+                stack.extend(node.values())
+            elif isinstance(node, list):
+                stack.extend(node)
+    return False
+
+
+#: Integers strictly between -_SAFE_INT and _SAFE_INT fit a float (whose largest is 1.8e308).
+_SAFE_INT = 10**300
+
+
 def check_finite(document: Document, data: Any = None, base: KeyPath = ()) -> None:
     """Raise at the first NaN or infinite number in ``data`` (default: the document)."""
+    if not _has_number_problem(document.data if data is None else data):
+        return
     stack: list[tuple[KeyPath, Any]] = [(base, document.data if data is None else data)]
     while stack:
         path, node = stack.pop()
