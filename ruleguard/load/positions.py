@@ -59,13 +59,13 @@ def format_key(path: KeyPath | list) -> str:
         text = _KEY_TEXTS.get(item)
         if text is None:
             text = item if _BARE_KEY.match(item) else json.dumps(item, ensure_ascii=False)
-            if len(_KEY_TEXTS) < 65536:
+            if len(item) <= 64 and len(_KEY_TEXTS) < 65536:
                 _KEY_TEXTS[item] = text
         parts.append(text)
     return ".".join(parts)
 
 
-#: Key -> its text in a dotted path (keys repeat across files and loops).
+#: Short key -> its text in a dotted path (keys repeat across files and loops).
 _KEY_TEXTS: dict[str, str] = {}
 
 
