@@ -14,6 +14,10 @@ controller discretized by Tustin), then runs in one process run:
 * ruleguard: the real ``ruleguard check --format json --no-cache`` on the
   same project, through :func:`ruleguard.cli.run` in this process.
 
+The stage times are followed by the cost per validated value of the
+schema check alone: the compiled predicate (what a valid value costs) and
+jsonschema (what the route of an invalid value costs).
+
 Both are warmed up first on a one-loop project (imports paid), so the first
 ratio compares work per loop. The end-to-end ratio runs both as fresh
 processes (start-up included). The last line compares the phase margins the
@@ -196,6 +200,40 @@ def stage_times(manifest: Path) -> dict[str, float]:
     return out
 
 
+def validation_times(manifest: Path) -> tuple[int, float, float] | None:
+    """(documents, s/document by the compiled predicate, s/document by jsonschema)
+    for the values the load validates (None for code without the predicate)."""
+    from ruleguard.load import validation
+    from ruleguard.load.project import load_project
+
+    real = getattr(validation, "passes", None)
+    if real is None:
+        return None
+    seen: list = []
+
+    def recording(name, value):
+        seen.append((name, value))
+        return real(name, value)
+
+    validation.passes = recording
+    try:
+        load_project(manifest)
+    finally:
+        validation.passes = real
+    from jsonschema import Draft202012Validator
+
+    from ruleguard.load.schemas import load_schema
+
+    checkers = {name: Draft202012Validator(load_schema(name)) for name, _ in seen}
+    start = time.perf_counter()
+    assert all(real(name, value) for name, value in seen)
+    fast = time.perf_counter() - start
+    start = time.perf_counter()
+    assert not any(list(checkers[name].iter_errors(value)) for name, value in seen)
+    full = time.perf_counter() - start
+    return len(seen), fast / len(seen), full / len(seen)
+
+
 def timed(fn, *args, **kwargs):
     start = time.perf_counter()
     value = fn(*args, **kwargs)
@@ -251,6 +289,12 @@ def main() -> None:
             print(f"  {name:<28} {1e3 * seconds / n:7.2f}")
         rest = t_rg - sum(stages.values())
         print(f"  {'rest (report, ordering)':<28} {1e3 * rest / n:7.2f}")
+        checks = validation_times(manifest)
+        if checks:
+            docs, fast, full = checks
+            print(f"schema validation of the {docs} validated values (ms/value): compiled "
+                  f"predicate {1e3 * fast:.3f}, jsonschema {1e3 * full:.3f}, "
+                  f"ratio {full / fast:.0f}x")
 
         if not args.no_subprocess:
             py = sys.executable

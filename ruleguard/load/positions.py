@@ -55,11 +55,18 @@ def format_key(path: KeyPath | list) -> str:
     for item in path:
         if isinstance(item, int):
             parts.append(str(item))
-        elif _BARE_KEY.match(item):
-            parts.append(item)
-        else:
-            parts.append(json.dumps(item, ensure_ascii=False))
+            continue
+        text = _KEY_TEXTS.get(item)
+        if text is None:
+            text = item if _BARE_KEY.match(item) else json.dumps(item, ensure_ascii=False)
+            if len(item) <= 64 and len(_KEY_TEXTS) < 65536:
+                _KEY_TEXTS[item] = text
+        parts.append(text)
     return ".".join(parts)
+
+
+#: Short key -> its text in a dotted path (keys repeat across files and loops).
+_KEY_TEXTS: dict[str, str] = {}
 
 
 _TOML_HEADER = re.compile(r"^\s*\[\[?\s*([^\]]+?)\s*\]\]?\s*(#.*)?$")
@@ -217,7 +224,11 @@ def _point(text_or_lines: Any, point: Any) -> tuple[int, int]:
     if lines is None:
         lines = text_or_lines.split("\n")
     if row < len(lines):
-        column = len(lines[row].encode("utf-8")[:byte_column].decode("utf-8", "replace"))
+        line = lines[row]
+        if line.isascii():  # one byte per character
+            column = min(byte_column, len(line))
+        else:
+            column = len(line.encode("utf-8")[:byte_column].decode("utf-8", "replace"))
     else:
         column = byte_column
     return row + 1, column + 1

@@ -228,7 +228,13 @@ def read_text(
 
     Empty, oversized and binary files are input errors.
     """
-    resolved = resolve_inside(root, rel_path, origin)
+    return _read_resolved(root, resolve_inside(root, rel_path, origin), origin, max_bytes)
+
+
+def _read_resolved(
+    root: str | Path, resolved: Path, origin: Location | None, max_bytes: int
+) -> tuple[str, str]:
+    """:func:`read_text` of a path :func:`resolve_inside` already gave."""
     name = relative_name(root, resolved)
     try:
         size = resolved.stat().st_size
@@ -316,9 +322,9 @@ def read_document(
     InputError
         Containment, size, encoding or syntax problems, located.
     """
-    resolve_inside(root, rel_path, origin)  # containment first, whatever the name says
+    resolved = resolve_inside(root, rel_path, origin)  # containment first, whatever the name says
     fmt = format_of(str(rel_path), origin)
-    name, text = read_text(root, rel_path, origin, max_bytes)
+    name, text = _read_resolved(root, resolved, origin, max_bytes)
     return parse_text(name, text, fmt)
 
 
@@ -459,9 +465,9 @@ def read_firmware(
     C file (:mod:`ruleguard.load.c_source`). The readers of C, YAML and
     key-value files are imported on first use only.
     """
-    resolve_inside(root, rel_path, origin)
+    resolved = resolve_inside(root, rel_path, origin)
     fmt = firmware_format_of(str(rel_path), fmt, origin)
-    name, text = read_text(root, rel_path, origin, MAX_FILE_BYTES)
+    name, text = _read_resolved(root, resolved, origin, MAX_FILE_BYTES)
     if fmt in ("toml", "json"):
         return parse_text(name, text, fmt)
     try:
