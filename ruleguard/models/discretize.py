@@ -442,7 +442,7 @@ def zoh_state_space(
     Van Loan, "Computing integrals involving the matrix exponential", IEEE
     Trans. Automatic Control 23(3), 1978.
     """
-    import scipy.linalg  # lazy
+    from ruleguard.models.matrices import expm  # numpy only: no scipy import
 
     h = _check_sample_time(sample_time_s)
     ss, own_delay = _as_state_space(block)
@@ -457,7 +457,7 @@ def zoh_state_space(
     m[:n, 2 * n :] = b
 
     def blocks(t: float):
-        e = scipy.linalg.expm(m * t)
+        e = expm(m * t)
         return e[:n, :n], e[:n, n : 2 * n], e[:n, 2 * n :]
 
     if f == 0.0:
@@ -554,7 +554,7 @@ def zoh_equivalent(
     return Factored(zeros, poles, gain, 0.0, h)
 
 
-def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
+def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) -> np.ndarray:
     """Finite invariant zeros of a discrete realization (whole-sample delay excluded).
 
     With ``z = 1 + h delta`` the transfer function is
@@ -567,6 +567,12 @@ def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
     computed directly instead of as a small difference of numbers near 1.
     The result is made exactly conjugate-symmetric.
 
+    The pencil is balanced and its infinite eigenvalues are deflated in numpy
+    (:func:`ruleguard.models.matrices.siso_zeros`); only a feedthrough in the
+    delicate range it declines, or a zero output, goes to the QZ algorithm of
+    ``scipy.linalg``. ``pole_radius`` (``max |eig(F)|``) may be passed when
+    the caller knows the poles, saving one eigenvalue computation.
+
     References
     ----------
     Emami-Naeini & Van Dooren, "Computation of zeros of linear multivariable
@@ -574,24 +580,37 @@ def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
     R. H. Middleton, G. C. Goodwin, Digital Control and Estimation: A Unified
     Approach, Prentice Hall, 1990 (the delta operator).
     """
-    import scipy.linalg  # lazy
+    from ruleguard.models.matrices import balance_scaling, siso_zeros
 
     n = dss.order
     if n == 0:
         return np.zeros(0, complex)
     h = dss.sample_time_s
     f = dss.shifted_a() / h
-    g = dss.b / h
-    pencil = np.block([[f, g], [dss.c, dss.d]])
+    pencil = np.empty((n + 1, n + 1))
+    pencil[:n, :n] = f
+    pencil[:n, n:] = dss.b / h
+    pencil[n:, :n] = dss.c
+    pencil[n, n] = dss.d[0, 0]
     # a diagonal similarity leaves E = diag(I, 0) as it is: balance the
     # pencil (Parlett-Reinsch) so that fast and slow modes have like scales
-    pencil, _ = scipy.linalg.matrix_balance(pencil, permute=False, separate=True)
-    e = np.zeros((n + 1, n + 1))
-    e[:n, :n] = np.eye(n)
-    alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
-    radius = 1.0 / h + float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
-    finite = np.abs(alpha) < ZERO_INFINITY_RATIO * radius * np.abs(beta)
-    delta = _conjugate_symmetric(alpha[finite] / beta[finite])
+    t = balance_scaling(pencil)
+    pencil = pencil * t[None, :] / t[:, None]
+    if pole_radius is None:
+        pole_radius = float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
+    radius = 1.0 / h + pole_radius
+    gev = siso_zeros(pencil[:n, :n], pencil[:n, n], pencil[n, :n], pencil[n, n], radius)
+    if gev is None:  # a delicate feedthrough or a zero block: the QZ algorithm
+        import scipy.linalg  # lazy: rare
+
+        e = np.zeros((n + 1, n + 1))
+        e[:n, :n] = np.eye(n)
+        alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
+        finite = np.abs(alpha) < ZERO_INFINITY_RATIO * radius * np.abs(beta)
+        gev = alpha[finite] / beta[finite]
+    else:
+        gev = gev[np.abs(gev) < ZERO_INFINITY_RATIO * radius]
+    delta = _conjugate_symmetric(gev)
     return 1.0 + h * delta
 
 
@@ -704,11 +723,11 @@ def _as_state_space(block: Factored | StateSpace) -> tuple[StateSpace, float]:
     if isinstance(block, StateSpace):
         if block.order == 0:
             return block, block.delay_s
-        import scipy.linalg  # lazy
+        from ruleguard.models.matrices import balance_scaling
 
         # diagonal similarity x = T x' (Parlett-Reinsch balancing) so that the
         # matrix exponential works on a matrix with rows and columns of like size
-        _, (scale, _) = scipy.linalg.matrix_balance(block.a, permute=False, separate=True)
+        scale = balance_scaling(block.a)
         a = block.a * scale[None, :] / scale[:, None]
         b = block.b / scale[:, None]
         c = block.c * scale[None, :]
