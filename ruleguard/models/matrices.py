@@ -35,7 +35,7 @@ _THETA = ((3, 1.495585217958292e-2), (5, 2.539398330063230e-1),
           (7, 9.504178996162932e-1), (9, 2.097847961257068e0))
 _THETA13 = 5.371920351148152e0
 #: :func:`siso_zeros` forms the Schur complement ``a - b c / d`` only when
-#: ``|d| >= SCHUR_MIN_FEEDTHROUGH * ||b|| ||c|| / radius`` (rounding amplified
+#: ``|d| >= SCHUR_MIN_FEEDTHROUGH * ||b|| ||c|| / nu`` (rounding amplified
 #: at most tenfold); below, the caller's QZ algorithm is used.
 SCHUR_MIN_FEEDTHROUGH = 0.1
 # [H05] coefficients b_0, ..., b_m of the [m/m] Pade numerator p_m(x)
@@ -135,13 +135,11 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
         return t
     sq = a * a
     np.fill_diagonal(sq, 0.0)
-    col = sq.sum(axis=0)
-    row = sq.sum(axis=1)
     for _ in range(100):
         changed = False
         for i in range(n):
-            c = math.sqrt(col[i])
-            r = math.sqrt(row[i])
+            c = math.sqrt(float(sq[:, i].sum()))
+            r = math.sqrt(float(sq[i, :].sum()))
             if c == 0.0 or r == 0.0:
                 continue
             s = c + r
@@ -158,16 +156,9 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
                 continue
             changed = True
             t[i] *= f
-            f2 = f * f
-            # column i times f, row i divided by f: update the squared sums
-            rowi = sq[i, :].copy()
-            coli = sq[:, i].copy()
-            sq[i, :] = rowi / f2
-            sq[:, i] = coli * f2
-            col += sq[i, :] - rowi
-            row += sq[:, i] - coli
-            col[i] = coli.sum() * f2
-            row[i] = rowi.sum() / f2
+            # column i times f, row i divided by f (squared entries)
+            sq[:, i] *= f * f
+            sq[i, :] /= f * f
         if not changed:
             break
     return t
@@ -188,12 +179,14 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     state less. Once ``d`` is not zero the zeros are the eigenvalues of the
     Schur complement ``a - b c / d``.
 
-    ``d`` counts as zero below ``1e-14 ||b|| ||c|| / radius`` (the next
-    deflation step); in between that and the Schur bound, and when ``c``
-    vanishes (a zero block), ``None`` is returned. The sampled plants of
-    ordinary loops (relative degree 1 after sampling) stay far inside the
-    bound (``||b|| ||c|| / (|d| radius)`` below 0.4 for every variant of the
-    demo project).
+    With ``nu`` the larger of ``radius`` and the Frobenius norm of the
+    current pencil, ``d`` counts as zero below ``1e-14 ||b|| ||c|| / nu``
+    (the next deflation step) and the Schur complement is formed above
+    ``SCHUR_MIN_FEEDTHROUGH ||b|| ||c|| / nu``; in between, and when
+    ``b`` or ``c`` vanishes (a zero block), ``None`` is returned. The sampled
+    plants of ordinary loops (relative degree 1 after sampling) stay far
+    inside the bound (``||b|| ||c|| / (|d| radius)`` below 0.4 for every
+    variant of the demo project).
 
     Parameters
     ----------
@@ -201,8 +194,8 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         The realization (n x n, n x 1, 1 x n, scalar), well scaled
         (balanced) for best accuracy.
     radius:
-        The scale of the problem (above the moduli of the poles): it sets
-        the tolerances for ``d``.
+        The scale of the problem (above the moduli of the poles): a lower
+        bound of ``nu`` in the tolerances for ``d``.
 
     Returns
     -------
@@ -221,7 +214,11 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         n = a.shape[0]
         nb = float(np.linalg.norm(b))
         nc = float(np.linalg.norm(c))
-        scale = nb * nc / radius
+        # the size of this stage's pencil: the backward error of QZ is eps times it
+        size = max(radius, math.sqrt(float(np.sum(a * a)) + nb * nb + nc * nc + d * d))
+        scale = nb * nc / size
+        if d == 0.0 and scale == 0.0:
+            return None  # a zero block (or no input): QZ reports what is left
         if abs(d) >= SCHUR_MIN_FEEDTHROUGH * scale:
             if n == 0:
                 return np.zeros(0, complex)
@@ -240,7 +237,6 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         a = a - beta * np.outer(v, va)
         b = b - beta * float(v @ b) * v
         a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
-
 
 
 def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, steps: int = 2) -> np.ndarray:
