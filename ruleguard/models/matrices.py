@@ -38,6 +38,10 @@ _THETA13 = 5.371920351148152e0
 #: ``|d| >= SCHUR_MIN_FEEDTHROUGH * ||b|| ||c|| / nu`` (rounding amplified
 #: at most tenfold); below, the caller's QZ algorithm is used.
 SCHUR_MIN_FEEDTHROUGH = 0.1
+#: Zeros smaller than this fraction of the terms of the Schur complement
+#: (``max(||a||_F, ||b|| ||c|| / |d|)``) are refined on the pencil: their
+#: absolute error is the rounding of those terms.
+REFINE_BELOW = 1e-2
 # [H05] coefficients b_0, ..., b_m of the [m/m] Pade numerator p_m(x)
 _PADE = {
     3: (120.0, 60.0, 12.0, 1.0),
@@ -117,11 +121,13 @@ def _pade(a: np.ndarray, m: int, ident: np.ndarray) -> np.ndarray:
 def balance_scaling(a: np.ndarray) -> np.ndarray:
     """Diagonal ``t`` (powers of 2) such that ``diag(t)^-1 A diag(t)`` is balanced.
 
-    The scaling loop of Parlett & Reinsch ([PR], as in LAPACK xGEBAL without
-    permutations): row and column ``i`` are scaled by a power of 2 until
-    their 2-norms (off the diagonal) are within a factor 2 of each other,
-    sweeping until no scaling reduces ``||row|| + ||column||`` by 5 %.
-    Powers of 2 make the similarity exact in floating point.
+    The scaling of Parlett & Reinsch ([PR], as in LAPACK xGEBAL without
+    permutations) in vectorised form: every row and column ``i`` whose
+    2-norms (off the diagonal) differ is scaled at once by the power of 2
+    closest to equalising them, when that reduces ``||row|| + ||column||`` by
+    5 %; when such a simultaneous step would increase the Frobenius norm,
+    only the single most profitable scaling is taken. Powers of 2 make the
+    similarity exact in floating point.
 
     Returns
     -------
@@ -133,6 +139,39 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
     t = np.ones(n)
     if n < 2:
         return t
+    sq = a * a
+    np.fill_diagonal(sq, 0.0)
+    for _ in range(60):
+        col = sq.sum(axis=0)
+        row = sq.sum(axis=1)
+        live = (col > 0.0) & (row > 0.0)
+        if not np.any(live):
+            break
+        # the power of 2 nearest to (r / c)^(1/4): equal row and column 2-norms
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k = np.where(live, np.round(0.25 * np.log2(row / col)), 0.0)
+            f = np.exp2(k)
+            c = np.sqrt(col)
+            r = np.sqrt(row)
+            gain = c * f + r / f < 0.95 * (c + r)
+        # scale only the most unbalanced index of each row/column neighbourhood
+        # at a time would be Parlett-Reinsch's order; scaling the ones with a
+        # gain together converges as well when each factor is halved once the
+        # sweep stops improving (below)
+        move = live & gain & (k != 0.0) & (np.abs(np.log2(t) + k) < 490)
+        if not np.any(move):
+            break
+        f = np.where(move, f, 1.0)
+        new = sq * (f * f)[None, :] / (f * f)[:, None]
+        if np.sqrt(new.sum()) > np.sqrt(sq.sum()):
+            # simultaneous steps overshoot: take the single best one
+            i = int(np.argmax(np.where(move, (c + r) - (c * f + r / f), -np.inf)))
+            f = np.ones(n)
+            f[i] = np.exp2(k[i])
+            new = sq * (f * f)[None, :] / (f * f)[:, None]
+        sq = new
+        t *= f
+    return t
     sq = a * a
     np.fill_diagonal(sq, 0.0)
     for _ in range(100):
@@ -176,7 +215,9 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     first row and column of the reflected pencil then hold no ``x`` and the
     pencil of the system ``(a~[1:, 1:], b~[1:], a~[0, 1:], b~[0])``
     (``a~ = H a H``, ``b~ = H b``) has the same finite eigenvalues with one
-    state less. Once ``d`` is not zero the zeros are the eigenvalues of the
+    state less (the largest entry of ``c`` is permuted to the front first,
+    so that an output of one state is deflated without rounding). Once ``d``
+    is not zero the zeros are the eigenvalues of the
     Schur complement ``a - b c / d``.
 
     With ``nu`` the larger of ``radius`` and the Frobenius norm of the
@@ -223,9 +264,22 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
             if n == 0:
                 return np.zeros(0, complex)
             roots = np.linalg.eigvals(a - np.outer(b / d, c)).astype(complex)
-            return _refine_zeros(pencil, roots)
+            # roots much smaller than the terms of the Schur complement hold
+            # their absolute accuracy only: refine them on the pencil
+            terms = max(math.sqrt(float(np.sum(a * a))), nb * nc / abs(d))
+            small = np.abs(roots) < REFINE_BELOW * terms
+            if np.any(small):
+                roots[small] = _refine_zeros(pencil, roots, small)
+            return roots
         if abs(d) > 1e-14 * scale or nc == 0.0 or n == 0:
             return None
+        # the largest output weight first (a symmetric permutation): the
+        # reflection below then mixes the states least, and an output that
+        # reads one state alone is taken over exactly
+        k = int(np.argmax(np.abs(c)))
+        if k:
+            order = np.r_[k, 0:k, k + 1:n]
+            a, b, c = a[np.ix_(order, order)], b[order], c[order]
         # Householder v with (I - 2 v v^T / v^T v) c^T = -sign(c_0) ||c|| e_1
         v = c.copy()
         v[0] += math.copysign(nc, c[0])
@@ -239,8 +293,9 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
 
 
-def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, steps: int = 2) -> np.ndarray:
-    """Aberth-Ehrlich refinement of the finite eigenvalues of ``(M, diag(I, 0))``.
+def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
+                  steps: int = 2) -> np.ndarray:
+    """Aberth-Ehrlich refinement of ``roots[which]``, eigenvalues of ``(M, diag(I, 0))``.
 
     ``det(M - x E)`` is a polynomial whose roots are exactly the finite
     eigenvalues, with logarithmic derivative
@@ -258,11 +313,9 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, steps: int = 2) -> np.n
     (the start is never that far off unless roots are multiple, where the
     refinement gains nothing).
     """
-    k = roots.size
-    if k == 0:
-        return roots
     n = pencil.shape[0] - 1
-    x = roots.astype(complex)
+    others = roots[~which]
+    x = roots[which].astype(complex)
     e = np.zeros((n + 1, n + 1))
     e[:n, :n] = np.eye(n)
     for _ in range(steps):
@@ -275,8 +328,10 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, steps: int = 2) -> np.n
             logd = -np.trace(inv[:, :n, :n], axis1=1, axis2=2)
             gaps = x[:, None] - x[None, :]
             np.fill_diagonal(gaps, np.inf)
-            step = 1.0 / (logd - np.sum(1.0 / gaps, axis=1))
-        near = np.min(np.abs(gaps), axis=1)
+            far = x[:, None] - others[None, :]
+            step = 1.0 / (logd - np.sum(1.0 / gaps, axis=1) - np.sum(1.0 / far, axis=1))
+        near = np.minimum(np.min(np.abs(gaps), axis=1, initial=np.inf),
+                          np.min(np.abs(far), axis=1, initial=np.inf))
         limit = 1e-3 * np.minimum(near, np.abs(x))
         ok = np.isfinite(step) & (np.abs(step) <= limit)
         if not np.any(ok):
