@@ -631,21 +631,35 @@ def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
     return np.concatenate([real, paired, np.conj(paired)])
 
 
-def _fit_angles() -> np.ndarray:
-    """Points ``theta = w h`` of the gain fit: from near ``z = 1`` up to the Nyquist point."""
-    return np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+_FIT_POINTS: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
 
-def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, theta: np.ndarray,
+def _fit_points() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(theta, z, z - 1)`` of the gain fit, ``z = e^{j theta}`` (computed once, read-only).
+
+    The points ``theta = w h`` run from near ``z = 1`` up to the Nyquist
+    point; they do not depend on ``h``.
+    """
+    global _FIT_POINTS
+    if _FIT_POINTS is None:
+        theta = np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+        x = 1j * theta
+        points = (theta, np.exp(x), np.expm1(x))
+        for arr in points:
+            arr.flags.writeable = False
+        _FIT_POINTS = points
+    return _FIT_POINTS
+
+
+def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, z: np.ndarray,
                      target: np.ndarray) -> tuple[float, float, np.ndarray]:
-    """Least-squares real gain, its largest relative misfit, and the points used."""
-    x = 1j * theta
+    """Least-squares real gain, its largest relative misfit, and the points used (at ``z``)."""
     with np.errstate(all="ignore"):
-        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
+        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(z)
     mag = np.abs(target)
     top = float(np.max(mag, initial=0.0))
     if top == 0.0:
-        return 0.0, 0.0, np.zeros(theta.shape, dtype=bool)
+        return 0.0, 0.0, np.zeros(z.shape, dtype=bool)
     keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
     if not np.any(keep):
         keep = mag >= 0.5 * top
@@ -666,10 +680,9 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
     rest (``s`` the factored shape, ``t`` the realization).
     """
     h = dss.sample_time_s
-    theta = _fit_angles()
-    x = 1j * theta
-    target = dss._evaluate(np.exp(x), np.expm1(x))
-    gain, resid, _ = _gain_and_misfit(h, zeros, poles, theta, target)
+    _, z, z_minus_1 = _fit_points()
+    target = dss._evaluate(z, z_minus_1)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
     if not resid <= 1e-5:
         warnings.warn(
             f"zero-order-hold equivalent: the factored form reproduces the state-space "
@@ -697,9 +710,8 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     modes = mh.modal_hold(block, h, whole, fraction)
     if modes is None:
         return None
-    theta = _fit_angles()
-    x = 1j * theta
-    target, amplification = modes.evaluate_with_amplification(np.exp(x), np.expm1(x))
+    _, z, z_minus_1 = _fit_points()
+    target, amplification = modes.evaluate_with_amplification(z, z_minus_1)
     mag = np.abs(target)
     top = float(np.max(mag, initial=0.0))
     if not (top > 0.0 and np.isfinite(top)):
@@ -712,8 +724,13 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     dss = DiscreteStateSpace(a, b, c, d, h, whole, shifted)
     poles = np.exp(block.poles * h)
     poles = np.concatenate([poles, np.zeros(int(modes.fraction) + whole, complex)])
-    zeros = discrete_zeros(dss)
-    gain, resid, _ = _gain_and_misfit(h, zeros, poles, theta, target)
+    # the eigenvalues of (A - I)/h are known: expm1(p h)/h, and -1/h for the delay state
+    lam = np.abs(modes.lam_minus_one)
+    radius = float(np.max(lam, initial=0.0)) / h
+    if modes.fraction:
+        radius = max(radius, 1.0 / h)
+    zeros = discrete_zeros(dss, radius)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
     if not resid <= mh.MODAL_MISFIT_LIMIT:
         return None
     return Factored(zeros, poles, gain, 0.0, h)

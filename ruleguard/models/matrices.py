@@ -250,7 +250,12 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     radius = float(radius)
     if not radius > 0.0:
         return None
-    pencil = np.block([[a, b[:, None]], [c[None, :], np.array([[d]])]])
+    n = a.shape[0]
+    pencil = np.empty((n + 1, n + 1))
+    pencil[:n, :n] = a
+    pencil[:n, n] = b
+    pencil[n, :n] = c
+    pencil[n, n] = d
     while True:
         n = a.shape[0]
         nb = float(np.linalg.norm(b))
