@@ -122,7 +122,8 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
     """Diagonal ``t`` (powers of 2) such that ``diag(t)^-1 A diag(t)`` is balanced.
 
     The scaling of Parlett & Reinsch ([PR], as in LAPACK xGEBAL without
-    permutations) in vectorised form: every row and column ``i`` whose
+    permutations); up to order ``_SMALL_BALANCE`` row by row as there, above
+    it in vectorised form: every row and column ``i`` whose
     2-norms (off the diagonal) differ is scaled at once by the power of 2
     closest to equalising them, when that reduces ``||row|| + ||column||`` by
     5 %; when such a simultaneous step would increase the Frobenius norm,
@@ -141,6 +142,8 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
         return t
     sq = a * a
     np.fill_diagonal(sq, 0.0)
+    if n <= _SMALL_BALANCE:
+        return np.array(_balance_small(sq.tolist()))
     for _ in range(60):
         col = sq.sum(axis=0)
         row = sq.sum(axis=1)
@@ -203,6 +206,50 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
     return t
 
 
+#: Up to this order :func:`balance_scaling` runs the sequential loop of
+#: Parlett & Reinsch on Python floats (cheaper than numpy calls there).
+_SMALL_BALANCE = 10
+
+
+def _balance_small(sq: list[list[float]]) -> list[float]:
+    """The sequential Parlett-Reinsch loop on squared off-diagonal entries."""
+    n = len(sq)
+    t = [1.0] * n
+    for _ in range(100):
+        changed = False
+        for i in range(n):
+            row_i = sq[i]
+            c2 = 0.0
+            for j in range(n):
+                c2 += sq[j][i]
+            r2 = sum(row_i)
+            if c2 == 0.0 or r2 == 0.0:
+                continue
+            c = math.sqrt(c2)
+            r = math.sqrt(r2)
+            s = c + r
+            f = 1.0
+            while c < 0.5 * r:
+                f *= 2.0
+                c *= 2.0
+                r *= 0.5
+            while c >= 2.0 * r:
+                f *= 0.5
+                c *= 0.5
+                r *= 2.0
+            if c + r >= 0.95 * s or not 1e-150 < t[i] * f < 1e150:
+                continue
+            changed = True
+            t[i] *= f
+            f2 = f * f
+            for j in range(n):
+                sq[j][i] *= f2
+                row_i[j] /= f2
+        if not changed:
+            break
+    return t
+
+
 def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
                radius: float) -> np.ndarray | None:
     """Finite invariant zeros of ``c (xI - a)^-1 b + d``, or ``None`` (use QZ instead).
@@ -258,20 +305,26 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     pencil[n, n] = d
     while True:
         n = a.shape[0]
-        nb = float(np.linalg.norm(b))
-        nc = float(np.linalg.norm(c))
+        nb2 = float(b @ b)
+        nc2 = float(c @ c)
+        na2 = float(np.vdot(a, a))
+        nb = math.sqrt(nb2)
+        nc = math.sqrt(nc2)
         # the size of this stage's pencil: the backward error of QZ is eps times it
-        size = max(radius, math.sqrt(float(np.sum(a * a)) + nb * nb + nc * nc + d * d))
+        size = max(radius, math.sqrt(na2 + nb2 + nc2 + d * d))
         scale = nb * nc / size
         if d == 0.0 and scale == 0.0:
             return None  # a zero block (or no input): QZ reports what is left
         if abs(d) >= SCHUR_MIN_FEEDTHROUGH * scale:
             if n == 0:
                 return np.zeros(0, complex)
-            roots = np.linalg.eigvals(a - np.outer(b / d, c)).astype(complex)
+            if n == 1:
+                roots = np.array([a[0, 0] - b[0] / d * c[0]], dtype=complex)
+            else:
+                roots = np.linalg.eigvals(a - np.outer(b / d, c)).astype(complex)
             # roots much smaller than the terms of the Schur complement hold
             # their absolute accuracy only: refine them on the pencil
-            terms = max(math.sqrt(float(np.sum(a * a))), nb * nc / abs(d))
+            terms = max(math.sqrt(na2), nb * nc / abs(d))
             small = np.abs(roots) < REFINE_BELOW * terms
             if np.any(small):
                 roots[small] = _refine_zeros(pencil, roots, small)
