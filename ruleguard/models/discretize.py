@@ -442,7 +442,7 @@ def zoh_state_space(
     Van Loan, "Computing integrals involving the matrix exponential", IEEE
     Trans. Automatic Control 23(3), 1978.
     """
-    import scipy.linalg  # lazy
+    from ruleguard.models.matrices import expm  # numpy only: no scipy import
 
     h = _check_sample_time(sample_time_s)
     ss, own_delay = _as_state_space(block)
@@ -457,7 +457,7 @@ def zoh_state_space(
     m[:n, 2 * n :] = b
 
     def blocks(t: float):
-        e = scipy.linalg.expm(m * t)
+        e = expm(m * t)
         return e[:n, :n], e[:n, n : 2 * n], e[:n, 2 * n :]
 
     if f == 0.0:
@@ -554,7 +554,7 @@ def zoh_equivalent(
     return Factored(zeros, poles, gain, 0.0, h)
 
 
-def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
+def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) -> np.ndarray:
     """Finite invariant zeros of a discrete realization (whole-sample delay excluded).
 
     With ``z = 1 + h delta`` the transfer function is
@@ -567,6 +567,12 @@ def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
     computed directly instead of as a small difference of numbers near 1.
     The result is made exactly conjugate-symmetric.
 
+    The pencil is balanced and its infinite eigenvalues are deflated in numpy
+    (:func:`ruleguard.models.matrices.siso_zeros`); only a feedthrough in the
+    delicate range it declines, or a zero output, goes to the QZ algorithm of
+    ``scipy.linalg``. ``pole_radius`` (``max |eig(F)|``) may be passed when
+    the caller knows the poles, saving one eigenvalue computation.
+
     References
     ----------
     Emami-Naeini & Van Dooren, "Computation of zeros of linear multivariable
@@ -574,24 +580,37 @@ def discrete_zeros(dss: DiscreteStateSpace) -> np.ndarray:
     R. H. Middleton, G. C. Goodwin, Digital Control and Estimation: A Unified
     Approach, Prentice Hall, 1990 (the delta operator).
     """
-    import scipy.linalg  # lazy
+    from ruleguard.models.matrices import balance_scaling, siso_zeros
 
     n = dss.order
     if n == 0:
         return np.zeros(0, complex)
     h = dss.sample_time_s
     f = dss.shifted_a() / h
-    g = dss.b / h
-    pencil = np.block([[f, g], [dss.c, dss.d]])
+    pencil = np.empty((n + 1, n + 1))
+    pencil[:n, :n] = f
+    pencil[:n, n:] = dss.b / h
+    pencil[n:, :n] = dss.c
+    pencil[n, n] = dss.d[0, 0]
     # a diagonal similarity leaves E = diag(I, 0) as it is: balance the
     # pencil (Parlett-Reinsch) so that fast and slow modes have like scales
-    pencil, _ = scipy.linalg.matrix_balance(pencil, permute=False, separate=True)
-    e = np.zeros((n + 1, n + 1))
-    e[:n, :n] = np.eye(n)
-    alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
-    radius = 1.0 / h + float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
-    finite = np.abs(alpha) < ZERO_INFINITY_RATIO * radius * np.abs(beta)
-    delta = _conjugate_symmetric(alpha[finite] / beta[finite])
+    t = balance_scaling(pencil)
+    pencil = pencil * t[None, :] / t[:, None]
+    if pole_radius is None:
+        pole_radius = float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
+    radius = 1.0 / h + pole_radius
+    gev = siso_zeros(pencil[:n, :n], pencil[:n, n], pencil[n, :n], pencil[n, n], radius)
+    if gev is None:  # a delicate feedthrough or a zero block: the QZ algorithm
+        import scipy.linalg  # lazy: rare
+
+        e = np.zeros((n + 1, n + 1))
+        e[:n, :n] = np.eye(n)
+        alpha, beta = scipy.linalg.eig(pencil, e, right=False, homogeneous_eigvals=True)
+        finite = np.abs(alpha) < ZERO_INFINITY_RATIO * radius * np.abs(beta)
+        gev = alpha[finite] / beta[finite]
+    else:
+        gev = gev[np.abs(gev) < ZERO_INFINITY_RATIO * radius]
+    delta = _conjugate_symmetric(gev)
     return 1.0 + h * delta
 
 
@@ -612,21 +631,35 @@ def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
     return np.concatenate([real, paired, np.conj(paired)])
 
 
-def _fit_angles() -> np.ndarray:
-    """Points ``theta = w h`` of the gain fit: from near ``z = 1`` up to the Nyquist point."""
-    return np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+_FIT_POINTS: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None
 
 
-def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, theta: np.ndarray,
+def _fit_points() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(theta, z, z - 1)`` of the gain fit, ``z = e^{j theta}`` (computed once, read-only).
+
+    The points ``theta = w h`` run from near ``z = 1`` up to the Nyquist
+    point; they do not depend on ``h``.
+    """
+    global _FIT_POINTS
+    if _FIT_POINTS is None:
+        theta = np.concatenate([np.geomspace(1e-7, 0.05, 120), np.linspace(0.05, math.pi, 200)])
+        x = 1j * theta
+        points = (theta, np.exp(x), np.expm1(x))
+        for arr in points:
+            arr.flags.writeable = False
+        _FIT_POINTS = points
+    return _FIT_POINTS
+
+
+def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, z: np.ndarray,
                      target: np.ndarray) -> tuple[float, float, np.ndarray]:
-    """Least-squares real gain, its largest relative misfit, and the points used."""
-    x = 1j * theta
+    """Least-squares real gain, its largest relative misfit, and the points used (at ``z``)."""
     with np.errstate(all="ignore"):
-        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(np.exp(x))
+        shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(z)
     mag = np.abs(target)
     top = float(np.max(mag, initial=0.0))
     if top == 0.0:
-        return 0.0, 0.0, np.zeros(theta.shape, dtype=bool)
+        return 0.0, 0.0, np.zeros(z.shape, dtype=bool)
     keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
     if not np.any(keep):
         keep = mag >= 0.5 * top
@@ -647,10 +680,9 @@ def _fit_gain(dss: DiscreteStateSpace, zeros: np.ndarray, poles: np.ndarray) -> 
     rest (``s`` the factored shape, ``t`` the realization).
     """
     h = dss.sample_time_s
-    theta = _fit_angles()
-    x = 1j * theta
-    target = dss._evaluate(np.exp(x), np.expm1(x))
-    gain, resid, _ = _gain_and_misfit(h, zeros, poles, theta, target)
+    _, z, z_minus_1 = _fit_points()
+    target = dss._evaluate(z, z_minus_1)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
     if not resid <= 1e-5:
         warnings.warn(
             f"zero-order-hold equivalent: the factored form reproduces the state-space "
@@ -678,9 +710,8 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     modes = mh.modal_hold(block, h, whole, fraction)
     if modes is None:
         return None
-    theta = _fit_angles()
-    x = 1j * theta
-    target, amplification = modes.evaluate_with_amplification(np.exp(x), np.expm1(x))
+    _, z, z_minus_1 = _fit_points()
+    target, amplification = modes.evaluate_with_amplification(z, z_minus_1)
     mag = np.abs(target)
     top = float(np.max(mag, initial=0.0))
     if not (top > 0.0 and np.isfinite(top)):
@@ -693,8 +724,13 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     dss = DiscreteStateSpace(a, b, c, d, h, whole, shifted)
     poles = np.exp(block.poles * h)
     poles = np.concatenate([poles, np.zeros(int(modes.fraction) + whole, complex)])
-    zeros = discrete_zeros(dss)
-    gain, resid, _ = _gain_and_misfit(h, zeros, poles, theta, target)
+    # the eigenvalues of (A - I)/h are known: expm1(p h)/h, and -1/h for the delay state
+    lam = np.abs(modes.lam_minus_one)
+    radius = float(np.max(lam, initial=0.0)) / h
+    if modes.fraction:
+        radius = max(radius, 1.0 / h)
+    zeros = discrete_zeros(dss, radius)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
     if not resid <= mh.MODAL_MISFIT_LIMIT:
         return None
     return Factored(zeros, poles, gain, 0.0, h)
@@ -704,11 +740,11 @@ def _as_state_space(block: Factored | StateSpace) -> tuple[StateSpace, float]:
     if isinstance(block, StateSpace):
         if block.order == 0:
             return block, block.delay_s
-        import scipy.linalg  # lazy
+        from ruleguard.models.matrices import balance_scaling
 
         # diagonal similarity x = T x' (Parlett-Reinsch balancing) so that the
         # matrix exponential works on a matrix with rows and columns of like size
-        _, (scale, _) = scipy.linalg.matrix_balance(block.a, permute=False, separate=True)
+        scale = balance_scaling(block.a)
         a = block.a * scale[None, :] / scale[:, None]
         b = block.b / scale[:, None]
         c = block.c * scale[None, :]

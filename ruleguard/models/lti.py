@@ -275,19 +275,28 @@ class StateSpace:
         Rosenbrock system pencil ``([[A, B], [C, D]], [[I, 0], [0, 0]])``
         (Emami-Naeini & Van Dooren, "Computation of zeros of linear
         multivariable systems", Automatica 18(4), 1982). The gain follows
-        from one evaluation at a point away from every root.
+        from one evaluation at a point away from every root. The pencil is
+        balanced and deflated in numpy (:func:`ruleguard.models.matrices.siso_zeros`);
+        the QZ algorithm of ``scipy.linalg`` is kept for the cases it declines.
         """
-        import scipy.linalg  # lazy: keeps start-up cheap
+        from ruleguard.models.matrices import balance_scaling, siso_zeros
 
         n = self.order
         poles = np.linalg.eigvals(self.a) if n else np.zeros(0, complex)
         if n == 0:
             return Factored([], [], float(self.d[0, 0]), self.delay_s)
         m = np.block([[self.a, self.b], [self.c, self.d]])
-        e = np.zeros((n + 1, n + 1))
-        e[:n, :n] = np.eye(n)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            gev = scipy.linalg.eigvals(m, e)
+        t = balance_scaling(m)  # a diagonal similarity keeps the zeros
+        m = m * t[None, :] / t[:, None]
+        radius = 1.0 + float(np.max(np.abs(poles), initial=1.0))
+        gev = siso_zeros(m[:n, :n], m[:n, n], m[n, :n], m[n, n], radius)
+        if gev is None:  # a delicate feedthrough or a zero output: the QZ algorithm
+            import scipy.linalg  # lazy: rare
+
+            e = np.zeros((n + 1, n + 1))
+            e[:n, :n] = np.eye(n)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                gev = scipy.linalg.eigvals(m, e)
         finite = np.isfinite(gev) & (np.abs(gev) < 1e12 * (1 + np.max(np.abs(poles), initial=1)))
         zeros = gev[finite]
         # Gain from the response at a probe point away from all roots.

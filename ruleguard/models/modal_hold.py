@@ -148,35 +148,41 @@ class ModalHold:
         ``u[k - 1]`` as in :func:`ruleguard.models.discretize.zoh_state_space`.
         """
         upper, real = _pair_indices(self.poles)
-        n = 2 * len(upper) + len(real)
+        nu, nr = len(upper), len(real)
+        n = 2 * nu + nr
         f = 1 if self.fraction else 0
         shifted = np.zeros((n + f, n + f))  # a - I
         b = np.zeros((n + f, 1))
         c = np.zeros((1, n + f))
-
-        def rot(q: complex) -> np.ndarray:
-            return np.array([[q.real, q.imag], [-q.imag, q.real]])
-
-        k = 0
-        for i in upper:
-            r = complex(self.residue[i])
-            t = float(np.sqrt(2.0 * abs(r))) or 1.0
-            shifted[k:k + 2, k:k + 2] = rot(complex(self.lam_minus_one[i]))
-            bc = np.array([0.0, t])
-            b[k:k + 2, 0] = rot(complex(self.q0[i])) @ bc
-            if f:
-                shifted[k:k + 2, n] = rot(complex(self.q1[i])) @ bc
-            c[0, k:k + 2] = [-2.0 * r.imag / t, 2.0 * r.real / t]
-            k += 2
-        for i in real:
-            r = float(self.residue[i].real)
-            t = float(np.sqrt(abs(r))) or 1.0
-            shifted[k, k] = self.lam_minus_one[i].real
-            b[k, 0] = self.q0[i].real * t
-            if f:
-                shifted[k, n] = self.q1[i].real * t
-            c[0, k] = r / t
-            k += 1
+        # pairs: states 2k, 2k + 1 (k < nu); a function of the rotation block
+        # of q is the rotation block of the function, rot(q) @ [0, t] = t [Im q, Re q]
+        r = self.residue[upper]
+        t = np.sqrt(2.0 * np.abs(r))
+        t = np.where(t > 0.0, t, 1.0)
+        lam = self.lam_minus_one[upper]
+        first = np.arange(0, 2 * nu, 2)
+        second = first + 1
+        shifted[first, first] = lam.real
+        shifted[first, second] = lam.imag
+        shifted[second, first] = -lam.imag
+        shifted[second, second] = lam.real
+        b[first, 0] = self.q0[upper].imag * t
+        b[second, 0] = self.q0[upper].real * t
+        if f:
+            shifted[first, n] = self.q1[upper].imag * t
+            shifted[second, n] = self.q1[upper].real * t
+        c[0, first] = -2.0 * r.imag / t
+        c[0, second] = 2.0 * r.real / t
+        # real poles: states 2 nu ..
+        rr = self.residue[real].real
+        tr = np.sqrt(np.abs(rr))
+        tr = np.where(tr > 0.0, tr, 1.0)
+        idx = np.arange(2 * nu, n)
+        shifted[idx, idx] = self.lam_minus_one[real].real
+        b[idx, 0] = self.q0[real].real * tr
+        if f:
+            shifted[idx, n] = self.q1[real].real * tr
+        c[0, idx] = rr / tr
         if f:
             shifted[n, n] = -1.0
             b[n, 0] = 1.0

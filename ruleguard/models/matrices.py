@@ -1,0 +1,398 @@
+"""Dense matrix functions in numpy alone: exponential, balancing, SISO system zeros.
+
+The model-building path of an ordinary loop (zero-order-hold equivalents,
+discrete zeros, state-space conversions) needs a matrix exponential, a
+diagonal balancing and the invariant zeros of a single-input single-output
+realization. Importing ``scipy.linalg`` for them costs about 0.2 s, most of a
+cold check; these routines use ``numpy`` only. :func:`siso_zeros` declines
+(returns ``None``) in the rare numerically delicate cases, where the caller
+uses the QZ algorithm of ``scipy.linalg`` instead.
+
+References
+----------
+.. [H05] N. J. Higham, "The scaling and squaring method for the matrix
+   exponential revisited", SIAM J. Matrix Anal. Appl. 26(4), 2005,
+   pp. 1179-1193 (Algorithm 2.3, Table 2.3 and the coefficients of the
+   [m/m] Pade approximants).
+.. [PR] B. N. Parlett, C. Reinsch, "Balancing a matrix for calculation of
+   eigenvalues and eigenvectors", Numer. Math. 13, 1969, pp. 293-304
+   (the scaling loop of LAPACK xGEBAL).
+.. [EV] A. Emami-Naeini, P. Van Dooren, "Computation of zeros of linear
+   multivariable systems", Automatica 18(4), 1982, pp. 415-430 (orthogonal
+   deflation of the system pencil, here in its single-input single-output
+   form).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+# [H05] Table 2.3: the largest ||A||_1 for which the [m/m] Pade approximant
+# has a backward error below the unit roundoff 2^-53.
+_THETA = ((3, 1.495585217958292e-2), (5, 2.539398330063230e-1),
+          (7, 9.504178996162932e-1), (9, 2.097847961257068e0))
+_THETA13 = 5.371920351148152e0
+#: :func:`siso_zeros` forms the Schur complement ``a - b c / d`` only when
+#: ``|d| >= SCHUR_MIN_FEEDTHROUGH * ||b|| ||c|| / nu`` (rounding amplified
+#: at most tenfold); below, the caller's QZ algorithm is used.
+SCHUR_MIN_FEEDTHROUGH = 0.1
+#: Zeros smaller than this fraction of the terms of the Schur complement
+#: (``max(||a||_F, ||b|| ||c|| / |d|)``) are refined on the pencil: their
+#: absolute error is the rounding of those terms.
+REFINE_BELOW = 1e-2
+# [H05] coefficients b_0, ..., b_m of the [m/m] Pade numerator p_m(x)
+_PADE = {
+    3: (120.0, 60.0, 12.0, 1.0),
+    5: (30240.0, 15120.0, 3360.0, 420.0, 30.0, 1.0),
+    7: (17297280.0, 8648640.0, 1995840.0, 277200.0, 25200.0, 1512.0, 56.0, 1.0),
+    9: (17643225600.0, 8821612800.0, 2075673600.0, 302702400.0, 30270240.0,
+        2162160.0, 110880.0, 3960.0, 90.0, 1.0),
+    13: (64764752532480000.0, 32382376266240000.0, 7771770303897600.0,
+         1187353796428800.0, 129060195264000.0, 10559470521600.0,
+         670442572800.0, 33522128640.0, 1323241920.0, 40840800.0, 960960.0,
+         16380.0, 182.0, 1.0),
+}
+
+
+def expm(a: np.ndarray) -> np.ndarray:
+    """Matrix exponential ``e^A`` by scaling and squaring ([H05] Algorithm 2.3).
+
+    With ``||A||_1 <= theta_m`` for ``m`` in 3, 5, 7, 9 the [m/m] Pade
+    approximant ``r_m(A) = q_m(A)^-1 p_m(A)`` is used directly; otherwise
+    ``A`` is scaled by ``2^-s`` so that ``||2^-s A||_1 <= theta_13``, the
+    [13/13] approximant is formed and squared ``s`` times. The thresholds
+    ``theta_m`` bound the backward error by the unit roundoff, so the result
+    is as accurate as the conditioning of ``e^A`` allows.
+
+    Parameters
+    ----------
+    a:
+        Real or complex square matrix.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``e^A``, same dtype kind as ``a`` (float or complex).
+    """
+    a = np.asarray(a)
+    if a.dtype.kind not in "fc":
+        a = a.astype(float)
+    n = a.shape[0]
+    if a.ndim != 2 or a.shape[1] != n:
+        raise ValueError(f"expm needs a square matrix, got shape {a.shape}")
+    if n == 0:
+        return np.zeros((0, 0), dtype=a.dtype)
+    if not np.all(np.isfinite(a)):
+        raise ValueError("expm needs a finite matrix")
+    norm = float(np.max(np.sum(np.abs(a), axis=0)))
+    ident = np.eye(n, dtype=a.dtype)
+    for m, theta in _THETA:
+        if norm <= theta:
+            return _pade(a, m, ident)
+    s = max(0, int(math.ceil(math.log2(norm / _THETA13))))
+    x = _pade(a * (2.0 ** -s), 13, ident)
+    for _ in range(s):
+        x = x @ x
+    return x
+
+
+def _pade(a: np.ndarray, m: int, ident: np.ndarray) -> np.ndarray:
+    """The [m/m] Pade approximant of ``e^A``: solve ``(V - U) X = V + U`` ([H05] (2.3))."""
+    b = _PADE[m]
+    a2 = a @ a
+    if m == 13:
+        a4 = a2 @ a2
+        a6 = a4 @ a2
+        u = a @ (a6 @ (b[13] * a6 + b[11] * a4 + b[9] * a2)
+                 + b[7] * a6 + b[5] * a4 + b[3] * a2 + b[1] * ident)
+        v = (a6 @ (b[12] * a6 + b[10] * a4 + b[8] * a2)
+             + b[6] * a6 + b[4] * a4 + b[2] * a2 + b[0] * ident)
+    else:
+        powers = [ident, a2]
+        for _ in range(2, m // 2 + 1):
+            powers.append(powers[-1] @ a2)
+        u = a @ sum(b[2 * k + 1] * powers[k] for k in range(m // 2 + 1))
+        v = sum(b[2 * k] * powers[k] for k in range(m // 2 + 1))
+    return np.linalg.solve(v - u, v + u)
+
+
+def balance_scaling(a: np.ndarray) -> np.ndarray:
+    """Diagonal ``t`` (powers of 2) such that ``diag(t)^-1 A diag(t)`` is balanced.
+
+    The scaling of Parlett & Reinsch ([PR], as in LAPACK xGEBAL without
+    permutations); up to order ``_SMALL_BALANCE`` row by row as there, above
+    it in vectorised form: every row and column ``i`` whose
+    2-norms (off the diagonal) differ is scaled at once by the power of 2
+    closest to equalising them, when that reduces ``||row|| + ||column||`` by
+    5 %; when such a simultaneous step would increase the Frobenius norm,
+    only the single most profitable scaling is taken. Powers of 2 make the
+    similarity exact in floating point.
+
+    Returns
+    -------
+    numpy.ndarray
+        The scale vector ``t`` (``A_balanced = A * t[None, :] / t[:, None]``).
+    """
+    a = np.array(a, dtype=float)
+    n = a.shape[0]
+    t = np.ones(n)
+    if n < 2:
+        return t
+    sq = a * a
+    np.fill_diagonal(sq, 0.0)
+    if n <= _SMALL_BALANCE:
+        return np.array(_balance_small(sq.tolist()))
+    for _ in range(60):
+        col = sq.sum(axis=0)
+        row = sq.sum(axis=1)
+        live = (col > 0.0) & (row > 0.0)
+        if not np.any(live):
+            break
+        # the power of 2 nearest to (r / c)^(1/4): equal row and column 2-norms
+        with np.errstate(divide="ignore", invalid="ignore"):
+            k = np.where(live, np.round(0.25 * np.log2(row / col)), 0.0)
+            f = np.exp2(k)
+            c = np.sqrt(col)
+            r = np.sqrt(row)
+            gain = c * f + r / f < 0.95 * (c + r)
+        # scale only the most unbalanced index of each row/column neighbourhood
+        # at a time would be Parlett-Reinsch's order; scaling the ones with a
+        # gain together converges as well when each factor is halved once the
+        # sweep stops improving (below)
+        move = live & gain & (k != 0.0) & (np.abs(np.log2(t) + k) < 490)
+        if not np.any(move):
+            break
+        f = np.where(move, f, 1.0)
+        new = sq * (f * f)[None, :] / (f * f)[:, None]
+        if np.sqrt(new.sum()) > np.sqrt(sq.sum()):
+            # simultaneous steps overshoot: take the single best one
+            i = int(np.argmax(np.where(move, (c + r) - (c * f + r / f), -np.inf)))
+            f = np.ones(n)
+            f[i] = np.exp2(k[i])
+            new = sq * (f * f)[None, :] / (f * f)[:, None]
+        sq = new
+        t *= f
+    return t
+    sq = a * a
+    np.fill_diagonal(sq, 0.0)
+    for _ in range(100):
+        changed = False
+        for i in range(n):
+            c = math.sqrt(float(sq[:, i].sum()))
+            r = math.sqrt(float(sq[i, :].sum()))
+            if c == 0.0 or r == 0.0:
+                continue
+            s = c + r
+            f = 1.0
+            while c < 0.5 * r:
+                f *= 2.0
+                c *= 2.0
+                r *= 0.5
+            while c >= 2.0 * r:
+                f *= 0.5
+                c *= 0.5
+                r *= 2.0
+            if c + r >= 0.95 * s or not 1e-150 < t[i] * f < 1e150:
+                continue
+            changed = True
+            t[i] *= f
+            # column i times f, row i divided by f (squared entries)
+            sq[:, i] *= f * f
+            sq[i, :] /= f * f
+        if not changed:
+            break
+    return t
+
+
+#: Up to this order :func:`balance_scaling` runs the sequential loop of
+#: Parlett & Reinsch on Python floats (cheaper than numpy calls there).
+_SMALL_BALANCE = 10
+
+
+def _balance_small(sq: list[list[float]]) -> list[float]:
+    """The sequential Parlett-Reinsch loop on squared off-diagonal entries."""
+    n = len(sq)
+    t = [1.0] * n
+    for _ in range(100):
+        changed = False
+        for i in range(n):
+            row_i = sq[i]
+            c2 = 0.0
+            for j in range(n):
+                c2 += sq[j][i]
+            r2 = sum(row_i)
+            if c2 == 0.0 or r2 == 0.0:
+                continue
+            c = math.sqrt(c2)
+            r = math.sqrt(r2)
+            s = c + r
+            f = 1.0
+            while c < 0.5 * r:
+                f *= 2.0
+                c *= 2.0
+                r *= 0.5
+            while c >= 2.0 * r:
+                f *= 0.5
+                c *= 0.5
+                r *= 2.0
+            if c + r >= 0.95 * s or not 1e-150 < t[i] * f < 1e150:
+                continue
+            changed = True
+            t[i] *= f
+            f2 = f * f
+            for j in range(n):
+                sq[j][i] *= f2
+                row_i[j] /= f2
+        if not changed:
+            break
+    return t
+
+
+def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
+               radius: float) -> np.ndarray | None:
+    """Finite invariant zeros of ``c (xI - a)^-1 b + d``, or ``None`` (use QZ instead).
+
+    The zeros are the finite eigenvalues of the pencil
+    ``([[a, b], [c, d]], [[I, 0], [0, 0]])``. The orthogonal deflation of
+    [EV] in its single-input single-output form removes its infinite
+    eigenvalues one by one: while ``d`` is zero, a Householder reflection
+    ``H`` (``c H = gamma e_1``) takes the output to the first state; the
+    first row and column of the reflected pencil then hold no ``x`` and the
+    pencil of the system ``(a~[1:, 1:], b~[1:], a~[0, 1:], b~[0])``
+    (``a~ = H a H``, ``b~ = H b``) has the same finite eigenvalues with one
+    state less (the largest entry of ``c`` is permuted to the front first,
+    so that an output of one state is deflated without rounding). Once ``d``
+    is not zero the zeros are the eigenvalues of the
+    Schur complement ``a - b c / d``.
+
+    With ``nu`` the larger of ``radius`` and the Frobenius norm of the
+    current pencil, ``d`` counts as zero below ``1e-14 ||b|| ||c|| / nu``
+    (the next deflation step) and the Schur complement is formed above
+    ``SCHUR_MIN_FEEDTHROUGH ||b|| ||c|| / nu``; in between, and when
+    ``b`` or ``c`` vanishes (a zero block), ``None`` is returned. The sampled
+    plants of ordinary loops (relative degree 1 after sampling) stay far
+    inside the bound (``||b|| ||c|| / (|d| radius)`` below 0.4 for every
+    variant of the demo project).
+
+    Parameters
+    ----------
+    a, b, c, d:
+        The realization (n x n, n x 1, 1 x n, scalar), well scaled
+        (balanced) for best accuracy.
+    radius:
+        The scale of the problem (above the moduli of the poles): a lower
+        bound of ``nu`` in the tolerances for ``d``.
+
+    Returns
+    -------
+    numpy.ndarray or None
+        The finite zeros (complex), ``None`` when the problem is left to QZ.
+    """
+    a = np.array(a, dtype=float)
+    b = np.array(b, dtype=float).reshape(-1)
+    c = np.array(c, dtype=float).reshape(-1)
+    d = float(d)
+    radius = float(radius)
+    if not radius > 0.0:
+        return None
+    n = a.shape[0]
+    pencil = np.empty((n + 1, n + 1))
+    pencil[:n, :n] = a
+    pencil[:n, n] = b
+    pencil[n, :n] = c
+    pencil[n, n] = d
+    while True:
+        n = a.shape[0]
+        nb2 = float(b @ b)
+        nc2 = float(c @ c)
+        na2 = float(np.vdot(a, a))
+        nb = math.sqrt(nb2)
+        nc = math.sqrt(nc2)
+        # the size of this stage's pencil: the backward error of QZ is eps times it
+        size = max(radius, math.sqrt(na2 + nb2 + nc2 + d * d))
+        scale = nb * nc / size
+        if d == 0.0 and scale == 0.0:
+            return None  # a zero block (or no input): QZ reports what is left
+        if abs(d) >= SCHUR_MIN_FEEDTHROUGH * scale:
+            if n == 0:
+                return np.zeros(0, complex)
+            if n == 1:
+                roots = np.array([a[0, 0] - b[0] / d * c[0]], dtype=complex)
+            else:
+                roots = np.linalg.eigvals(a - np.outer(b / d, c)).astype(complex)
+            # roots much smaller than the terms of the Schur complement hold
+            # their absolute accuracy only: refine them on the pencil
+            terms = max(math.sqrt(na2), nb * nc / abs(d))
+            small = np.abs(roots) < REFINE_BELOW * terms
+            if np.any(small):
+                roots[small] = _refine_zeros(pencil, roots, small)
+            return roots
+        if abs(d) > 1e-14 * scale or nc == 0.0 or n == 0:
+            return None
+        # the largest output weight first (a symmetric permutation): the
+        # reflection below then mixes the states least, and an output that
+        # reads one state alone is taken over exactly
+        k = int(np.argmax(np.abs(c)))
+        if k:
+            order = np.r_[k, 0:k, k + 1:n]
+            a, b, c = a[np.ix_(order, order)], b[order], c[order]
+        # Householder v with (I - 2 v v^T / v^T v) c^T = -sign(c_0) ||c|| e_1
+        v = c.copy()
+        v[0] += math.copysign(nc, c[0])
+        beta = 2.0 / float(v @ v)
+        # a~ = H a H, b~ = H b
+        av = a @ v
+        a = a - beta * np.outer(av, v)
+        va = v @ a
+        a = a - beta * np.outer(v, va)
+        b = b - beta * float(v @ b) * v
+        a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
+
+
+def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
+                  steps: int = 2) -> np.ndarray:
+    """Aberth-Ehrlich refinement of ``roots[which]``, eigenvalues of ``(M, diag(I, 0))``.
+
+    ``det(M - x E)`` is a polynomial whose roots are exactly the finite
+    eigenvalues, with logarithmic derivative
+    ``f'/f (x) = -trace((M - x E)^-1 E)``. The step
+    ``x_k <- x_k - 1 / (f'/f (x_k) - sum_{j != k} 1 / (x_k - x_j))``
+    (O. Aberth, "Iteration methods for finding all zeros of a polynomial
+    simultaneously", Math. Comp. 27(122), 1973) converges cubically to
+    simple roots, and the other approximations keep each one from jumping
+    to a neighbour. Evaluated through an LU factorization of ``M - x E``
+    (backward stable), the roots reached are those of a pencil within
+    rounding of ``M``, whatever the cancellation in the Schur complement the
+    start came from: a small zero of a pencil with a large norm gains its
+    relative digits back. A step that would move a root by more than a
+    thousandth of its modulus or of its distance to the others is not taken
+    (the start is never that far off unless roots are multiple, where the
+    refinement gains nothing).
+    """
+    n = pencil.shape[0] - 1
+    others = roots[~which]
+    x = roots[which].astype(complex)
+    e = np.zeros((n + 1, n + 1))
+    e[:n, :n] = np.eye(n)
+    for _ in range(steps):
+        mats = pencil[None, :, :] - x[:, None, None] * e[None, :, :]
+        try:
+            inv = np.linalg.inv(mats)
+        except np.linalg.LinAlgError:
+            break  # a root exact to working precision
+        with np.errstate(all="ignore"):
+            logd = -np.trace(inv[:, :n, :n], axis1=1, axis2=2)
+            gaps = x[:, None] - x[None, :]
+            np.fill_diagonal(gaps, np.inf)
+            far = x[:, None] - others[None, :]
+            step = 1.0 / (logd - np.sum(1.0 / gaps, axis=1) - np.sum(1.0 / far, axis=1))
+        near = np.minimum(np.min(np.abs(gaps), axis=1, initial=np.inf),
+                          np.min(np.abs(far), axis=1, initial=np.inf))
+        limit = 1e-3 * np.minimum(near, np.abs(x))
+        ok = np.isfinite(step) & (np.abs(step) <= limit)
+        if not np.any(ok):
+            break
+        x = x - np.where(ok, step, 0.0)
+    return x
