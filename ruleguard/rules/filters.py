@@ -209,21 +209,83 @@ def plant_resonances(
     return out
 
 
-def _peaks_db(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[float, float]]:
+#: Samples per resonance window of the screen that rules a variant's resonances out
+#: before the fine grid (:func:`_below_floor`).
+_SCREEN_POINTS = 65
+
+
+def _windows(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[float, float]]:
+    """The frequency window ``w_peak (1 +- 4 zeta)`` (rad/s) looked at for each resonance."""
+    top = open_loop.w_max
+    out = []
+    for w_peak, zeta in resonances:
+        half = min(max(4.0 * abs(zeta), 1e-4), 0.9)
+        lo = w_peak * (1.0 - half)
+        hi = min(w_peak * (1.0 + half), top) if math.isfinite(top) else w_peak * (1.0 + half)
+        out.append((lo, hi))
+    return out
+
+
+def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float) -> bool:
+    """True when |L| is certainly below ``floor_db`` on every window (rational L only).
+
+    On a step ``[a, b]`` of a coarse grid, ``d log|L| / dw`` is bounded by
+    ``|dx/dw| sum_r 1/dist(r, x([a, b]))`` over the zeros and poles ``r`` of
+    ``L`` (``x = j w``, ``|dx/dw| = 1``; ``x = exp(j w h)``, ``|dx/dw| = h``;
+    a transport delay leaves ``|L|`` alone), the distance taken from the
+    step's midpoint minus the path length to its ends. So on the step
+    ``log|L| <= (log|L(a)| + log|L(b)|)/2 + (b - a)/2 * bound`` (the two
+    linear bounds from each end meet there). ``False`` whenever the bound is
+    not finite (a root on or next to the step, measured factors).
+    """
+    if open_loop.factors or not windows:
+        return False
+    rational = open_loop.rational
+    roots = np.concatenate([rational.zeros, rational.poles])
+    h = rational.sample_time_s
+    edges = []
+    for lo, hi in windows:
+        a, b = min(lo, hi), max(lo, hi)
+        if not (math.isfinite(a) and math.isfinite(b) and b > a > 0):
+            return False
+        edges.append(np.linspace(a, b, _SCREEN_POINTS))
+    w = np.stack(edges)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        log_mag = np.log(np.abs(rational.response(w.ravel()))).reshape(w.shape)
+        if not np.all(np.isfinite(log_mag)):
+            return False
+        mid = 0.5 * (w[:, 1:] + w[:, :-1])
+        half = 0.5 * (w[:, 1:] - w[:, :-1])
+        speed = 1.0 if h is None else h
+        x = 1j * mid if h is None else np.exp(1j * mid * h)
+        dist = np.abs(x[..., None] - roots) - (speed * half)[..., None]
+        if roots.size and not np.all(dist > 0):
+            return False
+        slope = speed * np.sum(1.0 / dist, axis=-1) if roots.size else 0.0 * mid
+        top = 0.5 * (log_mag[:, 1:] + log_mag[:, :-1]) + half * slope
+        if not np.all(np.isfinite(top)):
+            return False
+    return bool(np.max(top) * (20.0 / math.log(10.0)) < floor_db - 1e-6)
+
+
+def _peaks_db(open_loop, resonances: list[tuple[float, float]],
+              floor_db: float | None = None) -> list[tuple[float, float]]:
     """``(w, |L| dB)`` at the largest |L| across each resonance ``(w_peak, zeta)``, refined.
 
     Every resonance is sampled at 801 points across ``w_peak (1 +- 4 zeta)``
     (one evaluation for all of them); each grid maximum is then refined
     between its neighbours by :func:`ruleguard.rules.responses.refine_maxima`.
+    With ``floor_db``, when :func:`_below_floor` shows that |L| stays below it
+    across every window, the grid and its refinement are skipped: each
+    resonance gets ``(w_peak, -inf)`` (a value below the floor, not a peak).
     """
     if not resonances:
         return []
-    top = open_loop.w_max
+    windows = _windows(open_loop, resonances)
+    if floor_db is not None and _below_floor(open_loop, windows, floor_db):
+        return [(float(w_peak), -math.inf) for w_peak, _ in resonances]
     grids = []
-    for w_peak, zeta in resonances:
-        half = min(max(4.0 * abs(zeta), 1e-4), 0.9)
-        lo = w_peak * (1.0 - half)
-        hi = min(w_peak * (1.0 + half), top) if math.isfinite(top) else w_peak * (1.0 + half)
+    for (w_peak, _), (lo, hi) in zip(resonances, windows, strict=True):
         w = np.unique(np.concatenate([np.linspace(lo, hi, 801), [min(w_peak, hi)]]))
         grids.append(w[w > 0])
 
@@ -287,7 +349,8 @@ def resonance_coverage(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[
         f_c = min(crossings) if crossings else 0.0
         above = [(k, wn, zeta, w_peak) for k, (wn, zeta, w_peak) in enumerate(modes)
                  if wn / (2.0 * math.pi) > f_c]
-        peaks = _peaks_db(model.open_loop, [(w_peak, zeta) for _, _, zeta, w_peak in above])
+        peaks = _peaks_db(model.open_loop, [(w_peak, zeta) for _, _, zeta, w_peak in above],
+                         floor_db=-min_att)
         for (k, wn, zeta, _), (w_at, peak_db) in zip(above, peaks, strict=True):
             best = worst.get(k)
             if best is None or peak_db > best[0]:
