@@ -177,6 +177,61 @@ def _db_of_inverse(L: np.ndarray) -> np.ndarray:
         return -20.0 * np.log10(np.abs(L))
 
 
+# Scalar twins of the array expressions, for the root finders and minimisers,
+# which evaluate one frequency at a time. They give the same floats as the
+# array expressions on a one-element array: the same numpy ufuncs where the
+# result depends on the implementation (``absolute`` of a complex number,
+# ``log10``), IEEE arithmetic in the same order elsewhere, and the array
+# expression itself for any value off the plain path (zero, inf, nan).
+def _scalar_abs(L: complex) -> float:
+    return float(np.abs(L))
+
+
+def _db_of_inverse_scalar(L: complex) -> float:
+    m = _scalar_abs(L)
+    if 0.0 < m < _INF:
+        return -20.0 * float(np.log10(m))
+    return float(_db_of_inverse(np.array([L]))[0])
+
+
+def _to_db_scalar(k: float) -> float:
+    if 0.0 < k < _INF:
+        return 20.0 * float(np.log10(k))
+    return float(_to_db(np.array([k]))[0])
+
+
+_SCALAR_RESPONSES: Any = None
+
+
+def _scalar_response(contour) -> Callable[[float], complex]:
+    """``contour.evaluate_scalar``, remembered per frequency (the searches revisit points)."""
+    global _SCALAR_RESPONSES
+    if _SCALAR_RESPONSES is None:
+        import weakref
+
+        _SCALAR_RESPONSES = weakref.WeakKeyDictionary()
+    try:
+        return _SCALAR_RESPONSES[contour]
+    except (KeyError, TypeError):
+        pass
+    seen: dict[float, complex] = {}
+
+    def response(x: float) -> complex:
+        x = float(x)
+        if x == 0.0:  # 0.0 and -0.0 are one key
+            return contour.evaluate_scalar(x)
+        value = seen.get(x)
+        if value is None:
+            value = seen[x] = contour.evaluate_scalar(x)
+        return value
+
+    try:
+        _SCALAR_RESPONSES[contour] = response
+    except TypeError:
+        pass
+    return response
+
+
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     """``(first, last)`` index of every run of True."""
     idx = np.flatnonzero(mask)
@@ -285,6 +340,7 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
     sampled values (see ``_REFINE_REACH_DB``).
     """
     forbidden, edges = [], []
+    response = _scalar_response(contour)
     for bi, br in enumerate(contour.branches):
         w, L = br.w, br.L
         g = test(w, L)
@@ -294,10 +350,10 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
         start_kind, stop_kind = _end_kinds(contour, bi)
 
         def g_scalar(x: float) -> float:
-            return float(test(np.array([x]), np.array([contour.evaluate_scalar(x)]))[0])
+            return float(test(np.array([x]), np.array([response(x)]))[0])
 
         def value(x: float) -> float:
-            return float(_db_of_inverse(np.array([contour.evaluate_scalar(x)]))[0])
+            return _db_of_inverse_scalar(response(x))
 
         vals = _db_of_inverse(L)
         for i0, i1 in runs:
@@ -364,6 +420,30 @@ def _quadratic_roots(L: np.ndarray, shift: float, radius: float):
     return np.minimum(r1, r2), np.maximum(r1, r2), disc
 
 
+def _quadratic_roots_scalar(L: complex, shift: float, radius: float
+                            ) -> tuple[float, float, float]:
+    """:func:`_quadratic_roots` at one frequency: ``(lower root, upper root, disc)``."""
+    r2c2 = radius * radius - shift * shift
+    m = _scalar_abs(L)
+    a = r2c2 * (m * m)
+    b = 2.0 * L.real * (r2c2 - shift)
+    c = radius * radius - (1.0 + shift) ** 2
+    disc = b * b - 4.0 * a * c
+    if not (math.isfinite(a) and math.isfinite(b) and math.isfinite(disc) and a != 0.0):
+        r1, r2, d = _quadratic_roots(np.array([L]), shift, radius)
+        return float(r1[0]), float(r2[0]), float(d[0])
+    if not disc > 0:
+        return math.nan, math.nan, disc
+    sq = math.sqrt(disc)
+    if a > 0:
+        r1, r2 = (-b - sq) / (2.0 * a), (-b + sq) / (2.0 * a)
+    else:
+        r1, r2 = (-b - -sq) / (2.0 * a), (-b + -sq) / (2.0 * a)
+    if math.isnan(r1) or math.isnan(r2):
+        return math.nan, math.nan, disc
+    return min(r1, r2), max(r1, r2), disc
+
+
 def _to_db(k: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         return 20.0 * np.log10(k)
@@ -390,6 +470,15 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
                 return [(-_INF, _INF)]
         return complement(allowed)
     forbidden = []
+    response = _scalar_response(contour)
+    roots: dict[float, tuple[float, float, float]] = {}
+
+    def roots_at(x: float) -> tuple[float, float, float]:
+        found = roots.get(x) if x != 0.0 else None
+        if found is None:
+            found = roots[x] = _quadratic_roots_scalar(response(x), shift, radius)
+        return found
+
     for bi, br in enumerate(contour.branches):
         w = br.w
         r1, r2, _ = _quadratic_roots(br.L, shift, radius)
@@ -402,16 +491,15 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
         start_kind, stop_kind = _end_kinds(contour, bi)
 
         def lo_at(x: float) -> float:
-            a, b, _ = _quadratic_roots(np.array([contour.evaluate_scalar(x)]), shift, radius)
-            return float(_to_db(np.maximum(a, 0.0))[0]) if b[0] > 0 else _INF
+            a, b, _ = roots_at(x)
+            return _to_db_scalar(a if not a < 0.0 else 0.0) if b > 0 else _INF
 
         def hi_at(x: float) -> float:
-            _, b, _ = _quadratic_roots(np.array([contour.evaluate_scalar(x)]), shift, radius)
-            return float(_to_db(b)[0]) if b[0] > 0 else -_INF
+            _, b, _ = roots_at(x)
+            return _to_db_scalar(b) if b > 0 else -_INF
 
         def disc_at(x: float) -> float:
-            return float(_quadratic_roots(np.array([contour.evaluate_scalar(x)]), shift,
-                                          radius)[2][0])
+            return roots_at(x)[2]
 
         for i0, i1 in runs:
             jlo = i0 + int(np.argmin(lo_db[i0:i1 + 1]))
