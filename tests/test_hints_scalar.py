@@ -59,3 +59,17 @@ def test_db_twins_are_bitwise_equal():
     with np.errstate(invalid="ignore"):
         for k in ks:
             assert _same(float(_to_db(np.array([k]))[0]), _to_db_scalar(float(k))), k
+
+
+def test_phase_and_delay_test_twins_are_bitwise_equal():
+    from ruleguard.rules.hints import delay_test, phase_test
+
+    rng = np.random.default_rng(13)
+    values = _values(rng)
+    ws = [float(w) for w in 10 ** rng.uniform(-3, 6, len(values))]
+    for test in (phase_test(30.0), phase_test(45.0), delay_test(1e-4), delay_test(2.5e-3)):
+        for w, L in zip(ws + [0.0, -1.0, math.inf], values + [1j, 1j, 1j], strict=True):
+            with np.errstate(invalid="ignore"):
+                want = float(test(np.array([w]), np.array([L]))[0])
+                got = test.scalar(w, L)
+            assert _same(want, got), (w, L)

@@ -229,18 +229,20 @@ def _windows(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[flo
 def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float) -> bool:
     """True when |L| is certainly below ``floor_db`` on every window (rational L only).
 
-    On a step ``[a, b]`` of a coarse grid, ``d log|L| / dw`` is bounded by
-    ``|dx/dw| sum_r 1/dist(r, x([a, b]))`` over the zeros and poles ``r`` of
-    ``L`` (``x = j w``, ``|dx/dw| = 1``; ``x = exp(j w h)``, ``|dx/dw| = h``;
-    a transport delay leaves ``|L|`` alone), the distance taken from the
-    step's midpoint minus the path length to its ends. So on the step
-    ``log|L| <= (log|L(a)| + log|L(b)|)/2 + (b - a)/2 * bound`` (the two
-    linear bounds from each end meet there). ``False`` whenever the bound is
-    not finite (a root on or next to the step, measured factors).
+    Each window is cut into ``_SCREEN_POINTS - 1`` steps. At a step's
+    midpoint ``m``, ``log|L| = log|k| + sum_z log|x - z| - sum_p log|x - p|``
+    (``x = j w`` or ``exp(j w h)``; a transport delay leaves ``|L|`` alone),
+    and on the step ``|d log|L| / dw| <= |dx/dw| sum_r 1/dist(r, step)``
+    over the zeros and poles ``r`` (``|dx/dw|`` is 1, or ``h``), the distance
+    taken as ``|x(m) - r|`` minus the path length from ``m`` to the step's
+    ends. So on the step ``log|L| <= log|L(m)| + (half step) * bound``.
+    ``False`` whenever that bound is not finite (a root on or next to a step,
+    measured factors).
     """
     if open_loop.factors or not windows:
         return False
     rational = open_loop.rational
+    n_zeros = rational.zeros.size
     roots = np.concatenate([rational.zeros, rational.poles])
     h = rational.sample_time_s
     edges = []
@@ -250,19 +252,19 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
             return False
         edges.append(np.linspace(a, b, _SCREEN_POINTS))
     w = np.stack(edges)
+    mid = 0.5 * (w[:, 1:] + w[:, :-1])
+    half = 0.5 * (w[:, 1:] - w[:, :-1])
+    speed = 1.0 if h is None else h
+    x = 1j * mid if h is None else np.exp(1j * mid * h)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        log_mag = np.log(np.abs(rational.response(w.ravel()))).reshape(w.shape)
-        if not np.all(np.isfinite(log_mag)):
+        far = np.abs(x[..., None] - roots)
+        dist = far - (speed * half)[..., None]
+        if not (np.all(dist > 0) and rational.gain != 0.0):
             return False
-        mid = 0.5 * (w[:, 1:] + w[:, :-1])
-        half = 0.5 * (w[:, 1:] - w[:, :-1])
-        speed = 1.0 if h is None else h
-        x = 1j * mid if h is None else np.exp(1j * mid * h)
-        dist = np.abs(x[..., None] - roots) - (speed * half)[..., None]
-        if roots.size and not np.all(dist > 0):
-            return False
-        slope = speed * np.sum(1.0 / dist, axis=-1) if roots.size else 0.0 * mid
-        top = 0.5 * (log_mag[:, 1:] + log_mag[:, :-1]) + half * slope
+        logs = np.log(far)
+        log_mag = (math.log(abs(rational.gain)) + logs[..., :n_zeros].sum(axis=-1)
+                   - logs[..., n_zeros:].sum(axis=-1))
+        top = log_mag + half * (speed * np.sum(1.0 / dist, axis=-1))
         if not np.all(np.isfinite(top)):
             return False
     return bool(np.max(top) * (20.0 / math.log(10.0)) < floor_db - 1e-6)

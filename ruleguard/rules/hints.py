@@ -50,6 +50,7 @@ R. P. Brent, *Algorithms for Minimization without Derivatives*, 1973.
 
 from __future__ import annotations
 
+import cmath
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
@@ -200,20 +201,27 @@ def _to_db_scalar(k: float) -> float:
     return float(_to_db(np.array([k]))[0])
 
 
-_SCALAR_RESPONSES: Any = None
+_MEMOS: Any = None
+
+
+def _memo(contour) -> dict:
+    """What the searches on ``contour`` remember (kept as long as the contour lives)."""
+    global _MEMOS
+    if _MEMOS is None:
+        import weakref
+
+        _MEMOS = weakref.WeakKeyDictionary()
+    try:
+        return _MEMOS.setdefault(contour, {})
+    except TypeError:  # not weakly referable: remember nothing across calls
+        return {}
 
 
 def _scalar_response(contour) -> Callable[[float], complex]:
     """``contour.evaluate_scalar``, remembered per frequency (the searches revisit points)."""
-    global _SCALAR_RESPONSES
-    if _SCALAR_RESPONSES is None:
-        import weakref
-
-        _SCALAR_RESPONSES = weakref.WeakKeyDictionary()
-    try:
-        return _SCALAR_RESPONSES[contour]
-    except (KeyError, TypeError):
-        pass
+    memo = _memo(contour)
+    if "response" in memo:
+        return memo["response"]
     seen: dict[float, complex] = {}
 
     def response(x: float) -> complex:
@@ -225,10 +233,7 @@ def _scalar_response(contour) -> Callable[[float], complex]:
             value = seen[x] = contour.evaluate_scalar(x)
         return value
 
-    try:
-        _SCALAR_RESPONSES[contour] = response
-    except TypeError:
-        pass
+    memo["response"] = response
     return response
 
 
@@ -341,6 +346,10 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
     """
     forbidden, edges = [], []
     response = _scalar_response(contour)
+    scalar_test = getattr(test, "scalar", None)
+    test_key = getattr(test, "key", None)
+    # a run's refinement does not depend on ``within``: remembered per test
+    refined_runs = _memo(contour).setdefault("runs", {}) if test_key is not None else None
     for bi, br in enumerate(contour.branches):
         w, L = br.w, br.L
         g = test(w, L)
@@ -350,6 +359,8 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
         start_kind, stop_kind = _end_kinds(contour, bi)
 
         def g_scalar(x: float) -> float:
+            if scalar_test is not None:
+                return scalar_test(float(x), response(x))
             return float(test(np.array([x]), np.array([response(x)]))[0])
 
         def value(x: float) -> float:
@@ -361,6 +372,13 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             lo, hi = float(np.min(seg)), float(np.max(seg))
             w_lo, w_hi = float(w[i0]), float(w[i1])
             if not _matters(*_extended(lo, hi, i0, i1, w.size, start_kind, stop_kind), within):
+                forbidden.append((lo, hi if hi > lo else lo + 1e-12))
+                edges.append((w_lo, w_hi))
+                continue
+            run_key = (test_key, bi, i0, i1, w.size,
+                       float(w[max(i0 - 1, 0)]), float(w[min(i1 + 1, w.size - 1)]))
+            if refined_runs is not None and run_key in refined_runs:
+                lo, hi, w_lo, w_hi = refined_runs[run_key]
                 forbidden.append((lo, hi if hi > lo else lo + 1e-12))
                 edges.append((w_lo, w_hi))
                 continue
@@ -378,6 +396,8 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             lo = min(lo, _refined_extreme(value, w, jmin, 1.0, (i0, i1)))
             hi = max(hi, _refined_extreme(value, w, jmax, -1.0, (i0, i1)))
             lo, hi = _extended(lo, hi, i0, i1, w.size, start_kind, stop_kind)
+            if refined_runs is not None:
+                refined_runs[run_key] = (lo, hi, w_lo, w_hi)
             forbidden.append((lo, hi if hi > lo else lo + 1e-12))
             edges.append((w_lo, w_hi))
     return normalize(forbidden), edges
@@ -390,7 +410,20 @@ def phase_test(min_deg: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]
     def test(w: np.ndarray, L: np.ndarray) -> np.ndarray:
         return np.abs(wrap_phase_margin(np.degrees(np.angle(L)))) - float(min_deg)
 
+    def scalar(w: float, L: complex) -> float:
+        if not cmath.isfinite(L):
+            return float(test(np.array([w]), np.array([L]))[0])
+        return abs(_wrapped_margin_scalar(L)) - float(min_deg)
+
+    test.scalar = scalar
+    test.key = ("margin.phase", float(min_deg))
     return test
+
+
+def _wrapped_margin_scalar(L: complex) -> float:
+    """``wrap_phase_margin(degrees(angle(L)))`` at one finite ``L`` (the same float)."""
+    pm = (180.0 + float(np.degrees(np.angle(L))) + 180.0) % 360.0 - 180.0
+    return pm + 360.0 if pm <= -180.0 else pm
 
 
 def delay_test(min_s: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
@@ -403,6 +436,14 @@ def delay_test(min_s: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
             out = np.radians(pm) / w - float(min_s)
         return np.where(w > 0, out, _INF)
 
+    def scalar(w: float, L: complex) -> float:
+        if not (cmath.isfinite(L) and w > 0 and math.isfinite(w)):
+            return float(test(np.array([w]), np.array([L]))[0])
+        pm = _wrapped_margin_scalar(L) % 360.0
+        return float(np.radians(pm)) / w - float(min_s)
+
+    test.scalar = scalar
+    test.key = ("margin.delay", float(min_s))
     return test
 
 
