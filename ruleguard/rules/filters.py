@@ -226,6 +226,11 @@ def _windows(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[flo
     return out
 
 
+#: Rounds of the screen's subdivision of the steps where its bound reaches the floor,
+#: and the pieces each such step is cut into.
+_SCREEN_ROUNDS, _SCREEN_SPLIT = 4, 8
+
+
 def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float) -> bool:
     """True when |L| is certainly below ``floor_db`` on every window (rational L only).
 
@@ -235,16 +240,23 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
     and on the step ``|d log|L| / dw| <= |dx/dw| sum_r 1/dist(r, step)``
     over the zeros and poles ``r`` (``|dx/dw|`` is 1, or ``h``), the distance
     taken as ``|x(m) - r|`` minus the path length from ``m`` to the step's
-    ends. So on the step ``log|L| <= log|L(m)| + (half step) * bound``.
-    ``False`` whenever that bound is not finite (a root on or next to a step,
-    measured factors).
+    ends. So on the step ``log|L| <= log|L(m)| + (half step) * bound``. Steps
+    whose bound reaches the floor are cut into ``_SCREEN_SPLIT`` and bounded
+    again, ``_SCREEN_ROUNDS`` times at most. ``False`` as soon as a midpoint
+    reaches the floor, or a bound stays there or is not finite (a root on or
+    next to a step, measured factors).
     """
     if open_loop.factors or not windows:
         return False
     rational = open_loop.rational
+    if rational.gain == 0.0:
+        return False
     n_zeros = rational.zeros.size
     roots = np.concatenate([rational.zeros, rational.poles])
     h = rational.sample_time_s
+    speed = 1.0 if h is None else h
+    log_gain = math.log(abs(rational.gain))
+    ceiling = (floor_db - 1e-6) * (math.log(10.0) / 20.0)  # natural log of |L|
     edges = []
     for lo, hi in windows:
         a, b = min(lo, hi), max(lo, hi)
@@ -252,22 +264,30 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
             return False
         edges.append(np.linspace(a, b, _SCREEN_POINTS))
     w = np.stack(edges)
-    mid = 0.5 * (w[:, 1:] + w[:, :-1])
-    half = 0.5 * (w[:, 1:] - w[:, :-1])
-    speed = 1.0 if h is None else h
-    x = 1j * mid if h is None else np.exp(1j * mid * h)
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        far = np.abs(x[..., None] - roots)
-        dist = far - (speed * half)[..., None]
-        if not (np.all(dist > 0) and rational.gain != 0.0):
+    mid = (0.5 * (w[:, 1:] + w[:, :-1])).ravel()
+    half = (0.5 * (w[:, 1:] - w[:, :-1])).ravel()
+    pieces = (np.arange(_SCREEN_SPLIT) + 0.5) * (2.0 / _SCREEN_SPLIT) - 1.0
+    for round_ in range(_SCREEN_ROUNDS + 1):
+        x = 1j * mid if h is None else np.exp(1j * mid * h)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            far = np.abs(x[:, None] - roots)
+            dist = far - (speed * half)[:, None]
+            if not np.all(dist > 0):
+                return False
+            logs = np.log(far)
+            log_mag = log_gain + logs[:, :n_zeros].sum(axis=1) - logs[:, n_zeros:].sum(axis=1)
+            top = log_mag + half * (speed * np.sum(1.0 / dist, axis=1))
+        if not (np.all(np.isfinite(top)) and np.all(log_mag < ceiling)):
             return False
-        logs = np.log(far)
-        log_mag = (math.log(abs(rational.gain)) + logs[..., :n_zeros].sum(axis=-1)
-                   - logs[..., n_zeros:].sum(axis=-1))
-        top = log_mag + half * (speed * np.sum(1.0 / dist, axis=-1))
-        if not np.all(np.isfinite(top)):
+        open_steps = top >= ceiling
+        if not np.any(open_steps):
+            return True
+        if round_ == _SCREEN_ROUNDS:
             return False
-    return bool(np.max(top) * (20.0 / math.log(10.0)) < floor_db - 1e-6)
+        mid, half = mid[open_steps], half[open_steps]
+        mid = (mid[:, None] + half[:, None] * pieces).ravel()
+        half = np.repeat(half / _SCREEN_SPLIT, _SCREEN_SPLIT)
+    return False
 
 
 def _peaks_db(open_loop, resonances: list[tuple[float, float]],
