@@ -219,18 +219,26 @@ def _memo(contour) -> dict:
 
 def _scalar_response(contour) -> Callable[[float], complex]:
     """``contour.evaluate_scalar``, remembered per frequency (the searches revisit points)."""
+    import weakref
+
     memo = _memo(contour)
     if "response" in memo:
         return memo["response"]
     seen: dict[float, complex] = {}
+    # held weakly: the memo lives in a WeakKeyDictionary keyed by the contour
+    try:
+        ref = weakref.ref(contour)
+    except TypeError:  # not weakly referable (nothing is remembered across calls)
+        def ref():
+            return contour
 
     def response(x: float) -> complex:
         x = float(x)
         if x == 0.0:  # 0.0 and -0.0 are one key
-            return contour.evaluate_scalar(x)
+            return ref().evaluate_scalar(x)
         value = seen.get(x)
         if value is None:
-            value = seen[x] = contour.evaluate_scalar(x)
+            value = seen[x] = ref().evaluate_scalar(x)
         return value
 
     memo["response"] = response
