@@ -211,7 +211,7 @@ def plant_resonances(
 
 #: Samples per resonance window of the screen that rules a variant's resonances out
 #: before the fine grid (:func:`_below_floor`).
-_SCREEN_POINTS = 65
+_SCREEN_POINTS = 33
 
 
 def _windows(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[float, float]]:
@@ -229,6 +229,8 @@ def _windows(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[flo
 #: Rounds of the screen's subdivision of the steps where its bound reaches the floor,
 #: and the pieces each such step is cut into.
 _SCREEN_ROUNDS, _SCREEN_SPLIT = 4, 8
+#: More open steps than this after a round: the screen gives up (the fine grid decides).
+_SCREEN_OPEN_LIMIT = 256
 
 
 def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float) -> bool:
@@ -241,10 +243,11 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
     over the zeros and poles ``r`` (``|dx/dw|`` is 1, or ``h``), the distance
     taken as ``|x(m) - r|`` minus the path length from ``m`` to the step's
     ends. So on the step ``log|L| <= log|L(m)| + (half step) * bound``. Steps
-    whose bound reaches the floor are cut into ``_SCREEN_SPLIT`` and bounded
-    again, ``_SCREEN_ROUNDS`` times at most. ``False`` as soon as a midpoint
-    reaches the floor, or a bound stays there or is not finite (a root on or
-    next to a step, measured factors).
+    whose bound reaches the floor, or has none (a root closer than the step's
+    ends), are cut into ``_SCREEN_SPLIT`` and bounded again,
+    ``_SCREEN_ROUNDS`` times at most. ``False`` as soon as a midpoint reaches
+    the floor, when steps stay open after the last round, and for measured
+    factors.
     """
     if open_loop.factors or not windows:
         return False
@@ -272,17 +275,16 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             far = np.abs(x[:, None] - roots)
             dist = far - (speed * half)[:, None]
-            if not np.all(dist > 0):
-                return False
             logs = np.log(far)
             log_mag = log_gain + logs[:, :n_zeros].sum(axis=1) - logs[:, n_zeros:].sum(axis=1)
-            top = log_mag + half * (speed * np.sum(1.0 / dist, axis=1))
-        if not (np.all(np.isfinite(top)) and np.all(log_mag < ceiling)):
+            slope = speed * np.sum(1.0 / np.where(dist > 0, dist, np.nan), axis=1)
+            top = log_mag + half * slope
+        if not np.all(log_mag < ceiling):  # a sample (or a pole) at the floor or above
             return False
-        open_steps = top >= ceiling
+        open_steps = ~(top < ceiling)  # reaches the floor, or no bound (a root next to the step)
         if not np.any(open_steps):
             return True
-        if round_ == _SCREEN_ROUNDS:
+        if round_ == _SCREEN_ROUNDS or np.count_nonzero(open_steps) > _SCREEN_OPEN_LIMIT:
             return False
         mid, half = mid[open_steps], half[open_steps]
         mid = (mid[:, None] + half[:, None] * pieces).ravel()
