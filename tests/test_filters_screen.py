@@ -80,3 +80,14 @@ def test_root_on_the_window_is_never_ruled_out():
     w0 = 2 * math.pi * 1000.0
     loop = OpenLoop(Factored([1j * w0, -1j * w0], [-1.0, -2.0, -3.0], 1e-12))
     assert not _below_floor(loop, [(0.9 * w0, 1.1 * w0)], 0.0)
+
+
+def test_very_light_resonance_is_ruled_out_only_below_the_floor():
+    # k wn^2 / (s^2 + 2 zeta wn s + wn^2) peaks at k / (2 zeta sqrt(1 - zeta^2)) (closed form)
+    wn, zeta = 2 * math.pi * 1000.0, 1e-4
+    p = -zeta * wn + 1j * wn * math.sqrt(1 - zeta * zeta)
+    resonance = [(wn * math.sqrt(1 - zeta * zeta), zeta)]
+    for peak_db, ruled_out in ((-20.0, True), (-6.5, True), (-5.5, False), (3.0, False)):
+        k = 10 ** (peak_db / 20) * 2 * zeta * math.sqrt(1 - zeta * zeta)
+        loop = OpenLoop(Factored([], [p, p.conjugate()], k * wn * wn))
+        assert _below_floor(loop, _windows(loop, resonance), -6.0) is ruled_out, peak_db
