@@ -209,21 +209,107 @@ def plant_resonances(
     return out
 
 
-def _peaks_db(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[float, float]]:
+#: Samples per resonance window of the screen that rules a variant's resonances out
+#: before the fine grid (:func:`_below_floor`).
+_SCREEN_POINTS = 33
+
+
+def _windows(open_loop, resonances: list[tuple[float, float]]) -> list[tuple[float, float]]:
+    """The frequency window ``w_peak (1 +- 4 zeta)`` (rad/s) looked at for each resonance."""
+    top = open_loop.w_max
+    out = []
+    for w_peak, zeta in resonances:
+        half = min(max(4.0 * abs(zeta), 1e-4), 0.9)
+        lo = w_peak * (1.0 - half)
+        hi = min(w_peak * (1.0 + half), top) if math.isfinite(top) else w_peak * (1.0 + half)
+        out.append((lo, hi))
+    return out
+
+
+#: Rounds of the screen's subdivision of the steps where its bound reaches the floor,
+#: and the pieces each such step is cut into.
+_SCREEN_ROUNDS, _SCREEN_SPLIT = 4, 8
+#: More open steps than this after a round: the screen gives up (the fine grid decides).
+_SCREEN_OPEN_LIMIT = 256
+
+
+def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float) -> bool:
+    """True when |L| is certainly below ``floor_db`` on every window (rational L only).
+
+    Each window is cut into ``_SCREEN_POINTS - 1`` steps. At a step's
+    midpoint ``m``, ``log|L| = log|k| + sum_z log|x - z| - sum_p log|x - p|``
+    (``x = j w`` or ``exp(j w h)``; a transport delay leaves ``|L|`` alone),
+    and on the step ``|d log|L| / dw| <= |dx/dw| sum_r 1/dist(r, step)``
+    over the zeros and poles ``r`` (``|dx/dw|`` is 1, or ``h``), the distance
+    taken as ``|x(m) - r|`` minus the path length from ``m`` to the step's
+    ends. So on the step ``log|L| <= log|L(m)| + (half step) * bound``. Steps
+    whose bound reaches the floor, or has none (a root closer than the step's
+    ends), are cut into ``_SCREEN_SPLIT`` and bounded again,
+    ``_SCREEN_ROUNDS`` times at most. ``False`` as soon as a midpoint reaches
+    the floor, when steps stay open after the last round, and for measured
+    factors.
+    """
+    if open_loop.factors or not windows:
+        return False
+    rational = open_loop.rational
+    if rational.gain == 0.0:
+        return False
+    n_zeros = rational.zeros.size
+    roots = np.concatenate([rational.zeros, rational.poles])
+    h = rational.sample_time_s
+    speed = 1.0 if h is None else h
+    log_gain = math.log(abs(rational.gain))
+    ceiling = (floor_db - 1e-6) * (math.log(10.0) / 20.0)  # natural log of |L|
+    edges = []
+    for lo, hi in windows:
+        a, b = min(lo, hi), max(lo, hi)
+        if not (math.isfinite(a) and math.isfinite(b) and b > a > 0):
+            return False
+        edges.append(np.linspace(a, b, _SCREEN_POINTS))
+    w = np.stack(edges)
+    mid = (0.5 * (w[:, 1:] + w[:, :-1])).ravel()
+    half = (0.5 * (w[:, 1:] - w[:, :-1])).ravel()
+    pieces = (np.arange(_SCREEN_SPLIT) + 0.5) * (2.0 / _SCREEN_SPLIT) - 1.0
+    for round_ in range(_SCREEN_ROUNDS + 1):
+        x = 1j * mid if h is None else np.exp(1j * mid * h)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            far = np.abs(x[:, None] - roots)
+            dist = far - (speed * half)[:, None]
+            logs = np.log(far)
+            log_mag = log_gain + logs[:, :n_zeros].sum(axis=1) - logs[:, n_zeros:].sum(axis=1)
+            slope = speed * np.sum(1.0 / np.where(dist > 0, dist, np.nan), axis=1)
+            top = log_mag + half * slope
+        if not np.all(log_mag < ceiling):  # a sample (or a pole) at the floor or above
+            return False
+        open_steps = ~(top < ceiling)  # reaches the floor, or no bound (a root next to the step)
+        if not np.any(open_steps):
+            return True
+        if round_ == _SCREEN_ROUNDS or np.count_nonzero(open_steps) > _SCREEN_OPEN_LIMIT:
+            return False
+        mid, half = mid[open_steps], half[open_steps]
+        mid = (mid[:, None] + half[:, None] * pieces).ravel()
+        half = np.repeat(half / _SCREEN_SPLIT, _SCREEN_SPLIT)
+    return False
+
+
+def _peaks_db(open_loop, resonances: list[tuple[float, float]],
+              floor_db: float | None = None) -> list[tuple[float, float]]:
     """``(w, |L| dB)`` at the largest |L| across each resonance ``(w_peak, zeta)``, refined.
 
     Every resonance is sampled at 801 points across ``w_peak (1 +- 4 zeta)``
     (one evaluation for all of them); each grid maximum is then refined
     between its neighbours by :func:`ruleguard.rules.responses.refine_maxima`.
+    With ``floor_db``, when :func:`_below_floor` shows that |L| stays below it
+    across every window, the grid and its refinement are skipped: each
+    resonance gets ``(w_peak, -inf)`` (a value below the floor, not a peak).
     """
     if not resonances:
         return []
-    top = open_loop.w_max
+    windows = _windows(open_loop, resonances)
+    if floor_db is not None and _below_floor(open_loop, windows, floor_db):
+        return [(float(w_peak), -math.inf) for w_peak, _ in resonances]
     grids = []
-    for w_peak, zeta in resonances:
-        half = min(max(4.0 * abs(zeta), 1e-4), 0.9)
-        lo = w_peak * (1.0 - half)
-        hi = min(w_peak * (1.0 + half), top) if math.isfinite(top) else w_peak * (1.0 + half)
+    for (w_peak, _), (lo, hi) in zip(resonances, windows, strict=True):
         w = np.unique(np.concatenate([np.linspace(lo, hi, 801), [min(w_peak, hi)]]))
         grids.append(w[w > 0])
 
@@ -287,7 +373,8 @@ def resonance_coverage(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[
         f_c = min(crossings) if crossings else 0.0
         above = [(k, wn, zeta, w_peak) for k, (wn, zeta, w_peak) in enumerate(modes)
                  if wn / (2.0 * math.pi) > f_c]
-        peaks = _peaks_db(model.open_loop, [(w_peak, zeta) for _, _, zeta, w_peak in above])
+        peaks = _peaks_db(model.open_loop, [(w_peak, zeta) for _, _, zeta, w_peak in above],
+                         floor_db=-min_att)
         for (k, wn, zeta, _), (w_at, peak_db) in zip(above, peaks, strict=True):
             best = worst.get(k)
             if best is None or peak_db > best[0]:

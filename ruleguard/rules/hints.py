@@ -50,6 +50,7 @@ R. P. Brent, *Algorithms for Minimization without Derivatives*, 1973.
 
 from __future__ import annotations
 
+import cmath
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
@@ -177,6 +178,73 @@ def _db_of_inverse(L: np.ndarray) -> np.ndarray:
         return -20.0 * np.log10(np.abs(L))
 
 
+# Scalar twins of the array expressions, for the root finders and minimisers,
+# which evaluate one frequency at a time. They give the same floats as the
+# array expressions on a one-element array: the same numpy ufuncs where the
+# result depends on the implementation (``absolute`` of a complex number,
+# ``log10``), IEEE arithmetic in the same order elsewhere, and the array
+# expression itself for any value off the plain path (zero, inf, nan).
+def _scalar_abs(L: complex) -> float:
+    return float(np.abs(L))
+
+
+def _db_of_inverse_scalar(L: complex) -> float:
+    m = _scalar_abs(L)
+    if 0.0 < m < _INF:
+        return -20.0 * float(np.log10(m))
+    return float(_db_of_inverse(np.array([L]))[0])
+
+
+def _to_db_scalar(k: float) -> float:
+    if 0.0 < k < _INF:
+        return 20.0 * float(np.log10(k))
+    return float(_to_db(np.array([k]))[0])
+
+
+_MEMOS: Any = None
+
+
+def _memo(contour) -> dict:
+    """What the searches on ``contour`` remember (kept as long as the contour lives)."""
+    global _MEMOS
+    if _MEMOS is None:
+        import weakref
+
+        _MEMOS = weakref.WeakKeyDictionary()
+    try:
+        return _MEMOS.setdefault(contour, {})
+    except TypeError:  # not weakly referable: remember nothing across calls
+        return {}
+
+
+def _scalar_response(contour) -> Callable[[float], complex]:
+    """``contour.evaluate_scalar``, remembered per frequency (the searches revisit points)."""
+    import weakref
+
+    memo = _memo(contour)
+    if "response" in memo:
+        return memo["response"]
+    seen: dict[float, complex] = {}
+    # held weakly: the memo lives in a WeakKeyDictionary keyed by the contour
+    try:
+        ref = weakref.ref(contour)
+    except TypeError:  # not weakly referable (nothing is remembered across calls)
+        def ref():
+            return contour
+
+    def response(x: float) -> complex:
+        x = float(x)
+        if x == 0.0:  # 0.0 and -0.0 are one key
+            return ref().evaluate_scalar(x)
+        value = seen.get(x)
+        if value is None:
+            value = seen[x] = ref().evaluate_scalar(x)
+        return value
+
+    memo["response"] = response
+    return response
+
+
 def _runs(mask: np.ndarray) -> list[tuple[int, int]]:
     """``(first, last)`` index of every run of True."""
     idx = np.flatnonzero(mask)
@@ -285,6 +353,11 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
     sampled values (see ``_REFINE_REACH_DB``).
     """
     forbidden, edges = [], []
+    response = _scalar_response(contour)
+    scalar_test = getattr(test, "scalar", None)
+    test_key = getattr(test, "key", None)
+    # a run's refinement does not depend on ``within``: remembered per test
+    refined_runs = _memo(contour).setdefault("runs", {}) if test_key is not None else None
     for bi, br in enumerate(contour.branches):
         w, L = br.w, br.L
         g = test(w, L)
@@ -294,10 +367,12 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
         start_kind, stop_kind = _end_kinds(contour, bi)
 
         def g_scalar(x: float) -> float:
-            return float(test(np.array([x]), np.array([contour.evaluate_scalar(x)]))[0])
+            if scalar_test is not None:
+                return scalar_test(float(x), response(x))
+            return float(test(np.array([x]), np.array([response(x)]))[0])
 
         def value(x: float) -> float:
-            return float(_db_of_inverse(np.array([contour.evaluate_scalar(x)]))[0])
+            return _db_of_inverse_scalar(response(x))
 
         vals = _db_of_inverse(L)
         for i0, i1 in runs:
@@ -305,6 +380,13 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             lo, hi = float(np.min(seg)), float(np.max(seg))
             w_lo, w_hi = float(w[i0]), float(w[i1])
             if not _matters(*_extended(lo, hi, i0, i1, w.size, start_kind, stop_kind), within):
+                forbidden.append((lo, hi if hi > lo else lo + 1e-12))
+                edges.append((w_lo, w_hi))
+                continue
+            run_key = (test_key, bi, i0, i1, w.size,
+                       float(w[max(i0 - 1, 0)]), float(w[min(i1 + 1, w.size - 1)]))
+            if refined_runs is not None and run_key in refined_runs:
+                lo, hi, w_lo, w_hi = refined_runs[run_key]
                 forbidden.append((lo, hi if hi > lo else lo + 1e-12))
                 edges.append((w_lo, w_hi))
                 continue
@@ -322,6 +404,8 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             lo = min(lo, _refined_extreme(value, w, jmin, 1.0, (i0, i1)))
             hi = max(hi, _refined_extreme(value, w, jmax, -1.0, (i0, i1)))
             lo, hi = _extended(lo, hi, i0, i1, w.size, start_kind, stop_kind)
+            if refined_runs is not None:
+                refined_runs[run_key] = (lo, hi, w_lo, w_hi)
             forbidden.append((lo, hi if hi > lo else lo + 1e-12))
             edges.append((w_lo, w_hi))
     return normalize(forbidden), edges
@@ -334,7 +418,20 @@ def phase_test(min_deg: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]
     def test(w: np.ndarray, L: np.ndarray) -> np.ndarray:
         return np.abs(wrap_phase_margin(np.degrees(np.angle(L)))) - float(min_deg)
 
+    def scalar(w: float, L: complex) -> float:
+        if not cmath.isfinite(L):
+            return float(test(np.array([w]), np.array([L]))[0])
+        return abs(_wrapped_margin_scalar(L)) - float(min_deg)
+
+    test.scalar = scalar
+    test.key = ("margin.phase", float(min_deg))
     return test
+
+
+def _wrapped_margin_scalar(L: complex) -> float:
+    """``wrap_phase_margin(degrees(angle(L)))`` at one finite ``L`` (the same float)."""
+    pm = (180.0 + float(np.degrees(np.angle(L))) + 180.0) % 360.0 - 180.0
+    return pm + 360.0 if pm <= -180.0 else pm
 
 
 def delay_test(min_s: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
@@ -347,6 +444,14 @@ def delay_test(min_s: float) -> Callable[[np.ndarray, np.ndarray], np.ndarray]:
             out = np.radians(pm) / w - float(min_s)
         return np.where(w > 0, out, _INF)
 
+    def scalar(w: float, L: complex) -> float:
+        if not (cmath.isfinite(L) and w > 0 and math.isfinite(w)):
+            return float(test(np.array([w]), np.array([L]))[0])
+        pm = _wrapped_margin_scalar(L) % 360.0
+        return float(np.radians(pm)) / w - float(min_s)
+
+    test.scalar = scalar
+    test.key = ("margin.delay", float(min_s))
     return test
 
 
@@ -362,6 +467,30 @@ def _quadratic_roots(L: np.ndarray, shift: float, radius: float):
         r1 = (-b - np.sign(a) * sq) / (2.0 * a)
         r2 = (-b + np.sign(a) * sq) / (2.0 * a)
     return np.minimum(r1, r2), np.maximum(r1, r2), disc
+
+
+def _quadratic_roots_scalar(L: complex, shift: float, radius: float
+                            ) -> tuple[float, float, float]:
+    """:func:`_quadratic_roots` at one frequency: ``(lower root, upper root, disc)``."""
+    r2c2 = radius * radius - shift * shift
+    m = _scalar_abs(L)
+    a = r2c2 * (m * m)
+    b = 2.0 * L.real * (r2c2 - shift)
+    c = radius * radius - (1.0 + shift) ** 2
+    disc = b * b - 4.0 * a * c
+    if not (math.isfinite(a) and math.isfinite(b) and math.isfinite(disc) and a != 0.0):
+        r1, r2, d = _quadratic_roots(np.array([L]), shift, radius)
+        return float(r1[0]), float(r2[0]), float(d[0])
+    if not disc > 0:
+        return math.nan, math.nan, disc
+    sq = math.sqrt(disc)
+    if a > 0:
+        r1, r2 = (-b - sq) / (2.0 * a), (-b + sq) / (2.0 * a)
+    else:
+        r1, r2 = (-b - -sq) / (2.0 * a), (-b + -sq) / (2.0 * a)
+    if math.isnan(r1) or math.isnan(r2):
+        return math.nan, math.nan, disc
+    return min(r1, r2), max(r1, r2), disc
 
 
 def _to_db(k: np.ndarray) -> np.ndarray:
@@ -390,6 +519,15 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
                 return [(-_INF, _INF)]
         return complement(allowed)
     forbidden = []
+    response = _scalar_response(contour)
+    roots: dict[float, tuple[float, float, float]] = {}
+
+    def roots_at(x: float) -> tuple[float, float, float]:
+        found = roots.get(x) if x != 0.0 else None
+        if found is None:
+            found = roots[x] = _quadratic_roots_scalar(response(x), shift, radius)
+        return found
+
     for bi, br in enumerate(contour.branches):
         w = br.w
         r1, r2, _ = _quadratic_roots(br.L, shift, radius)
@@ -402,16 +540,15 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
         start_kind, stop_kind = _end_kinds(contour, bi)
 
         def lo_at(x: float) -> float:
-            a, b, _ = _quadratic_roots(np.array([contour.evaluate_scalar(x)]), shift, radius)
-            return float(_to_db(np.maximum(a, 0.0))[0]) if b[0] > 0 else _INF
+            a, b, _ = roots_at(x)
+            return _to_db_scalar(a if not a < 0.0 else 0.0) if b > 0 else _INF
 
         def hi_at(x: float) -> float:
-            _, b, _ = _quadratic_roots(np.array([contour.evaluate_scalar(x)]), shift, radius)
-            return float(_to_db(b)[0]) if b[0] > 0 else -_INF
+            _, b, _ = roots_at(x)
+            return _to_db_scalar(b) if b > 0 else -_INF
 
         def disc_at(x: float) -> float:
-            return float(_quadratic_roots(np.array([contour.evaluate_scalar(x)]), shift,
-                                          radius)[2][0])
+            return roots_at(x)[2]
 
         for i0, i1 in runs:
             jlo = i0 + int(np.argmin(lo_db[i0:i1 + 1]))
