@@ -26,10 +26,12 @@ from ruleguard.errors import InputError, LoopNotAnalysable, NumericalWarning
 from ruleguard.location import Location
 from ruleguard.timings import stage
 
-#: Most variants in one chunk: large enough that 10,000 variants make a few
-#: dozen tasks rather than 10,000, small enough that results stream back and
-#: both workers stay busy to the end.
-MAX_CHUNK_VARIANTS = 250
+#: Most variants in one chunk: large enough that 10,000 variants make a
+#: hundred tasks rather than 10,000 (the parts shared by the variants are
+#: pickled once per chunk), small enough that results stream back and both
+#: workers stay busy to the end (the last chunk of one worker, some 1-2 s,
+#: is the time the other may wait).
+MAX_CHUNK_VARIANTS = 100
 
 #: Chunks per worker a loop is cut into (when that keeps them under the maximum).
 CHUNKS_PER_WORKER = 4
@@ -308,7 +310,11 @@ def _shared(kind: str, value, pool: dict, memo: dict, members: tuple = ()):
     if hit is not None:
         return hit[1]
     known = pool.setdefault(kind, {})
-    content = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
+    try:
+        content = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
+    except (pickle.PicklingError, TypeError, AttributeError):  # kept as it is (one process)
+        memo[ident] = (value, value)
+        return value
     found = known.get(content, known)
     if found is known:  # not met before
         found = value
