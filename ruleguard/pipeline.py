@@ -358,7 +358,7 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
             if error is not None:
                 raise error
             yield _assemble_loop(project, spec, _loop_outcomes(outcomes, stream, spec,
-                                                               len(variants)))
+                                                               variants))
     finally:
         executor.close()
 
@@ -371,22 +371,30 @@ def _rounding_rule_selected(options: CheckOptions) -> bool:
     return "quantization.robust" in selected_rules(options.only, options.skip)
 
 
-def _loop_outcomes(outcomes, stream, spec, count: int):
+def _loop_outcomes(outcomes, stream, spec, variants):
     """The outcomes of one loop's variants, in order, up to and including a stop.
 
     The parts equal in every variant (the controller side) are made one object
-    across the loop's chunks (:func:`ruleguard.workunits.shared_blocks`), so
-    the loop's variants cost the parent memory for what differs only.
+    across the loop's chunks (:func:`ruleguard.workunits.shared_blocks`), and
+    each outcome names the parent's own variant (not the copy a worker sent
+    back), so the loop's variants cost the parent memory for what differs only.
     """
+    import dataclasses
+
     from ruleguard.workunits import shared_blocks
 
     pool: dict = {}
     seen = 0
-    while seen < count:
+    while seen < len(variants):
         chunk, found = next(outcomes)
         if chunk.loop != spec.name:  # pragma: no cover - chunks come in loop order
             raise RuntimeError("chunks out of order")
-        for outcome in shared_blocks(found, pool):
+        for k, outcome in enumerate(shared_blocks(found, pool)):
+            own = variants[chunk.start + k]
+            if outcome.variant is not own:
+                if outcome.variant.id != own.id:  # pragma: no cover - outcomes come in order
+                    raise RuntimeError("outcomes out of order")
+                outcome = dataclasses.replace(outcome, variant=own)
             if outcome.stop is not None:
                 stream.stop_loop(spec.name)
                 yield outcome
