@@ -107,6 +107,10 @@ class VariantOutcome:
         Work done ahead for rules (:data:`ROUNDED`: ``(rounded model,
         QuantizationReport, analysis of the rounded loop)``, or the text of
         the ``ValueError`` that made rounding impossible).
+
+    The parts of ``model`` (and of the rounded model) that are equal in
+    every variant are one object shared by the outcomes
+    (:func:`shared_blocks`).
     """
 
     variant: object
