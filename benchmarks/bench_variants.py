@@ -44,9 +44,11 @@ sys.stdout = io.StringIO()
 code = main(sys.argv[1:])
 report = sys.stdout.getvalue()
 sys.stdout = sys.__stdout__
-own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-kids = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-sys.stderr.write(f"RSS {own} {kids} EXIT {code}\\n")
+me = resource.getrusage(resource.RUSAGE_SELF)
+them = resource.getrusage(resource.RUSAGE_CHILDREN)
+cpu = me.ru_utime + me.ru_stime + them.ru_utime + them.ru_stime
+sys.stderr.write(f"CPU {cpu:.3f}\\n")
+sys.stderr.write(f"RSS {me.ru_maxrss} {them.ru_maxrss} EXIT {code}\\n")
 sys.stdout.write(report)
 """
 
@@ -73,8 +75,9 @@ def build_project(folder: Path, samples: int) -> Path:
 
 def run_check(
     folder: Path, selected: Path, jobs: int, code: Path | None = None
-) -> tuple[float, int, int, bytes]:
-    """(wall s, parent peak RSS KiB, largest child peak RSS KiB, report bytes).
+) -> tuple[float, int, int, bytes, float]:
+    """(wall s, parent peak RSS KiB, largest child peak RSS KiB, report bytes,
+    CPU s of the check and its workers: less sensitive to a busy machine than wall).
 
     ``code``: the checkout of ruleguard to run (``None``: the installed one).
     """
@@ -93,7 +96,8 @@ def run_check(
     if not line:
         raise SystemExit(f"check failed: {done.stderr.decode()[-2000:]}")
     _, own, kids, _, _code = line[-1].split()
-    return wall, int(own), int(kids), done.stdout
+    cpu = [x for x in done.stderr.decode().splitlines() if x.startswith("CPU ")][-1]
+    return wall, int(own), int(kids), done.stdout, float(cpu.split()[1])
 
 
 def main() -> None:
@@ -116,22 +120,22 @@ def main() -> None:
     print(f"tilt.velocity, {args.samples} Latin-hypercube variants (+ nominal), "
           f"{resource.getpagesize()} B pages")
     print(f"{'jobs':>4} {'wall s':>8} {'variants/s':>10} {'parent MB':>9} "
-          f"{'worker MB':>9} {'sum MB':>7}  report sha256")
+          f"{'worker MB':>9} {'sum MB':>7} {'CPU s':>7}  report sha256")
     base = rows[0][1]
-    for jobs, wall, own, kids, report in rows:
+    for jobs, wall, own, kids, report, cpu in rows:
         workers = kids * jobs if jobs > 1 else 0
         total = own + workers
         print(f"{jobs:>4} {wall:>8.1f} {(args.samples + 1) / wall:>10.0f} {own / 1024:>9.0f} "
-              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f}  "
+              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f} {cpu:>7.1f}  "
               f"{hashlib.sha256(report).hexdigest()[:16]}")
     print("speed-up (first / each):", " ".join(f"{base / r[1]:.2f}" for r in rows))
-    for (jobs, wall, own, _, _), (_, b_wall, b_own, b_kids, b_report) in zip(
+    for (jobs, wall, own, _, _, cpu), (_, b_wall, b_own, b_kids, b_report, b_cpu) in zip(
         rows, base_rows, strict=False
     ):
-        print(f"baseline {jobs} job(s): {b_wall:.1f} s, parent {b_own / 1024:.0f} MB, "
-              f"worker {b_kids / 1024 if jobs > 1 else 0:.0f} MB, report "
-              f"{hashlib.sha256(b_report).hexdigest()[:16]}; this / baseline: wall "
-              f"{wall / b_wall:.2f}, parent memory {own / b_own:.2f}")
+        print(f"baseline {jobs} job(s): {b_wall:.1f} s, CPU {b_cpu:.1f} s, parent "
+              f"{b_own / 1024:.0f} MB, worker {b_kids / 1024 if jobs > 1 else 0:.0f} MB, "
+              f"report {hashlib.sha256(b_report).hexdigest()[:16]}; this / baseline: wall "
+              f"{wall / b_wall:.2f}, CPU {cpu / b_cpu:.2f}, parent memory {own / b_own:.2f}")
     identical = len({r[4] for r in rows + base_rows}) == 1
     print("reports byte-identical:", "yes" if identical else "NO")
     print(f"report size: {len(rows[0][4]) / 1e6:.1f} MB")
