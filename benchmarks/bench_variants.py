@@ -12,12 +12,19 @@ process run and prints, side by side: wall time, peak resident memory of
 the parent and of its largest worker and their sum (getrusage of the process
 and of its waited-for children; an upper bound of the simultaneous peak),
 and whether the JSON reports are byte-identical.
+
+``--baseline DIR`` runs the same checks with another checkout of ruleguard
+(``DIR`` on ``PYTHONPATH``, e.g. ``git worktree add /tmp/base main`` or
+``git archive main | tar -x -C DIR``) right after each run of this one, so
+the before/after figures come from the same minutes of a shared machine, and
+the reports of both must be byte-identical.
 """
 
 from __future__ import annotations
 
 import argparse
 import hashlib
+import os
 import resource
 import shutil
 import subprocess
@@ -37,9 +44,11 @@ sys.stdout = io.StringIO()
 code = main(sys.argv[1:])
 report = sys.stdout.getvalue()
 sys.stdout = sys.__stdout__
-own = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
-kids = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss
-sys.stderr.write(f"RSS {own} {kids} EXIT {code}\\n")
+me = resource.getrusage(resource.RUSAGE_SELF)
+them = resource.getrusage(resource.RUSAGE_CHILDREN)
+cpu = me.ru_utime + me.ru_stime + them.ru_utime + them.ru_stime
+sys.stderr.write(f"CPU {cpu:.3f}\\n")
+sys.stderr.write(f"RSS {me.ru_maxrss} {them.ru_maxrss} EXIT {code}\\n")
 sys.stdout.write(report)
 """
 
@@ -64,47 +73,70 @@ def build_project(folder: Path, samples: int) -> Path:
     return folder / "firmware" / "tilt_velocity.toml"
 
 
-def run_check(folder: Path, selected: Path, jobs: int) -> tuple[float, int, int, bytes]:
-    """(wall s, parent peak RSS KiB, largest child peak RSS KiB, report bytes)."""
+def run_check(
+    folder: Path, selected: Path, jobs: int, code: Path | None = None
+) -> tuple[float, int, int, bytes, float]:
+    """(wall s, parent peak RSS KiB, largest child peak RSS KiB, report bytes,
+    CPU s of the check and its workers: less sensitive to a busy machine than wall).
+
+    ``code``: the checkout of ruleguard to run (``None``: the installed one).
+    """
+    env = None
+    if code is not None:
+        env = {**os.environ, "PYTHONPATH": str(code)}
     command = [
         sys.executable, "-c", RUNNER, "check", "--format", "json", "--no-cache",
         "--time-budget", "0",  # 0: no budget
         "--jobs", str(jobs), str(selected.relative_to(folder)),
     ]
     start = time.perf_counter()
-    done = subprocess.run(command, cwd=folder, capture_output=True, check=False)
+    done = subprocess.run(command, cwd=folder, capture_output=True, check=False, env=env)
     wall = time.perf_counter() - start
     line = [x for x in done.stderr.decode().splitlines() if x.startswith("RSS ")]
     if not line:
         raise SystemExit(f"check failed: {done.stderr.decode()[-2000:]}")
     _, own, kids, _, _code = line[-1].split()
-    return wall, int(own), int(kids), done.stdout
+    cpu = [x for x in done.stderr.decode().splitlines() if x.startswith("CPU ")][-1]
+    return wall, int(own), int(kids), done.stdout, float(cpu.split()[1])
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--samples", type=int, default=10000)
     parser.add_argument("--jobs", type=int, nargs="+", default=[1, 2])
+    parser.add_argument("--baseline", type=Path, default=None,
+                        help="another ruleguard checkout, run after each run of this one")
     args = parser.parse_args()
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp) / "mast"
         selected = build_project(folder, args.samples)
         rows = []
+        base_rows = []
         for jobs in args.jobs:
             rows.append((jobs, *run_check(folder, selected, jobs)))
+            if args.baseline is not None:
+                base_rows.append((jobs, *run_check(folder, selected, jobs,
+                                                   args.baseline.resolve())))
     print(f"tilt.velocity, {args.samples} Latin-hypercube variants (+ nominal), "
           f"{resource.getpagesize()} B pages")
     print(f"{'jobs':>4} {'wall s':>8} {'variants/s':>10} {'parent MB':>9} "
-          f"{'worker MB':>9} {'sum MB':>7}  report sha256")
+          f"{'worker MB':>9} {'sum MB':>7} {'CPU s':>7}  report sha256")
     base = rows[0][1]
-    for jobs, wall, own, kids, report in rows:
+    for jobs, wall, own, kids, report, cpu in rows:
         workers = kids * jobs if jobs > 1 else 0
         total = own + workers
         print(f"{jobs:>4} {wall:>8.1f} {(args.samples + 1) / wall:>10.0f} {own / 1024:>9.0f} "
-              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f}  "
+              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f} {cpu:>7.1f}  "
               f"{hashlib.sha256(report).hexdigest()[:16]}")
     print("speed-up (first / each):", " ".join(f"{base / r[1]:.2f}" for r in rows))
-    identical = len({r[4] for r in rows}) == 1
+    for (jobs, wall, own, _, _, cpu), (_, b_wall, b_own, b_kids, b_report, b_cpu) in zip(
+        rows, base_rows, strict=False
+    ):
+        print(f"baseline {jobs} job(s): {b_wall:.1f} s, CPU {b_cpu:.1f} s, parent "
+              f"{b_own / 1024:.0f} MB, worker {b_kids / 1024 if jobs > 1 else 0:.0f} MB, "
+              f"report {hashlib.sha256(b_report).hexdigest()[:16]}; this / baseline: wall "
+              f"{wall / b_wall:.2f}, CPU {cpu / b_cpu:.2f}, parent memory {own / b_own:.2f}")
+    identical = len({r[4] for r in rows + base_rows}) == 1
     print("reports byte-identical:", "yes" if identical else "NO")
     print(f"report size: {len(rows[0][4]) / 1e6:.1f} MB")
     if not identical:

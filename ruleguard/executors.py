@@ -41,8 +41,9 @@ EXECUTORS = ("local", "dask")
 #: (one variant of a cascade costs some 10-60 ms here).
 PARALLEL_MIN_VARIANTS = 48
 
-#: Chunks in flight per worker.
-WINDOW_PER_WORKER = 2
+#: Chunks in flight per worker (outcomes are read in chunk order: a worker
+#: that finishes ahead of a slower chunk before it still finds work queued).
+WINDOW_PER_WORKER = 3
 
 
 def default_jobs() -> int:

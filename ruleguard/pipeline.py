@@ -432,7 +432,7 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
             done += 1
             if error is not None:
                 raise error
-            found = _loop_outcomes(outcomes, stream, spec, len(variants))
+            found = _loop_outcomes(outcomes, stream, spec, variants)
             first = next(found)
             if isinstance(first, JudgedLoop):
                 yield first
@@ -455,17 +455,34 @@ def _rounding_rule_selected(options: CheckOptions) -> bool:
     return "quantization.robust" in selected_rules(options.only, options.skip)
 
 
-def _loop_outcomes(outcomes, stream, spec, count: int):
-    """The outcomes of one loop's variants, in order, up to and including a stop."""
+def _loop_outcomes(outcomes, stream, spec, variants):
+    """The outcomes of one loop's variants, in order, up to and including a stop.
+
+    The parts equal in every variant (the controller side) are made one object
+    across the loop's chunks (:func:`ruleguard.workunits.shared_blocks`), and
+    each outcome names the parent's own variant (not the copy a worker sent
+    back), so the loop's variants cost the parent memory for what differs only.
+    """
+    import dataclasses
+
+    from ruleguard.workunits import shared_blocks
+
+    pool: dict = {}
     seen = 0
-    while seen < count:
+    while seen < len(variants):
         chunk, found = next(outcomes)
         if chunk.loop != spec.name:  # pragma: no cover - chunks come in loop order
             raise RuntimeError("chunks out of order")
-        for outcome in found:
-            if isinstance(outcome, JudgedLoop):
-                yield outcome
-                continue
+        if found and isinstance(found[0], JudgedLoop):  # judged whole by its worker
+            yield found[0]
+            seen += len(chunk.variants)
+            continue
+        for k, outcome in enumerate(shared_blocks(found, pool)):
+            own = variants[chunk.start + k]
+            if outcome.variant is not own:
+                if outcome.variant.id != own.id:  # pragma: no cover - outcomes come in order
+                    raise RuntimeError("outcomes out of order")
+                outcome = dataclasses.replace(outcome, variant=own)
             if outcome.stop is not None:
                 stream.stop_loop(spec.name)
                 yield outcome
@@ -493,7 +510,7 @@ def _assemble_loop(project, spec, outcomes) -> AnalysedLoop:
             inner_evaluations.append(Evaluation(outcome.variant, model.inner,
                                                 outcome.inner_analysis))
         evaluations.append(
-            Evaluation(outcome.variant, model, outcome.analysis, dict(outcome.prepared))
+            Evaluation(outcome.variant, model, outcome.analysis, outcome.prepared)
         )
     if stop is not None and stop.input_error:
         raise InputError.at(stop.location, stop.reason)
@@ -506,14 +523,15 @@ def _assemble_loop(project, spec, outcomes) -> AnalysedLoop:
     if evaluations:
         first = evaluations[0].model
         notes: list[str] = list(first.notes)
-        for text in numerical_notes:
-            if text not in notes:
-                notes.append(text)
+        seen = set(notes)  # 10,000 variants' notes: no linear search of the list each
+        texts = [*numerical_notes]
         for ev in evaluations:
             for note in ev.analysis.notes:
-                text = note if ev.variant.id == "nominal" else f"{ev.variant.id}: {note}"
-                if text not in notes:
-                    notes.append(text)
+                texts.append(note if ev.variant.id == "nominal" else f"{ev.variant.id}: {note}")
+        for text in texts:
+            if text not in seen:
+                seen.add(text)
+                notes.append(text)
         result = LoopResult(
             name=spec.name,
             domain=domain,

@@ -26,10 +26,12 @@ from ruleguard.errors import InputError, LoopNotAnalysable, NumericalWarning
 from ruleguard.location import Location
 from ruleguard.timings import stage
 
-#: Most variants in one chunk: large enough that 10,000 variants make a few
-#: dozen tasks rather than 10,000, small enough that results stream back and
-#: both workers stay busy to the end.
-MAX_CHUNK_VARIANTS = 250
+#: Most variants in one chunk: large enough that 10,000 variants make a
+#: hundred tasks rather than 10,000 (the parts shared by the variants are
+#: pickled once per chunk), small enough that results stream back and both
+#: workers stay busy to the end (the last chunk of one worker, some 1-2 s,
+#: is the time the other may wait).
+MAX_CHUNK_VARIANTS = 100
 
 #: Chunks per worker a loop is cut into (when that keeps them under the maximum).
 CHUNKS_PER_WORKER = 4
@@ -109,6 +111,10 @@ class VariantOutcome:
         Work done ahead for rules (:data:`ROUNDED`: ``(rounded model,
         QuantizationReport, analysis of the rounded loop)``, or the text of
         the ``ValueError`` that made rounding impossible).
+
+    The parts of ``model`` (and of the rounded model) that are equal in
+    every variant are one object shared by the outcomes
+    (:func:`shared_blocks`).
     """
 
     variant: object
@@ -214,7 +220,7 @@ def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...] | 
         from ruleguard.pipeline import judge_loop
 
         return (judge_loop(project, spec, out, chunk.judge),)
-    return tuple(out)
+    return shared_blocks(out, {})
 
 
 def analyse_variant(project, spec, variant, prepare_rounding: bool = False) -> VariantOutcome:
@@ -246,6 +252,114 @@ def analyse_variant(project, spec, variant, prepare_rounding: bool = False) -> V
     if prepare_rounding and stop is None and wants_rounding(spec):
         prepared[ROUNDED] = rounded_loop(model, str(spec.controller.fields["numeric_format"]))
     return VariantOutcome(variant, model, analysis, inner_analysis, notes, stop, prepared)
+
+
+# ------------------------------------------------- blocks shared by the variants
+#: The parts of a LoopModel that are the same object in every variant whose
+#: parts are equal (the controller side rarely depends on the variant).
+SHARED_MODEL_FIELDS = (
+    "controller", "filters", "sensor", "controller_path", "discretization", "notes",
+)
+
+
+#: Distinct values of one kind of part a pool keeps (a family that varies the
+#: controller has parts that differ in every variant: their pickled bytes are
+#: not kept for 10,000 variants).
+MAX_SHARED_VALUES = 64
+
+
+def shared_blocks(outcomes, pool: dict) -> tuple[VariantOutcome, ...]:
+    """``outcomes`` with the parts that are equal across variants made one object.
+
+    A loop's variants differ in their plant, so every variant builds a
+    controller, filters, sensor (and a rounded controller and filters, and the
+    same parts of its inner loops) equal to every other variant's: kept apart,
+    10,000 variants hold 10,000 copies, and pickle sends each one. Here every
+    model's :data:`SHARED_MODEL_FIELDS` (as one group, so that the links among
+    them are kept), each inner loop's and each rounded model's, and each
+    rounding report, are replaced by the first equal one met in ``pool``
+    (content key: the pickled bytes, so only exactly equal parts are shared;
+    the parts are frozen and never changed, so a rule reads the same values).
+    ``pool`` is kept by the caller across calls (one per loop in the parent,
+    one per chunk in a worker: pickle then sends a shared part once per chunk).
+    """
+    memo: dict = {}  # identity of what this call has seen -> (it, its shared copy)
+    return tuple(_shared_outcome(o, pool, memo) for o in outcomes)
+
+
+def _shared_outcome(outcome: VariantOutcome, pool: dict, memo: dict) -> VariantOutcome:
+    if outcome.model is None:
+        return outcome
+    model = _shared_model(outcome.model, pool, memo)
+    prepared = outcome.prepared
+    ahead = prepared.get(ROUNDED)
+    if isinstance(ahead, tuple):
+        q_model, report, q_analysis = ahead
+        prepared = {
+            **prepared,
+            ROUNDED: (_shared_model(q_model, pool, memo), _shared("report", report, pool, memo),
+                      q_analysis),
+        }
+    if model is outcome.model and prepared is outcome.prepared:
+        return outcome
+    return VariantOutcome(outcome.variant, model, outcome.analysis, outcome.inner_analysis,
+                          outcome.numerical_notes, outcome.stop, prepared)
+
+
+def _shared_model(model, pool: dict, memo: dict):
+    """``model`` (a LoopModel) with its shared parts and inner loops from ``pool``."""
+    if model is None:
+        return None
+    done = memo.get(id(model))
+    if done is not None:
+        return done[1]
+    import dataclasses
+
+    parts = tuple(getattr(model, name) for name in SHARED_MODEL_FIELDS)
+    # the parts of a rounded model that it keeps from its model (the sensor)
+    # are already replaced: look them up by identity first
+    parts = tuple(memo[id(p)][1] if id(p) in memo else p for p in parts)
+    common = _shared("model-parts", parts, pool, memo, parts)
+    inner = _shared_model(model.inner, pool, memo)
+    changes = {
+        name: new
+        for name, new in zip(SHARED_MODEL_FIELDS, common, strict=True)
+        if new is not getattr(model, name)
+    }
+    if inner is not model.inner:
+        changes["inner"] = inner
+    for old, new in zip(parts, common, strict=True):
+        memo[id(old)] = (old, new)  # the old part is kept alive, so its id stays unique
+    result = dataclasses.replace(model, **changes) if changes else model
+    memo[id(model)] = (model, result)
+    return result
+
+
+def _shared(kind: str, value, pool: dict, memo: dict, members: tuple = ()):
+    """The first value equal to ``value`` (same pickled bytes) met in ``pool``.
+
+    ``members``: the objects ``value`` is made of (a group of parts); a group
+    of the same objects met before in this call is not pickled again.
+    """
+    import pickle
+
+    ident = (kind, *map(id, members or (value,)))
+    hit = memo.get(ident)
+    if hit is not None:
+        return hit[1]
+    known = pool.setdefault(kind, {})
+    try:
+        content = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
+    except (pickle.PicklingError, TypeError, AttributeError):  # kept as it is (one process)
+        memo[ident] = (value, value)
+        return value
+    found = known.get(content, known)
+    if found is known:  # not met before
+        found = value
+        if len(known) < MAX_SHARED_VALUES:  # parts that differ in every variant: not kept
+            known[content] = value
+    memo[ident] = (value, found)  # keeps ``value`` alive: its id stays unique in this call
+    return found
 
 
 def wants_rounding(spec) -> bool:

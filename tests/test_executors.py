@@ -56,7 +56,7 @@ def test_chunks_cover_every_variant_in_order():
     chunks = split_variants("x", variants, size)
     assert tuple(v for c in chunks for v in c.variants) == variants
     assert [c.start for c in chunks] == list(range(0, 10001, size))
-    assert len(chunks) == 41  # ceil(10001 / 250): dozens of tasks, not 10,001
+    assert len(chunks) == 101  # ceil(10001 / 100): a hundred tasks, not 10,001
     assert chunk_size(10, 2) == 2  # ceil(10 / 8): a small loop still feeds both workers
 
 

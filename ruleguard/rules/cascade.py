@@ -78,6 +78,11 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
     if not ctx.evaluations:
         return unanalysed_notes(ctx, "cascade separation", key_path=base)
     cache: dict = {}
+    # the pipeline's inner context holds the inner models of the variants analysed
+    # (id of the model -> its analysis, the first evaluation of it)
+    inner_analyses: dict = {}
+    for inner_ev in ctx.inner.evaluations if ctx.inner is not None else ():
+        inner_analyses.setdefault(id(inner_ev.model), inner_ev.analysis)
     readings = []  # (ratio, ev, inner_bw, f_c, lower_bound)
     skipped: list[tuple[Any, str]] = []
     for ev in ctx.evaluations:
@@ -88,11 +93,8 @@ def separation(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[Violatio
         f_c = max(crossings)
         inner_model = getattr(ev.model, "inner", None)
         if inner_model is not None:
-            # the pipeline's inner context holds this very inner model analysed
-            for inner_ev in ctx.inner.evaluations if ctx.inner is not None else ():
-                if inner_ev.model is inner_model:
-                    cache.setdefault(id(inner_model), inner_ev.analysis)
-                    break
+            if id(inner_model) in inner_analyses:
+                cache.setdefault(id(inner_model), inner_analyses[id(inner_model)])
             bw, lower, why = _inner_bandwidth_from_model(inner_model, cache)
         else:
             bw, lower, why = _inner_bandwidth_from_context(ctx.inner)
