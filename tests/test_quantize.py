@@ -358,3 +358,29 @@ class TestQuantizedModel:
     def test_bad_format(self):
         with pytest.raises(ValueError, match="numeric_format"):
             quantized_model(sampled_loop(), "int16")
+
+
+def test_rounding_of_an_equal_block_is_remembered_and_equal_to_rounding_afresh():
+    """quantize_block remembers its result by exact content: the second call with an
+    equal block (another object, as every variant of a loop builds) returns the same
+    result, and it equals rounding afresh, field for field."""
+    import pickle
+
+    from ruleguard.models import quantize
+
+    def block():
+        return Factored(np.array([0.93 + 0.2j, 0.93 - 0.2j, 0.5]),
+                        np.array([1.0, 0.95 + 0.1j, 0.95 - 0.1j]), 0.0123, 0.0, 1e-4)
+
+    quantize._ROUNDED_BLOCKS.clear()
+    first = quantize_block(block(), "q1.15", "pid", "controller", "pid")
+    again = quantize_block(block(), "q1.15", "pid", "controller", "pid")
+    assert again is first
+    fresh = quantize._quantize_block(block(), quantize.parse_numeric_format("q1.15"),
+                                     "pid", "controller", "pid")
+    assert pickle.dumps(fresh) == pickle.dumps(first)
+    other = quantize_block(block(), "float32", "pid", "controller", "pid")
+    assert other is not first  # another format is another rounding
+    moved = Factored(np.array([0.93 + 0.2j, 0.93 - 0.2j, 0.5000001]),
+                     np.array([1.0, 0.95 + 0.1j, 0.95 - 0.1j]), 0.0123, 0.0, 1e-4)
+    assert quantize_block(moved, "q1.15", "pid", "controller", "pid") is not first

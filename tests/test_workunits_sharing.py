@@ -58,7 +58,9 @@ def test_chunk_shares_the_controller_side_and_keeps_every_value(velocity):
     chunk = split_variants(spec.name, variants, len(variants), prepare_rounding=True)[0]
     shared = analyse_chunk(project, chunk)
     alone = [analyse_variant(project, spec, v, True) for v in variants]
-    assert [_bytes(a) for a in shared] == [_bytes(b) for b in alone]
+    # values, not bytes: the rounding of an equal block is remembered per process
+    # (models.quantize), so which equal strings are one object differs
+    assert [_values(a) for a in shared] == [_values(b) for b in alone]
     first, second = shared[1].model, shared[2].model
     assert first.controller is second.controller and first.filters is second.filters
     assert first.controller_path is second.controller_path
