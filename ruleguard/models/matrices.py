@@ -157,10 +157,9 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
             c = np.sqrt(col)
             r = np.sqrt(row)
             gain = c * f + r / f < 0.95 * (c + r)
-        # scale only the most unbalanced index of each row/column neighbourhood
-        # at a time would be Parlett-Reinsch's order; scaling the ones with a
-        # gain together converges as well when each factor is halved once the
-        # sweep stops improving (below)
+        # Parlett-Reinsch scale one index at a time; here every index with a
+        # gain is scaled at once, and when that step overshoots (the total
+        # grows) only the single best one is taken (below)
         move = live & gain & (k != 0.0) & (np.abs(np.log2(t) + k) < 490)
         if not np.any(move):
             break
@@ -174,35 +173,6 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
             new = sq * (f * f)[None, :] / (f * f)[:, None]
         sq = new
         t *= f
-    return t
-    sq = a * a
-    np.fill_diagonal(sq, 0.0)
-    for _ in range(100):
-        changed = False
-        for i in range(n):
-            c = math.sqrt(float(sq[:, i].sum()))
-            r = math.sqrt(float(sq[i, :].sum()))
-            if c == 0.0 or r == 0.0:
-                continue
-            s = c + r
-            f = 1.0
-            while c < 0.5 * r:
-                f *= 2.0
-                c *= 2.0
-                r *= 0.5
-            while c >= 2.0 * r:
-                f *= 0.5
-                c *= 0.5
-                r *= 2.0
-            if c + r >= 0.95 * s or not 1e-150 < t[i] * f < 1e150:
-                continue
-            changed = True
-            t[i] *= f
-            # column i times f, row i divided by f (squared entries)
-            sq[:, i] *= f * f
-            sq[i, :] /= f * f
-        if not changed:
-            break
     return t
 
 
