@@ -72,40 +72,42 @@ def schedule_coverage(ctx: LoopContext, params: Mapping[str, Any]) -> Iterable[V
     out: list[Violation] = []
     related = (range_location, *related_locations(ctx, params))
     if low < first.value:
-        out.append(Violation(
-            variant=None,
-            message=(
-                f"the schedule starts at {schedule.variable} = {format_number(first.value)} "
-                f"but the plant is operated from {format_number(low)}: below the first "
-                "breakpoint the firmware holds its gains at operating points no variant "
-                "checks; add a breakpoint at or below the operating range's minimum"
-            ),
-            measured=float(first.value),
-            limit=float(low),
-            unit=None,
-            frequency_hz=None,
-            location=first.value_location,
-            related=related,
-            key_path=_base_key(ctx, "coverage", "low"),
-        ))
+        out.append(_uncovered_end(ctx, schedule, first, low, related, "low"))
     if high > last.value:
-        out.append(Violation(
-            variant=None,
-            message=(
-                f"the schedule ends at {schedule.variable} = {format_number(last.value)} "
-                f"but the plant is operated up to {format_number(high)}: above the last "
-                "breakpoint the firmware holds its gains at operating points no variant "
-                "checks; add a breakpoint at or above the operating range's maximum"
-            ),
-            measured=float(last.value),
-            limit=float(high),
-            unit=None,
-            frequency_hz=None,
-            location=last.value_location,
-            related=related,
-            key_path=_base_key(ctx, "coverage", "high"),
-        ))
+        out.append(_uncovered_end(ctx, schedule, last, high, related, "high"))
     return out
+
+
+#: Words of the coverage finding at each end of the schedule.
+_END_WORDS = {
+    "low": ("starts at", "operated from", "below the first", "at or below the operating "
+            "range's minimum"),
+    "high": ("ends at", "operated up to", "above the last", "at or above the operating "
+             "range's maximum"),
+}
+
+
+def _uncovered_end(ctx: LoopContext, schedule, point, bound: float, related,
+                   end: str) -> Violation:
+    """The ``schedule.coverage`` finding of an operating range that reaches past the
+    schedule's first (``end="low"``) or last (``"high"``) breakpoint ``point``."""
+    at, operated, beyond, where = _END_WORDS[end]
+    return Violation(
+        variant=None,
+        message=(
+            f"the schedule {at} {schedule.variable} = {format_number(point.value)} "
+            f"but the plant is {operated} {format_number(bound)}: {beyond} "
+            "breakpoint the firmware holds its gains at operating points no variant "
+            f"checks; add a breakpoint {where}"
+        ),
+        measured=float(point.value),
+        limit=float(bound),
+        unit=None,
+        frequency_hz=None,
+        location=point.value_location,
+        related=related,
+        key_path=_base_key(ctx, "coverage", end),
+    )
 
 
 def _breakpoint_evaluations(ctx: LoopContext) -> dict[str, dict[int, Evaluation]]:
