@@ -23,6 +23,7 @@ remaining chunks.
 
 from __future__ import annotations
 
+import dataclasses
 import os
 from collections import deque
 from collections.abc import Iterable, Iterator
@@ -117,12 +118,21 @@ class InlineExecutor:
 
 # ------------------------------------------------------------ local process pool
 _WORKER_PROJECT = None
+_WORKER_JUDGING = None
+
+#: What a chunk carries instead of the run's judging request when every
+#: worker already holds it (installed with the project): the request (the
+#: whole ruleset, some 7 KB pickled) then crosses to each worker once, not
+#: with every chunk.
+INSTALLED_JUDGING = "judging installed in the worker"
 
 
-def _install_project(project) -> None:
-    """Worker initializer: keep the project for every chunk this worker runs."""
-    global _WORKER_PROJECT
+def _install_project(project, judging=None) -> None:
+    """Worker initializer: keep the project (and the judging request) for
+    every chunk this worker runs."""
+    global _WORKER_PROJECT, _WORKER_JUDGING
     _WORKER_PROJECT = project
+    _WORKER_JUDGING = judging
     _single_threaded_linear_algebra()
 
 
@@ -132,6 +142,8 @@ def _single_threaded_linear_algebra() -> None:
 
 
 def _run_installed(chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
+    if chunk.judge == INSTALLED_JUDGING:
+        chunk = dataclasses.replace(chunk, judge=_WORKER_JUDGING)
     return analyse_chunk(_WORKER_PROJECT, chunk)
 
 
@@ -146,20 +158,28 @@ def _pool_context():
 
 
 class ProcessExecutor:
-    """A pool of ``jobs`` local worker processes."""
+    """A pool of ``jobs`` local worker processes.
 
-    def __init__(self, project, jobs: int) -> None:
+    ``judging`` (the run's :class:`ruleguard.pipeline.LoopJudging`, if any) is
+    installed in every worker with the project; a chunk that carries that
+    very request is sent with :data:`INSTALLED_JUDGING` in its place.
+    """
+
+    def __init__(self, project, jobs: int, judging=None) -> None:
         from concurrent.futures import ProcessPoolExecutor
 
         self.workers = jobs
+        self._judging = judging
         self._pool = ProcessPoolExecutor(
             max_workers=jobs,
             mp_context=_pool_context(),
             initializer=_install_project,
-            initargs=(project,),
+            initargs=(project, judging),
         )
 
     def submit(self, chunk: VariantChunk) -> Pending:
+        if chunk.judge is not None and chunk.judge is self._judging:
+            chunk = dataclasses.replace(chunk, judge=INSTALLED_JUDGING)
         return self._pool.submit(_run_installed, chunk)
 
     def close(self) -> None:
@@ -221,9 +241,12 @@ class DaskExecutor:
 
 
 def make_executor(
-    project, name: str, jobs: int, variant_count: int, address: str | None = None
+    project, name: str, jobs: int, variant_count: int, address: str | None = None,
+    judging=None,
 ) -> Executor:
-    """The executor for a run with ``variant_count`` variants to analyse."""
+    """The executor for a run with ``variant_count`` variants to analyse
+    (``judging``: the request the run's chunks may carry, see
+    :class:`ProcessExecutor`)."""
     if name == "dask":
         return DaskExecutor(project, jobs, address)
     if name != "local":
@@ -232,7 +255,7 @@ def make_executor(
             f"unknown executor {name!r}; choose one of {', '.join(EXECUTORS)}",
         )
     if jobs > 1 and variant_count >= PARALLEL_MIN_VARIANTS:
-        return ProcessExecutor(project, jobs)
+        return ProcessExecutor(project, jobs, judging)
     return InlineExecutor(project)
 
 

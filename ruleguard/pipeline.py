@@ -402,7 +402,8 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
     rounding = _rounding_rule_selected(options)
     if executor is None:
         executor = make_executor(
-            project, options.executor, max(1, options.jobs), count, options.cluster_address
+            project, options.executor, max(1, options.jobs), count, options.cluster_address,
+            judging=judge,
         )
     try:
         size = max(

@@ -180,6 +180,18 @@ def split_variants(
     )
 
 
+_NAMED: list = [None, {}]
+
+
+def _loop_named(project, name: str):
+    """The loop spec called ``name`` (a table per project, kept for the
+    project last asked about: a worker runs many chunks of one project)."""
+    if _NAMED[0] is not project:
+        _NAMED[0] = project
+        _NAMED[1] = {spec.name: spec for spec in project.loops}
+    return _NAMED[1][name]
+
+
 def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...] | tuple[JudgedLoop]:
     """Build and analyse the variants of ``chunk``; stop after the first that stops the loop.
 
@@ -197,7 +209,7 @@ def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...] | 
         or, for a chunk with ``judge`` whose variants all finished, the one
         :class:`JudgedLoop` of its loop.
     """
-    spec = next(s for s in project.loops if s.name == chunk.loop)
+    spec = _loop_named(project, chunk.loop)
     out: list[VariantOutcome] = []
     for variant in chunk.variants:
         if chunk.deadline_epoch_s is not None and time.time() > chunk.deadline_epoch_s:

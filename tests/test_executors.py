@@ -136,3 +136,40 @@ def test_dask_local_cluster_report_is_identical(sampled_demo):
             sampled_demo, files, executor="dask", cluster_address=cluster.scheduler_address
         )
     assert on_cluster == local
+
+
+def test_judging_request_crosses_once_per_worker(sampled_demo):
+    """A chunk judged in its worker names the request installed there (not a copy
+    of the ruleset per chunk); the outcome is that of judging it in this process."""
+    import dataclasses
+    import pickle
+
+    from ruleguard.load.project import load_project
+    from ruleguard.load.rulesets import load_ruleset
+    from ruleguard.models.families import loop_variants
+    from ruleguard.pipeline import LoopJudging
+    from ruleguard.workunits import JudgedLoop, analyse_chunk
+
+    project = load_project(sampled_demo)
+    ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
+    judging = LoopJudging(ruleset, (), (), AS_OF)
+    spec = next(s for s in project.loops if s.name == "housing.heater")
+    variants = loop_variants(project, spec)[:4]
+    (chunk,) = split_variants(spec.name, variants, len(variants), judge=judging)
+    here = analyse_chunk(project, chunk)
+    assert isinstance(here[0], JudgedLoop)
+
+    sent = dataclasses.replace(chunk, judge=executors.INSTALLED_JUDGING)
+    assert len(pickle.dumps(sent)) < len(pickle.dumps(chunk)) / 2
+    saved = executors._WORKER_PROJECT, executors._WORKER_JUDGING
+    try:
+        executors._install_project(project, judging)
+        assert pickle.dumps(executors._run_installed(sent)) == pickle.dumps(here)
+    finally:
+        executors._WORKER_PROJECT, executors._WORKER_JUDGING = saved
+
+    pool = executors.ProcessExecutor(project, 2, judging)
+    try:
+        assert pickle.dumps(pool.submit(chunk).result()) == pickle.dumps(here)
+    finally:
+        pool.close()
