@@ -9,6 +9,8 @@ from pathlib import Path
 
 import jsonschema
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from sample_reports import (
     PHASE_FINDING,
     WAIVED_FINDING,
@@ -197,3 +199,53 @@ class TestValues:
             63.0 / 180.0 * 3.141592653589793 / (2 * 3.141592653589793 * 0.004)
         )
         assert margins["gain_margin_db"] is None  # stable: null means unbounded
+
+
+# ------------------------------------------------------------ the fast encoder
+# Reference: the standard library's json.dumps with the options the report
+# always used (indent 2, ensure_ascii=False, allow_nan=False): same text, or
+# the same exception, for any value.
+
+_LEAVES = (
+    st.none() | st.booleans() | st.integers() | st.floats(allow_nan=True, allow_infinity=True)
+    | st.text()
+)
+_KEYS = st.text() | st.integers() | st.booleans() | st.none() | st.floats(allow_nan=False)
+_VALUES = st.recursive(
+    _LEAVES,
+    lambda inner: st.lists(inner, max_size=4) | st.tuples(inner, inner)
+    | st.dictionaries(_KEYS, inner, max_size=4),
+    max_leaves=25,
+)
+
+
+def _outcome(fn, value, indent):
+    try:
+        return "text", fn(value, indent)
+    except (ValueError, TypeError) as exc:
+        return "error", type(exc)
+
+
+def _library(value, indent):
+    return json.dumps(value, indent=indent, ensure_ascii=False, allow_nan=False)
+
+
+@settings(max_examples=400, deadline=None)
+@given(_VALUES, st.sampled_from([None, 0, 2, 4]))
+def test_fast_encoder_writes_what_the_library_writes(value, indent):
+    assert _outcome(json_report.dumps, value, indent) == _outcome(_library, value, indent)
+
+
+def test_fast_encoder_on_reports_and_odd_values():
+    for report in (sample_report(), clean_report()):
+        data = json_report.report_data(report)
+        assert json_report.dumps(data) == _library(data, 2)
+    import enum
+
+    class Colour(str, enum.Enum):
+        RED = "red"
+
+    odd = {"sub": Colour.RED, "big": 10**30, "neg": -0.0, "tiny": 5e-324, "u": "é\u2028\x00"}
+    assert json_report.dumps(odd) == _library(odd, 2)
+    with pytest.raises(ValueError):
+        json_report.dumps({"x": [1.0, float("nan")]})
