@@ -13,6 +13,13 @@ the parent and of its largest worker and their sum (getrusage of the process
 and of its waited-for children; an upper bound of the simultaneous peak),
 and whether the JSON reports are byte-identical.
 
+It also samples, every 20 ms while the check runs, the proportional set size
+(PSS, ``/proc/PID/smaps_rollup``) of the check and all its worker processes
+and prints the largest sum seen: the memory the run really holds at once,
+each page shared between the parent and its forked workers (the interpreter,
+numpy, the loaded project) counted once, split among the processes that
+share it. The RSS sum above counts those pages once per process.
+
 ``--baseline DIR`` runs the same checks with another checkout of ruleguard
 (``DIR`` on ``PYTHONPATH``, e.g. ``git worktree add /tmp/base main`` or
 ``git archive main | tar -x -C DIR``) right after each run of this one, so
@@ -30,6 +37,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
@@ -73,11 +81,60 @@ def build_project(folder: Path, samples: int) -> Path:
     return folder / "firmware" / "tilt_velocity.toml"
 
 
+def _tree(pid: int) -> list[int]:
+    """``pid`` and its descendants (Linux /proc)."""
+    found, todo = [], [pid]
+    while todo:
+        here = todo.pop()
+        found.append(here)
+        try:
+            for task in os.listdir(f"/proc/{here}/task"):
+                with open(f"/proc/{here}/task/{task}/children") as handle:
+                    todo.extend(int(c) for c in handle.read().split())
+        except OSError:
+            continue
+    return found
+
+
+def _pss_kib(pid: int) -> int:
+    try:
+        with open(f"/proc/{pid}/smaps_rollup") as handle:
+            for line in handle:
+                if line.startswith("Pss:"):
+                    return int(line.split()[1])
+    except OSError:
+        pass
+    return 0
+
+
+class _PssSampler:
+    """The largest PSS sum of a process tree, sampled in a thread."""
+
+    def __init__(self, pid: int, every_s: float = 0.02) -> None:
+        self.peak_kib = 0
+        self._pid, self._every = pid, every_s
+        self._done = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while not self._done.is_set():
+            total = sum(_pss_kib(pid) for pid in _tree(self._pid))
+            self.peak_kib = max(self.peak_kib, total)
+            self._done.wait(self._every)
+
+    def stop(self) -> int:
+        self._done.set()
+        self._thread.join()
+        return self.peak_kib
+
+
 def run_check(
     folder: Path, selected: Path, jobs: int, code: Path | None = None
-) -> tuple[float, int, int, bytes, float]:
+) -> tuple[float, int, int, bytes, float, int]:
     """(wall s, parent peak RSS KiB, largest child peak RSS KiB, report bytes,
-    CPU s of the check and its workers: less sensitive to a busy machine than wall).
+    CPU s of the check and its workers: less sensitive to a busy machine than wall,
+    largest PSS sum of the check and its workers KiB: 0 where /proc has none).
 
     ``code``: the checkout of ruleguard to run (``None``: the installed one).
     """
@@ -90,14 +147,18 @@ def run_check(
         "--jobs", str(jobs), str(selected.relative_to(folder)),
     ]
     start = time.perf_counter()
-    done = subprocess.run(command, cwd=folder, capture_output=True, check=False, env=env)
+    process = subprocess.Popen(command, cwd=folder, stdout=subprocess.PIPE,
+                               stderr=subprocess.PIPE, env=env)
+    sampler = _PssSampler(process.pid)
+    out, err = process.communicate()
     wall = time.perf_counter() - start
-    line = [x for x in done.stderr.decode().splitlines() if x.startswith("RSS ")]
+    pss = sampler.stop()
+    line = [x for x in err.decode().splitlines() if x.startswith("RSS ")]
     if not line:
-        raise SystemExit(f"check failed: {done.stderr.decode()[-2000:]}")
+        raise SystemExit(f"check failed: {err.decode()[-2000:]}")
     _, own, kids, _, _code = line[-1].split()
-    cpu = [x for x in done.stderr.decode().splitlines() if x.startswith("CPU ")][-1]
-    return wall, int(own), int(kids), done.stdout, float(cpu.split()[1])
+    cpu = [x for x in err.decode().splitlines() if x.startswith("CPU ")][-1]
+    return wall, int(own), int(kids), out, float(cpu.split()[1]), pss
 
 
 def main() -> None:
@@ -120,16 +181,18 @@ def main() -> None:
     print(f"tilt.velocity, {args.samples} Latin-hypercube variants (+ nominal), "
           f"{resource.getpagesize()} B pages")
     print(f"{'jobs':>4} {'wall s':>8} {'variants/s':>10} {'parent MB':>9} "
-          f"{'worker MB':>9} {'sum MB':>7} {'CPU s':>7}  report sha256")
+          f"{'worker MB':>9} {'sum MB':>7} {'PSS MB':>7} {'CPU s':>7}  report sha256")
     base = rows[0][1]
-    for jobs, wall, own, kids, report, cpu in rows:
+    for jobs, wall, own, kids, report, cpu, pss in rows:
         workers = kids * jobs if jobs > 1 else 0
         total = own + workers
         print(f"{jobs:>4} {wall:>8.1f} {(args.samples + 1) / wall:>10.0f} {own / 1024:>9.0f} "
-              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f} {cpu:>7.1f}  "
-              f"{hashlib.sha256(report).hexdigest()[:16]}")
+              f"{kids / 1024 if jobs > 1 else 0:>9.0f} {total / 1024:>7.0f} {pss / 1024:>7.0f} "
+              f"{cpu:>7.1f}  {hashlib.sha256(report).hexdigest()[:16]}")
+    print("(parent, worker: peak RSS of each; sum: parent + jobs x worker, shared pages "
+          "counted per process; PSS: the largest sampled sum of all the run's processes)")
     print("speed-up (first / each):", " ".join(f"{base / r[1]:.2f}" for r in rows))
-    for (jobs, wall, own, _, _, cpu), (_, b_wall, b_own, b_kids, b_report, b_cpu) in zip(
+    for (jobs, wall, own, _, _, cpu, _), (_, b_wall, b_own, b_kids, b_report, b_cpu, _) in zip(
         rows, base_rows, strict=False
     ):
         print(f"baseline {jobs} job(s): {b_wall:.1f} s, CPU {b_cpu:.1f} s, parent "
