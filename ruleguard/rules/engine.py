@@ -281,6 +281,20 @@ def _check_selection(only: Sequence[str], skip: Sequence[str]) -> None:
             raise InputError("<command line>", None, None, option, str(exc)) from None
 
 
+#: (catalog, only, skip) of the last run -> its loop rules and their selection
+#: (a check judges its loops one by one with the same selection)
+_SELECTION: list = [None, None]
+
+
+def _loop_rules(only: tuple[str, ...], skip: tuple[str, ...]) -> tuple[list[str], dict[str, bool]]:
+    """The loop-scope rule ids, sorted, and whether ``--only``/``--skip`` select each."""
+    key = (list(RULES.values()), only, skip)
+    if _SELECTION[0] != key:
+        loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
+        _SELECTION[:] = [key, (loop_rules, {r: is_selected(r, only, skip) for r in loop_rules})]
+    return _SELECTION[1]
+
+
 def iter_findings(
     contexts: Iterable[LoopContext],
     ruleset: Ruleset,
@@ -324,8 +338,7 @@ def iter_findings(
         names = list(loop_names)  # as the first analysed context would give
         project_loops = names.copy
 
-    loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
-    selected = {r: is_selected(r, only, skip) for r in loop_rules}
+    loop_rules, selected = _loop_rules(only, skip)
     for ctx in contexts:
         name = ctx.spec.name
         evaluated.add(name)
