@@ -219,3 +219,62 @@ def test_ceiling_from_deciding_edges_is_the_full_one(evaluations, make_test):
             checked += 1
             found += want is not None
     assert checked > 50 and found > 10
+
+
+# ------------------------------------------------------------------ the peak refinement
+def _reference_refine_maxima(values, lo, hi, w_best, y_best, points=33, log_tol=1e-12):
+    """The earlier refine_maxima, statement for statement."""
+    a = np.log(np.asarray(lo, dtype=float))
+    b = np.log(np.asarray(hi, dtype=float))
+    best_w = np.array(w_best, dtype=float)
+    best_y = np.array(y_best, dtype=float)
+    if a.size == 0:
+        return best_w, best_y
+    t = np.linspace(0.0, 1.0, points)
+    rows = np.arange(a.size)
+    for _ in range(40):
+        width = b - a
+        if np.all(width <= log_tol):
+            break
+        x = a[:, None] + width[:, None] * t[None, :]
+        v = np.asarray(values(np.exp(x).ravel()), dtype=float).reshape(x.shape)
+        v = np.where(np.isfinite(v), v, -np.inf)
+        j = np.argmax(v, axis=1)
+        better = v[rows, j] > best_y
+        best_y = np.where(better, v[rows, j], best_y)
+        best_w = np.where(better, np.exp(x[rows, j]), best_w)
+        a = x[rows, np.maximum(j - 1, 0)]
+        b = x[rows, np.minimum(j + 1, points - 1)]
+    return best_w, best_y
+
+
+@settings(max_examples=200, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), n=st.integers(1, 6), holes=st.booleans(),
+       width=st.sampled_from([1e-9, 1e-4, 1e-2, 0.3]))
+def test_peak_refinement_gives_the_earlier_floats(seed, n, holes, width):
+    from ruleguard.models.lti import Factored
+    from ruleguard.rules.evidence import db
+    from ruleguard.rules.responses import refine_maxima
+
+    rng = np.random.default_rng(seed)
+    wn = 10 ** rng.uniform(1, 4, 3)
+    zeta = 10 ** rng.uniform(-3, -0.5, 3)
+    r = -zeta * wn + 1j * wn * np.sqrt(1 - zeta * zeta)
+    block = Factored(np.array([-3.0 * wn[0]]), np.concatenate([r, r.conj()]),
+                     float(wn.prod() ** 2))
+
+    def values(x):
+        y = db(block.response(x))
+        if holes:  # undefined values in the brackets (nan, inf) count as -inf
+            y = np.where(np.abs(np.sin(x * 7.3)) < 0.05, np.nan, y)
+            y = np.where(np.abs(np.sin(x * 3.1)) < 0.02, np.inf, y)
+        return y
+
+    centre = wn[rng.integers(0, 3, n)] * rng.uniform(0.8, 1.2, n)
+    lo, hi = centre * (1 - width), centre * (1 + width)
+    w0 = centre.copy()
+    y0 = np.nan_to_num(values(w0), nan=-np.inf) - rng.uniform(0.0, 3.0, n)
+    want = _reference_refine_maxima(values, lo, hi, w0, y0)
+    got = refine_maxima(values, lo, hi, w0, y0)
+    for a, b in zip(want, got, strict=True):
+        assert a.tobytes() == b.tobytes()
