@@ -8,6 +8,11 @@ waiver, and finally reports on the ruleset itself (expired and unused
 waivers). Everything is one lazy iterator (:func:`iter_findings`);
 :func:`evaluate` collects it. Nothing here prints or reads files.
 
+The configuration depends only on which adjustments match a loop: it is
+resolved once per ruleset and set of matching adjustments and shared by the
+loops alike (read-only; each caller of :func:`effective_rules` gets its own
+mapping).
+
 Order of findings: loops in the order given, rules by id within a loop, a
 rule's own order within a rule; the ruleset findings (``waiver.*``) last.
 
@@ -283,16 +288,18 @@ def _check_selection(only: Sequence[str], skip: Sequence[str]) -> None:
 
 #: (catalog, only, skip) of the last run -> its loop rules and their selection
 #: (a check judges its loops one by one with the same selection)
-_SELECTION: list = [None, None]
+_SELECTION: list = [None]
 
 
 def _loop_rules(only: tuple[str, ...], skip: tuple[str, ...]) -> tuple[list[str], dict[str, bool]]:
     """The loop-scope rule ids, sorted, and whether ``--only``/``--skip`` select each."""
     key = (list(RULES.values()), only, skip)
-    if _SELECTION[0] != key:
+    entry = _SELECTION[0]  # (key, value), replaced whole: a concurrent run sees one or the other
+    if entry is None or entry[0] != key:
         loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
-        _SELECTION[:] = [key, (loop_rules, {r: is_selected(r, only, skip) for r in loop_rules})]
-    return _SELECTION[1]
+        entry = (key, (loop_rules, {r: is_selected(r, only, skip) for r in loop_rules}))
+        _SELECTION[0] = entry
+    return entry[1]
 
 
 def iter_findings(
