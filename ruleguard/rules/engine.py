@@ -8,6 +8,11 @@ waiver, and finally reports on the ruleset itself (expired and unused
 waivers). Everything is one lazy iterator (:func:`iter_findings`);
 :func:`evaluate` collects it. Nothing here prints or reads files.
 
+The configuration depends only on which adjustments match a loop: it is
+resolved once per ruleset and set of matching adjustments and shared by the
+loops alike (read-only; each caller of :func:`effective_rules` gets its own
+mapping).
+
 Order of findings: loops in the order given, rules by id within a loop, a
 rule's own order within a rule; the ruleset findings (``waiver.*``) last.
 
@@ -23,7 +28,7 @@ from __future__ import annotations
 
 import datetime
 import fnmatch
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
 
 from ruleguard.deferred import numpy as np
@@ -118,19 +123,20 @@ def _apply(
     return severity
 
 
-def effective_rules(
-    ruleset: Ruleset,
-    loop_name: str | None = None,
-    tags: Iterable[str] = (),
-    crossover_hz: float | None = None,
-) -> dict[str, EffectiveRule]:
-    """The configuration of every rule for one loop (``loop_name=None``: no adjustment)."""
-    tags = tuple(tags)
-    matching = (
-        [o for o in ruleset.adjustments if adjustment_applies(o, loop_name, tags, crossover_hz)]
-        if loop_name is not None
-        else []
+def _matching(
+    ruleset: Ruleset, loop_name: str | None, tags: tuple[str, ...], crossover_hz: float | None
+) -> tuple[int, ...]:
+    """Positions in ``ruleset.adjustments`` of the items that apply to the loop."""
+    if loop_name is None:
+        return ()
+    return tuple(
+        i
+        for i, o in enumerate(ruleset.adjustments)
+        if adjustment_applies(o, loop_name, tags, crossover_hz)
     )
+
+
+def _resolve(ruleset: Ruleset, matching: Sequence[Adjustment]) -> dict[str, EffectiveRule]:
     result: dict[str, EffectiveRule] = {}
     for rule_id, rule in RULES.items():
         severity = rule.default_severity
@@ -152,6 +158,56 @@ def effective_rules(
             rule_id, severity, ParameterValues(values, locations), where
         )
     return result
+
+
+class _Resolved:
+    """One resolved configuration: the rules and the views rules read from ``ctx.extras``."""
+
+    __slots__ = ("rules", "parameters", "severities")
+
+    def __init__(self, rules: dict[str, EffectiveRule]) -> None:
+        self.rules = rules
+        self.parameters = {r: e.parameters for r, e in rules.items()}
+        self.severities = {r: e.severity for r, e in rules.items()}
+
+
+#: id(ruleset) -> (weak reference to it, the catalog it was resolved against,
+#: matching adjustment positions -> resolved configuration). The configuration
+#: of a loop depends only on which adjustments match it, so the loops that
+#: match the same ones (most of a project) share one resolution.
+_RESOLUTIONS: dict[int, tuple] = {}
+
+
+def _resolved(ruleset: Ruleset, matching: tuple[int, ...]) -> _Resolved:
+    catalog = list(RULES.values())
+    entry = _RESOLUTIONS.get(id(ruleset))
+    if entry is None or entry[0]() is not ruleset or entry[1] != catalog:
+        import weakref
+
+        key = id(ruleset)
+        try:
+            ref = weakref.ref(ruleset, lambda _, key=key: _RESOLUTIONS.pop(key, None))
+        except TypeError:  # not weakly referable: resolve every time
+            return _Resolved(_resolve(ruleset, [ruleset.adjustments[i] for i in matching]))
+        entry = _RESOLUTIONS[key] = (ref, catalog, {})
+    table = entry[2]
+    found = table.get(matching)
+    if found is None:
+        found = table[matching] = _Resolved(
+            _resolve(ruleset, [ruleset.adjustments[i] for i in matching])
+        )
+    return found
+
+
+def effective_rules(
+    ruleset: Ruleset,
+    loop_name: str | None = None,
+    tags: Iterable[str] = (),
+    crossover_hz: float | None = None,
+) -> dict[str, EffectiveRule]:
+    """The configuration of every rule for one loop (``loop_name=None``: no adjustment)."""
+    matching = _matching(ruleset, loop_name, tuple(tags), crossover_hz)
+    return dict(_resolved(ruleset, matching).rules)
 
 
 def _lower(a: Severity, b: Severity | None) -> Severity:
@@ -230,6 +286,22 @@ def _check_selection(only: Sequence[str], skip: Sequence[str]) -> None:
             raise InputError("<command line>", None, None, option, str(exc)) from None
 
 
+#: (catalog, only, skip) of the last run -> its loop rules and their selection
+#: (a check judges its loops one by one with the same selection)
+_SELECTION: list = [None]
+
+
+def _loop_rules(only: tuple[str, ...], skip: tuple[str, ...]) -> tuple[list[str], dict[str, bool]]:
+    """The loop-scope rule ids, sorted, and whether ``--only``/``--skip`` select each."""
+    key = (list(RULES.values()), only, skip)
+    entry = _SELECTION[0]  # (key, value), replaced whole: a concurrent run sees one or the other
+    if entry is None or entry[0] != key:
+        loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
+        entry = (key, (loop_rules, {r: is_selected(r, only, skip) for r in loop_rules}))
+        _SELECTION[0] = entry
+    return entry[1]
+
+
 def iter_findings(
     contexts: Iterable[LoopContext],
     ruleset: Ruleset,
@@ -251,7 +323,8 @@ def iter_findings(
     active = [w for w in ruleset.waivers if waiver_active(w, today)]
     hits = {id(w): 0 for w in active}
     evaluated: set[str] = set()
-    project_loops: list[str] | None = None
+    # the project's loop names, for waiver.unused: read only when a waiver needs them
+    project_loops: Callable[[], list[str]] | None = None
 
     for loop_name, found in (cached or {}).items():
         evaluated.add(loop_name)
@@ -269,21 +342,26 @@ def iter_findings(
                 if waiver is not None:
                     hits[id(waiver)] += 1
     if judged and loop_names is not None:
-        project_loops = list(loop_names)  # as the first analysed context would give
+        names = list(loop_names)  # as the first analysed context would give
+        project_loops = names.copy
 
-    loop_rules = sorted(r for r, spec in RULES.items() if spec.scope == "loop")
+    loop_rules, selected = _loop_rules(only, skip)
     for ctx in contexts:
         name = ctx.spec.name
         evaluated.add(name)
         if project_loops is None:
-            project_loops = [s.name for s in getattr(ctx.project, "loops", ())]
-        config = effective_rules(ruleset, name, ctx.spec.tags, nominal_crossover_hz(ctx))
+            project_loops = _loop_names_of(ctx.project)
+        resolved = _resolved(
+            ruleset,
+            _matching(ruleset, name, tuple(ctx.spec.tags), nominal_crossover_hz(ctx)),
+        )
+        config = resolved.rules
         ctx = replace(
             ctx,
             extras={
                 **(ctx.extras or {}),
-                "rule_parameters": {r: e.parameters for r, e in config.items()},
-                "rule_severities": {r: e.severity for r, e in config.items()},
+                "rule_parameters": dict(resolved.parameters),
+                "rule_severities": dict(resolved.severities),
             },
         )
         reason_rule = None
@@ -303,7 +381,7 @@ def iter_findings(
                     severity = config[CLOSED_LOOP].severity
                 violations: Iterable[Violation] = (_not_analysed_violation(ctx),)
             else:
-                if not is_selected(rule_id, only, skip) or effective.severity is Severity.DISABLED:
+                if not selected[rule_id] or effective.severity is Severity.DISABLED:
                     continue
                 severity = effective.severity
                 violations = RULES[rule_id].function(ctx, effective.parameters)
@@ -333,17 +411,24 @@ def iter_findings(
     )
 
 
+def _loop_names_of(project) -> Callable[[], list[str]]:
+    def names() -> list[str]:
+        return [s.name for s in getattr(project, "loops", ())]
+
+    return names
+
+
 def _ruleset_findings(
     ruleset: Ruleset,
     today: datetime.date,
     active: list[Waiver],
     hits: dict[int, int],
     evaluated: set[str],
-    project_loops: list[str] | None,
+    project_loops: Callable[[], list[str]] | None,
     only: tuple[str, ...],
     skip: tuple[str, ...],
 ) -> Iterator[Finding]:
-    top = effective_rules(ruleset)
+    top = _resolved(ruleset, ()).rules
     expired_rule, unused_rule = top["waiver.expired"], top["waiver.unused"]
     if is_selected("waiver.expired", only, skip) and expired_rule.severity is not Severity.DISABLED:
         for w in ruleset.waivers:
@@ -358,10 +443,12 @@ def _ruleset_findings(
             )
     if not is_selected("waiver.unused", only, skip) or unused_rule.severity is Severity.DISABLED:
         return
-    all_loops = project_loops if project_loops is not None else sorted(evaluated)
+    all_loops: list[str] | None = None
     for w in active:
         if hits[id(w)] or not any(is_selected(r, only, skip) for r in RULES if matches(r, w.rule)):
             continue
+        if all_loops is None:
+            all_loops = project_loops() if project_loops is not None else sorted(evaluated)
         named = [n for n in all_loops if any(fnmatch.fnmatchcase(n, g) for g in w.loops)]
         if named and not any(n in evaluated for n in named):
             continue  # its loops are not part of this run: not judged

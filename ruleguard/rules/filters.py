@@ -254,41 +254,43 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
     rational = open_loop.rational
     if rational.gain == 0.0:
         return False
-    n_zeros = rational.zeros.size
-    roots = np.concatenate([rational.zeros, rational.poles])
-    h = rational.sample_time_s
-    speed = 1.0 if h is None else h
-    log_gain = math.log(abs(rational.gain))
-    ceiling = (floor_db - 1e-6) * (math.log(10.0) / 20.0)  # natural log of |L|
-    edges = []
     for lo, hi in windows:
         a, b = min(lo, hi), max(lo, hi)
         if not (math.isfinite(a) and math.isfinite(b) and b > a > 0):
             return False
-        edges.append(np.linspace(a, b, _SCREEN_POINTS))
-    w = np.stack(edges)
-    mid = (0.5 * (w[:, 1:] + w[:, :-1])).ravel()
-    half = (0.5 * (w[:, 1:] - w[:, :-1])).ravel()
+    roots = np.concatenate([rational.zeros, rational.poles])
+    # log|L| = log|k| + signs . log|x - r|  (+1 for a zero, -1 for a pole)
+    signs = np.ones(roots.size)
+    signs[rational.zeros.size:] = -1.0
+    h = rational.sample_time_s
+    speed = 1.0 if h is None else h
+    log_gain = math.log(abs(rational.gain))
+    ceiling = (floor_db - 1e-6) * (math.log(10.0) / 20.0)  # natural log of |L|
+    ends = np.array([(min(lo, hi), max(lo, hi)) for lo, hi in windows])
+    steps = _SCREEN_POINTS - 1
+    width = ends[:, 1] - ends[:, 0]
+    mid = (ends[:, :1] + width[:, None] * ((np.arange(steps) + 0.5) / steps)).ravel()
+    half = np.repeat(0.5 * width / steps, steps)
     pieces = (np.arange(_SCREEN_SPLIT) + 0.5) * (2.0 / _SCREEN_SPLIT) - 1.0
-    for round_ in range(_SCREEN_ROUNDS + 1):
-        x = 1j * mid if h is None else np.exp(1j * mid * h)
-        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        for round_ in range(_SCREEN_ROUNDS + 1):
+            x = 1j * mid if h is None else np.exp(1j * mid * h)
             far = np.abs(x[:, None] - roots)
-            dist = far - (speed * half)[:, None]
-            logs = np.log(far)
-            log_mag = log_gain + logs[:, :n_zeros].sum(axis=1) - logs[:, n_zeros:].sum(axis=1)
-            slope = speed * np.sum(1.0 / np.where(dist > 0, dist, np.nan), axis=1)
-            top = log_mag + half * slope
-        if not np.all(log_mag < ceiling):  # a sample (or a pole) at the floor or above
-            return False
-        open_steps = ~(top < ceiling)  # reaches the floor, or no bound (a root next to the step)
-        if not np.any(open_steps):
-            return True
-        if round_ == _SCREEN_ROUNDS or np.count_nonzero(open_steps) > _SCREEN_OPEN_LIMIT:
-            return False
-        mid, half = mid[open_steps], half[open_steps]
-        mid = (mid[:, None] + half[:, None] * pieces).ravel()
-        half = np.repeat(half / _SCREEN_SPLIT, _SCREEN_SPLIT)
+            log_mag = log_gain + np.log(far) @ signs
+            if not log_mag.max() < ceiling:  # a sample (or a pole) at the floor or above
+                return False
+            # no bound where a root is closer than the step's ends: a huge slope keeps it open
+            dist = np.maximum(far - (speed * half)[:, None], 1e-300)
+            top = log_mag + half * (speed * (1.0 / dist).sum(axis=1))
+            open_steps = ~(top < ceiling)  # reaches the floor, or no bound
+            count = np.count_nonzero(open_steps)
+            if not count:
+                return True
+            if round_ == _SCREEN_ROUNDS or count > _SCREEN_OPEN_LIMIT:
+                return False
+            mid, half = mid[open_steps], half[open_steps]
+            mid = (mid[:, None] + half[:, None] * pieces).ravel()
+            half = np.repeat(half / _SCREEN_SPLIT, _SCREEN_SPLIT)
     return False
 
 
@@ -314,7 +316,9 @@ def _peaks_db(open_loop, resonances: list[tuple[float, float]],
         grids.append(w[w > 0])
 
     def values(x):
-        return np.nan_to_num(db(open_loop.response(x)), nan=-np.inf)
+        y = db(open_loop.response(x))
+        # nan_to_num changes only values that are not finite: skip it when there are none
+        return y if np.isfinite(y).all() else np.nan_to_num(y, nan=-np.inf)
 
     sizes = [g.size for g in grids]
     y_all = values(np.concatenate(grids))

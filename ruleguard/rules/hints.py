@@ -763,16 +763,56 @@ def _delay_room(ctx: LoopContext, evaluations: Sequence[Evaluation], min_s: floa
 
 def _crossover_ceiling_hz(ev: Evaluation, test, failing_hz: Sequence[float],
                           contour=None) -> float | None:
-    """Lower edge (Hz) of the failing run that holds the lowest failing crossover."""
+    """Lower edge (Hz) of the failing run that holds the lowest failing crossover.
+
+    The run edges are those :func:`frequency_test_forbidden` refines (the
+    roots of the test between a run's end sample and its neighbour), but
+    only the edges that decide the answer are computed: a refined lower edge
+    lies in ``[w[i0-1], w[i0]]`` and an upper one in ``[w[i1], w[i1+1]]``
+    (Brent's root finder keeps its bracket), so most runs are decided by
+    their samples alone.
+    """
     if not failing_hz:
         return None
     contour = _contour(ev) if contour is None else contour
     target = 2.0 * math.pi * min(failing_hz)
-    _, edges = frequency_test_forbidden(contour, test)
+    reach = target * (1 + 1e-9)
+    response = _scalar_response(contour)
+    scalar_test = getattr(test, "scalar", None)
+
+    def g_scalar(x: float) -> float:
+        if scalar_test is not None:
+            return scalar_test(float(x), response(x))
+        return float(test(np.array([x]), np.array([response(x)]))[0])
+
     best = None
-    for w_lo, w_hi in edges:
-        if w_lo <= target * (1 + 1e-9) and target <= w_hi * (1 + 1e-9):
-            best = w_lo
+    for br in contour.branches:
+        w = br.w
+        n = w.size
+        for i0, i1 in _runs(test(w, br.L) < 0):
+            # w_lo <= reach?  (w_lo = w[i0] without a lower neighbour or root)
+            if i0 > 0 and float(w[i0 - 1]) > reach:
+                continue
+            if i0 == 0 and float(w[i0]) > reach:
+                continue
+            # target <= w_hi (1 + 1e-9)?
+            if i1 < n - 1:
+                if not target <= float(w[i1]) * (1 + 1e-9):
+                    if target > float(w[i1 + 1]) * (1 + 1e-9):
+                        continue
+                    r = _edge_root(g_scalar, float(w[i1]), float(w[i1 + 1]))
+                    w_hi = r if r is not None else float(w[i1])
+                    if not target <= w_hi * (1 + 1e-9):
+                        continue
+            elif not target <= float(w[i1]) * (1 + 1e-9):
+                continue
+            w_lo = float(w[i0])
+            if i0 > 0:
+                r = _edge_root(g_scalar, float(w[i0 - 1]), float(w[i0]))
+                if r is not None:
+                    w_lo = r
+            if w_lo <= reach:
+                best = w_lo
     if best is None or best <= 0:
         return None
     return best / (2.0 * math.pi)

@@ -152,15 +152,18 @@ def refine_maxima(
     rows = np.arange(a.size)
     for _ in range(40):
         width = b - a
-        if np.all(width <= log_tol):
+        if (width <= log_tol).all():
             break
-        x = a[:, None] + width[:, None] * t[None, :]
+        x = a[:, None] + width[:, None] * t
         v = np.asarray(values(np.exp(x).ravel()), dtype=float).reshape(x.shape)
-        v = np.where(np.isfinite(v), v, -np.inf)
-        j = np.argmax(v, axis=1)
-        better = v[rows, j] > best_y
-        best_y = np.where(better, v[rows, j], best_y)
-        best_w = np.where(better, np.exp(x[rows, j]), best_w)
+        if not np.isfinite(v).all():
+            v = np.where(np.isfinite(v), v, -np.inf)
+        j = v.argmax(axis=1)
+        top = v[rows, j]
+        better = top > best_y
+        if better.any():
+            best_y = np.where(better, top, best_y)
+            best_w = np.where(better, np.exp(x[rows, j]), best_w)
         a = x[rows, np.maximum(j - 1, 0)]
         b = x[rows, np.minimum(j + 1, points - 1)]
     return best_w, best_y
