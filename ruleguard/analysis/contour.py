@@ -199,8 +199,11 @@ class RationalResponse:
             d1 = h * np.abs(s1)
             dist = np.abs(diff) - reach[:, None]
             ok = dist > 0
-            safe = np.where(ok, dist, 1.0)
-            s2 = np.where(ok, 1.0 / safe**2 + 1.0 / safe, np.inf).sum(1)
+            if ok.all():  # the usual case: the same sums without the masking
+                s2 = (1.0 / dist**2 + 1.0 / dist).sum(1)
+            else:
+                safe = np.where(ok, dist, 1.0)
+                s2 = np.where(ok, 1.0 / safe**2 + 1.0 / safe, np.inf).sum(1)
             return 2 * half * (d1 + half * h * h * s2)
 
 
@@ -272,6 +275,17 @@ class SampledContour:
             return self.rational.value(float(w))
         return complex(self.evaluate(np.array([float(w)]))[0])
 
+    def scalar_evaluator(self):
+        """The function ``w -> L(w)`` (a float to a complex) that :meth:`evaluate_scalar` is.
+
+        Without factors it is the rational part's plain-arithmetic
+        :meth:`RationalResponse.value` itself (the same numbers, one call less
+        per evaluation in the root finders and minimisers).
+        """
+        if not self.open_loop.factors:
+            return self.rational.value
+        return self.evaluate_scalar
+
     @property
     def w(self) -> np.ndarray:
         return np.concatenate([b.w for b in self.branches])
@@ -298,11 +312,11 @@ class SampledContour:
         mids = 0.5 * (br.w[idx] + br.w[idx + 1])
         Lm = self.evaluate(mids)
         left, right = _halves_bound(self.rational, br.w[idx], mids, br.w[idx + 1])
-        w = np.insert(br.w, idx + 1, mids)
-        L = np.insert(br.L, idx + 1, Lm)
+        w = _insert_after(br.w, idx, mids)
+        L = _insert_after(br.L, idx, Lm)
         bound = br.bound.copy()
         bound[idx] = left
-        bound = np.insert(bound, idx + 1, right)
+        bound = _insert_after(bound, idx, right)
         self.branches[bi] = Branch(w, L, bound)
 
     def refine_for_point(self, point: complex) -> None:
@@ -399,7 +413,8 @@ class SampledContour:
                 if prune and _bracket_floor(br, int(i), d) * (1.0 - 1e-9) > threshold:
                     hi = lo  # provably farther than the threshold: not refined
                 if hi > lo:
-                    wv2, val2 = _minimize(lambda x: abs(self.evaluate_scalar(x) - p), lo, hi)
+                    ev = self.scalar_evaluator()
+                    wv2, val2 = _minimize(lambda x, ev=ev: abs(ev(x) - p), lo, hi)
                     if val2 < val:
                         val, wv = val2, wv2
                 if val < best:
@@ -639,16 +654,32 @@ def _refine_rational(rational: RationalResponse, w: np.ndarray) -> tuple[np.ndar
     w = np.asarray(w, dtype=float)
     bound = rational.step_bound(w[:-1], w[1:])
     for _ in range(_MAX_PASSES):
-        split = (bound > STEP_BOUND) & (np.diff(w) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0))
-        if not split.any() or w.size + np.count_nonzero(split) > _MAX_SAMPLES:
+        split = (bound > STEP_BOUND) & ((w[1:] - w[:-1]) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0))
+        idx = np.flatnonzero(split)
+        if idx.size == 0 or w.size + idx.size > _MAX_SAMPLES:
             break
-        idx = np.nonzero(split)[0]
-        mids = 0.5 * (w[idx] + w[idx + 1])
-        left, right = _halves_bound(rational, w[idx], mids, w[idx + 1])
-        w = np.insert(w, idx + 1, mids)
+        wa, wb = w[idx], w[idx + 1]
+        mids = 0.5 * (wa + wb)
+        left, right = _halves_bound(rational, wa, mids, wb)
+        w = _insert_after(w, idx, mids)
         bound[idx] = left
-        bound = np.insert(bound, idx + 1, right)
+        bound = _insert_after(bound, idx, right)
     return w, bound
+
+
+def _insert_after(a: np.ndarray, idx: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """``a`` with ``new[k]`` placed right after ``a[idx[k]]`` (``idx`` increasing, distinct).
+
+    What ``np.insert(a, idx + 1, new)`` gives, without its general-purpose
+    argument handling (it runs once per bisection pass).
+    """
+    out = np.empty(a.size + idx.size, dtype=a.dtype)
+    pos = idx + np.arange(1, idx.size + 1)
+    keep = np.ones(out.size, dtype=bool)
+    keep[pos] = False
+    out[pos] = new
+    out[keep] = a
+    return out
 
 
 def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> SampledContour:

@@ -103,11 +103,12 @@ def refine_tangencies(contour: SampledContour, kind: str) -> None:
             near &= br.L[1:-1].real < 0
         cand = np.nonzero((ext_max | ext_min) & near)[0] + 1
         new = []
+        gs = _gscalar(contour, kind)
         for i in cand[:64]:
             sign = 1.0 if g[i] >= 0 else -1.0
 
-            def fun(x, sign=sign):
-                return sign * float(_gvalues(np.array([contour.evaluate_scalar(x)]), kind)[0])
+            def fun(x, sign=sign, gs=gs):
+                return sign * gs(x)
 
             wx, val = _minimize(fun, float(br.w[i - 1]), float(br.w[i + 1]))
             if val < 0:
@@ -123,6 +124,41 @@ def _gvalues(L: np.ndarray, kind: str) -> np.ndarray:
         return L.imag / np.abs(L)
 
 
+def _gscalar(contour: SampledContour, kind: str) -> Callable[[float], float]:
+    """``w -> _gvalues(L(w), kind)`` for one frequency, as a float.
+
+    The same numbers as ``_gvalues`` on a one-element array: numpy's ``abs``
+    and ``log`` on numpy scalars run the same loops as on arrays (and differ
+    from ``math.log`` / Python's ``abs`` in the last bit now and then, so
+    those are not used); the special values ``log 0 = -inf`` and ``0 / 0 =
+    nan`` are set here without numpy's warning machinery.
+    """
+    ev = contour.scalar_evaluator()
+    if contour.open_loop.factors:
+        def vector_g(x: float) -> float:
+            return float(_gvalues(np.array([ev(x)]), kind)[0])
+
+        return vector_g
+    npabs, nplog, c128 = np.abs, np.log, np.complex128
+    if kind == "unit":
+        def unit_g(x: float) -> float:
+            a = npabs(c128(ev(x)))
+            if a == 0.0:
+                return -math.inf
+            return float(nplog(a))
+
+        return unit_g
+
+    def axis_g(x: float) -> float:
+        L = ev(x)
+        a = npabs(c128(L))
+        if a == 0.0 or a != a:
+            return math.nan
+        return float(L.imag / a)
+
+    return axis_g
+
+
 def _refine_roots(contour: SampledContour, kind: str, a: np.ndarray, b: np.ndarray,
                   ga: np.ndarray, gb: np.ndarray) -> np.ndarray:
     if a.size == 0:
@@ -135,9 +171,7 @@ def _refine_roots(contour: SampledContour, kind: str, a: np.ndarray, b: np.ndarr
         # vectorized: many roots, or a response whose per-call cost is high
         return _illinois(fvec, a, b, ga, gb)
 
-    def fs(x):
-        return float(_gvalues(np.array([contour.evaluate_scalar(x)]), kind)[0])
-
+    fs = _gscalar(contour, kind)
     return np.array([_brent(fs, float(x), float(y)) for x, y in zip(a, b, strict=False)])
 
 
@@ -313,8 +347,10 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
                 and _bracket_bound(br, i, upper_bound) * (1.0 + 1e-9) < best):
             continue  # cannot beat the best one (see the docstring)
         if hi > lo:
-            def neg(x):
-                return -fun_scalar(contour.evaluate_scalar(x))
+            ev = contour.scalar_evaluator()
+
+            def neg(x, ev=ev):
+                return -fun_scalar(ev(x))
 
             wx, nv = _minimize(neg, float(lo), float(hi))
             if -nv > val:
