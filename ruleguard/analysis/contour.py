@@ -122,6 +122,10 @@ class RationalResponse:
         #: vectorized path (plain complex numbers for :meth:`value`)
         self._pairs = tuple(zip(zl, pl[:n], strict=True))
         self._lone = tuple(pl[n:])
+        #: the function :meth:`value` (constants bound as locals: it runs in
+        #: every step of the root finders and minimisers)
+        self.scalar = _scalar_function(self._pairs, self._lone, complex(self.gain), self.h,
+                                       self.delay)
 
     @property
     def relative_degree(self) -> int:
@@ -148,18 +152,7 @@ class RationalResponse:
 
     def value(self, w: float) -> complex:
         """Scalar evaluation in plain complex arithmetic (root finders)."""
-        x = 1j * w if self.h is None else cmath.exp(1j * w * self.h)
-        out = complex(self.gain)
-        try:
-            for z, p in self._pairs:
-                out *= (x - z) / (x - p)
-            for p in self._lone:
-                out /= x - p
-        except ZeroDivisionError:
-            return complex(math.inf, 0.0)
-        if self.delay:
-            out *= cmath.exp(-x * self.delay)
-        return out
+        return self.scalar(w)
 
     def step_bound(self, wa: np.ndarray, wb: np.ndarray) -> np.ndarray:
         """Upper bound on ``|log R(wb) - log R(wa)|`` for each step ``[wa, wb]``.
@@ -205,6 +198,32 @@ class RationalResponse:
                 safe = np.where(ok, dist, 1.0)
                 s2 = np.where(ok, 1.0 / safe**2 + 1.0 / safe, np.inf).sum(1)
             return 2 * half * (d1 + half * h * h * s2)
+
+
+def _scalar_function(pairs: tuple, lone: tuple, gain: complex, h: float | None, delay: float):
+    """``w -> R(j w)`` or ``R(exp(j w h))`` for one float ``w``, in plain complex arithmetic.
+
+    The gain times each (zero, pole) ratio, then divided by each pole left
+    over, left to right, times ``exp(-x delay)``; ``inf`` when ``x`` is a pole.
+    """
+    exp = cmath.exp
+    inf = complex(math.inf, 0.0)
+
+    def scalar(w: float) -> complex:
+        x = 1j * w if h is None else exp(1j * w * h)
+        out = gain
+        try:
+            for z, p in pairs:
+                out *= (x - z) / (x - p)
+            for p in lone:
+                out /= x - p
+        except ZeroDivisionError:
+            return inf
+        if delay:
+            out *= exp(-x * delay)
+        return out
+
+    return scalar
 
 
 # --------------------------------------------------------------------------- records
@@ -272,7 +291,7 @@ class SampledContour:
 
     def evaluate_scalar(self, w: float) -> complex:
         if not self.open_loop.factors:
-            return self.rational.value(float(w))
+            return self.rational.scalar(float(w))
         return complex(self.evaluate(np.array([float(w)]))[0])
 
     def scalar_evaluator(self):
@@ -283,7 +302,7 @@ class SampledContour:
         per evaluation in the root finders and minimisers).
         """
         if not self.open_loop.factors:
-            return self.rational.value
+            return self.rational.scalar
         return self.evaluate_scalar
 
     @property
@@ -322,28 +341,31 @@ class SampledContour:
     def refine_for_point(self, point: complex) -> None:
         """Bisect until the winding about ``point`` is certain between samples."""
         p = complex(point)
-        for bi in range(len(self.branches)):
-            for _ in range(_MAX_PASSES):
-                br = self.branches[bi]
-                if br.w.size < 2:
-                    break
-                d = br.L - p
-                ad = np.abs(d)
-                a0, a1 = ad[:-1], ad[1:]
-                L0 = np.abs(br.L[:-1])
-                with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        factors = bool(self.open_loop.factors)
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            for bi in range(len(self.branches)):
+                for _ in range(_MAX_PASSES):
+                    br = self.branches[bi]
+                    if br.w.size < 2:
+                        break
+                    d = br.L - p
+                    ad = np.abs(d)
+                    a0, a1 = ad[:-1], ad[1:]
+                    L0 = np.abs(br.L[:-1])
                     reach = np.expm1(np.minimum(br.bound, 50.0)) * L0
                     ang = np.abs(np.angle(d[1:] / d[:-1]))
-                    dlog = np.abs(np.log(np.abs(br.L[1:]) / np.maximum(L0, 1e-300)))
-                split = (reach >= 0.8 * np.minimum(a0, a1)) | (ang > ANGLE_BOUND)
-                if self.open_loop.factors:
-                    big = np.maximum(np.abs(br.L[1:]), L0) > _SMALL_L
-                    split |= (dlog > STEP_BOUND) & big
-                width = np.diff(br.w)
-                split &= width > _WIDTH_FLOOR * np.maximum(br.w[1:], 1.0)
-                if not split.any() or br.w.size + np.count_nonzero(split) > _MAX_SAMPLES:
-                    break
-                self._insert(bi, split)
+                    split = (reach >= 0.8 * np.minimum(a0, a1)) | (ang > ANGLE_BOUND)
+                    if factors:
+                        L1 = np.abs(br.L[1:])
+                        dlog = np.abs(np.log(L1 / np.maximum(L0, 1e-300)))
+                        big = np.maximum(L1, L0) > _SMALL_L
+                        split |= (dlog > STEP_BOUND) & big
+                    w = br.w
+                    split &= (w[1:] - w[:-1]) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0)
+                    n_new = np.count_nonzero(split)
+                    if not n_new or w.size + n_new > _MAX_SAMPLES:
+                        break
+                    self._insert(bi, split)
 
     def insert_points(self, bi: int, w_new: np.ndarray) -> None:
         """Add samples at ``w_new`` (inside branch ``bi``) and update the step bounds."""
@@ -553,10 +575,12 @@ def _boundary_location(rational: RationalResponse, w0: float) -> complex:
     return cmath.exp(1j * w0 * rational.h)
 
 
-def _indentations(open_loop: OpenLoop, rational: RationalResponse, top: float):
-    """Boundary poles as indentations with their net order (cancelling zeros removed)."""
+def _indentations(open_loop: OpenLoop, rational: RationalResponse, top: float,
+                  boundary: list[tuple[float, int]]):
+    """Boundary poles (``boundary``: ``OpenLoop.boundary_pole_frequencies()``) as
+    indentations with their net order (cancelling zeros removed)."""
     out = []
-    for w0, m in open_loop.boundary_pole_frequencies():
+    for w0, m in boundary:
         loc = _boundary_location(rational, w0)
         tol = CANCEL_RTOL * max(1.0, abs(loc))
         ncancel = int(np.count_nonzero(np.abs(rational.zeros - loc) <= tol))
@@ -573,10 +597,26 @@ def _indentations(open_loop: OpenLoop, rational: RationalResponse, top: float):
     return out
 
 
-def _scale_hint(rational: RationalResponse, open_loop: OpenLoop) -> tuple[float, float]:
-    corners = open_loop.corner_frequencies()
-    bw = [w0 for w0, _ in open_loop.boundary_pole_frequencies() if w0 > 0]
-    pool = np.concatenate([corners, np.asarray(bw, dtype=float)])
+def _scale_hint(rational: RationalResponse, open_loop: OpenLoop,
+                boundary: list[tuple[float, int]]) -> tuple[float, float]:
+    """Smallest and largest characteristic frequency of the loop (rad/s).
+
+    Those of ``OpenLoop.corner_frequencies()`` (the same values: ``|s|`` of
+    every finite nonzero root, ``|log z| / h`` in a discrete loop, the
+    factors' grids), of the boundary poles and of a delay; only their extremes
+    are needed, so they are neither sorted nor made unique.
+    """
+    roots = rational.roots
+    if rational.h is None:
+        rw = np.abs(roots)
+    else:
+        rw = np.abs(np.log(roots[np.abs(roots) > 1e-300])) / rational.h
+    parts = [rw]
+    for f in open_loop.factors:
+        parts.append(np.asarray(f.grid(), dtype=float))
+    bw = [w0 for w0, _ in boundary if w0 > 0]
+    parts.append(np.asarray(bw, dtype=float))
+    pool = np.concatenate(parts)
     if rational.delay:
         pool = np.append(pool, 1.0 / rational.delay)
     pool = pool[np.isfinite(pool) & (pool > 0)]
@@ -710,7 +750,8 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
             extras.append(RationalResponse(block))
     rational = RationalResponse(open_loop.rational, tuple(extras))
     notes: list[str] = []
-    lo_scale, hi_scale = _scale_hint(rational, open_loop)
+    boundary = open_loop.boundary_pole_frequencies()
+    lo_scale, hi_scale = _scale_hint(rational, open_loop, boundary)
     top = open_loop.w_max  # Nyquist, end of data, or inf
 
     def ev(w):
@@ -719,7 +760,7 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
             out = out * np.asarray(f.response(w), dtype=complex)
         return out
 
-    raw = _indentations(open_loop, rational, top)
+    raw = _indentations(open_loop, rational, top, boundary)
     bws = [r[0] for r in raw]
     indents: list[Indentation] = []
     for w0, order, position, cancelled in raw:
