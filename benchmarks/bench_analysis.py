@@ -17,7 +17,9 @@ discrete, with and without a delay (built here).
 
 Each checkout runs in its own subprocess (its ``ruleguard`` first on
 ``sys.path``); the rounds alternate baseline / now and the medians of the
-milliseconds per call are printed side by side with their ratio. The same
+CPU milliseconds per call (``time.process_time``: the machine is shared,
+and CPU time is less disturbed by the other processes than wall time) are
+printed side by side with their ratio. The same
 subprocesses return every result (``repr`` of each ``LoopAnalysis``); the
 last lines give the number of results that are not byte-identical and the
 largest relative change of any number in them.
@@ -121,10 +123,10 @@ def worker(folder: Path, rounds: int) -> None:
     times = {name: [] for name in sets}
     for _ in range(rounds):
         for name, loops in sets.items():
-            t0 = time.perf_counter()
+            t0 = time.process_time()  # CPU time: less disturbed by other processes
             for ol in loops:
                 analyse_open_loop(ol)
-            times[name].append((time.perf_counter() - t0) / len(loops))
+            times[name].append((time.process_time() - t0) / len(loops))
     json.dump({"times": times, "results": results, "sizes": {k: len(v) for k, v in sets.items()}},
               sys.stdout)
 
@@ -182,7 +184,7 @@ def main() -> None:
             for name, path in checkouts.items():  # alternating
                 runs[name].append(_run_worker(path, folder, args.rounds))
     sizes = runs["now"][0]["sizes"]
-    print("analyse_open_loop, ms per call (median of "
+    print("analyse_open_loop, CPU ms per call (median of "
           f"{args.repeats} x {args.rounds} rounds, alternating):")
     head = f"  {'set':<8} {'calls':>6}" + "".join(f" {k:>9}" for k in checkouts)
     print(head + ("    ratio" if len(checkouts) == 2 else ""))

@@ -116,8 +116,8 @@ class RationalResponse:
         off = ~block.on_boundary(self.zeros)
         self._bound_zeros = int(np.count_nonzero(off))
         self._bound_roots = np.concatenate([self.zeros[off], self.poles])
-        zl = [complex(z) for z in self.zeros]
-        pl = [complex(p) for p in self.poles]
+        zl = np.asarray(self.zeros, dtype=complex).tolist()
+        pl = np.asarray(self.poles, dtype=complex).tolist()
         #: (zero, pole) pairs, then the poles left over, in the order of the
         #: vectorized path (plain complex numbers for :meth:`value`)
         self._pairs = tuple(zip(zl, pl[:n], strict=True))
@@ -555,9 +555,11 @@ def _local_minima(values: np.ndarray) -> np.ndarray:
     n = v.size
     if n == 1:
         return np.array([0])
-    left = np.concatenate([[np.inf], v[:-1]])
-    right = np.concatenate([v[1:], [np.inf]])
-    idx = np.nonzero((v <= left) & (v <= right) & np.isfinite(v))[0]
+    # v <= both neighbours (an end has +inf beyond it), finite
+    ok = np.isfinite(v)
+    ok[1:] &= v[1:] <= v[:-1]
+    ok[:-1] &= v[:-1] <= v[1:]
+    idx = np.flatnonzero(ok)
     return idx[np.argsort(v[idx])]
 
 

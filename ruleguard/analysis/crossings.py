@@ -281,8 +281,13 @@ def negative_axis_crossings(contour: SampledContour) -> list[AxisCrossing]:
     return out
 
 
-def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | None:
-    """Lowest frequency (rad/s) where ``fun_vec(L)`` falls below ``level`` (bracketed, Brent)."""
+def first_fall_below(contour: SampledContour, fun_vec, level: float,
+                     fun_np_scalar=None) -> float | None:
+    """Lowest frequency (rad/s) where ``fun_vec(L)`` falls below ``level`` (bracketed, Brent).
+
+    ``fun_np_scalar``, when given, is ``fun_vec`` on one numpy complex scalar
+    (the same numbers as on a one-element array, without building one).
+    """
     for br in contour.branches:
         v = fun_vec(br.L)
         below = np.nonzero(v < level)[0]
@@ -291,9 +296,13 @@ def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | 
         j = int(below[0])
         if j == 0:
             return float(br.w[0])
-
-        def fs(x):
-            return float(fun_vec(np.array([contour.evaluate_scalar(x)]))[0]) - level
+        ev = contour.scalar_evaluator()
+        if fun_np_scalar is None:
+            def fs(x, ev=ev):
+                return float(fun_vec(np.array([ev(x)]))[0]) - level
+        else:
+            def fs(x, ev=ev):
+                return float(fun_np_scalar(np.complex128(ev(x)))) - level
 
         return _brent(fs, float(br.w[j - 1]), float(br.w[j]))
     return None
@@ -327,10 +336,12 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
         v = fun_vec(br.L)
         if v.size == 0:
             continue
-        left = np.concatenate([[-np.inf], v[:-1]])
-        right = np.concatenate([v[1:], [-np.inf]])
-        idx = np.nonzero((v >= left) & (v >= right) & np.isfinite(v))[0]
-        found += [(float(v[i]), bi, int(i)) for i in idx]
+        # v >= both neighbours (an end has -inf beyond it), finite
+        ok = np.isfinite(v)
+        ok[1:] &= v[1:] >= v[:-1]
+        ok[:-1] &= v[:-1] >= v[1:]
+        idx = np.flatnonzero(ok)
+        found += zip(v[idx].tolist(), [bi] * idx.size, idx.tolist(), strict=True)
     if not found:
         return -math.inf, math.nan
     found.sort(reverse=True)
@@ -363,16 +374,18 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
 def _bracket_bound(br, i: int, upper_bound) -> float:
     """Upper bound of the peaked function over ``[w_{i-1}, w_{i+1}]`` of branch ``br``."""
     worst = 0.0
+    lo = max(i - 1, 0)
+    Ls = br.L[lo:i + 2].tolist()  # plain complex numbers, from sample lo on
+    betas = br.bound[lo:i + 1].tolist()
     for k in (i - 1, i):  # the steps [k, k + 1] on either side of sample i
         if k < 0 or k + 1 >= br.w.size:
             continue
-        beta = float(br.bound[k])
+        beta = betas[k - lo]
         if not math.isfinite(beta) or beta > 50.0:
             return math.inf
         grow = math.expm1(beta)
         step = math.inf
-        for e in (k, k + 1):  # the step bound holds from either end point
-            L_e = complex(br.L[e])
+        for L_e in (Ls[k - lo], Ls[k + 1 - lo]):  # the step bound holds from either end
             if not (math.isfinite(L_e.real) and math.isfinite(L_e.imag)):
                 continue
             step = min(step, upper_bound(L_e, grow * abs(L_e)))
