@@ -663,8 +663,8 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
     lo = max(a, lo_scale)
     if b > lo > 0:
         n = max(int(8 * math.log10(b / lo)) + 2, 2)
-        pts.append(np.geomspace(lo, b, n))
-    offsets = np.array([-10, -3, -1, -0.3, 0.0, 0.3, 1, 3, 10])
+        pts.append(_geometric(lo, b, n))
+    offsets = _SEED_OFFSETS
     for part in (rational, *rational.extras):
         r = part.roots
         if not r.size:
@@ -681,7 +681,49 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
         pts.append(np.asarray(f.grid(), dtype=float))
     w = np.concatenate(pts)
     w = w[np.isfinite(w) & (w >= a) & (w <= b)]
-    return np.unique(w)
+    return _sorted_unique(w)
+
+
+#: Seeds around each root, in units of its distance to the contour.
+_SEED_OFFSETS = np.array([-10, -3, -1, -0.3, 0.0, 0.3, 1, 3, 10])
+
+
+def _geometric(lo: float, hi: float, n: int) -> np.ndarray:
+    """``np.geomspace(lo, hi, n)`` for ``0 < lo < hi`` and ``n >= 2``, the same numbers.
+
+    numpy's own steps (``linspace`` of the base-10 logarithms, ``10 ** y``,
+    the end points set exactly), without its general argument handling (sign
+    rotation, complex and array inputs), which costs more than the
+    arithmetic here.
+    """
+    log_lo = np.log10(np.float64(lo))
+    log_hi = np.log10(np.float64(hi))
+    delta = log_hi - log_lo
+    div = n - 1
+    y = np.arange(0, n, dtype=float)
+    step = delta / div
+    if step == 0:
+        y /= div
+        y *= delta
+    else:
+        y *= step
+    y += log_lo
+    y[-1] = log_hi
+    out = np.power(10.0, y)
+    out[0] = lo
+    out[-1] = hi
+    return out
+
+
+def _sorted_unique(w: np.ndarray) -> np.ndarray:
+    """``np.unique(w)`` for a 1-d float array without NaN: sorted, repeats dropped."""
+    w = np.sort(w)
+    if w.size < 2:
+        return w
+    keep = np.empty(w.size, dtype=bool)
+    keep[0] = True
+    np.not_equal(w[1:], w[:-1], out=keep[1:])
+    return w[keep]
 
 
 def _halves_bound(rational: RationalResponse, a: np.ndarray, mid: np.ndarray,
