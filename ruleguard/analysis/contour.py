@@ -74,6 +74,8 @@ DELAY_TAIL_LEVEL = 1e-2
 #: Zeros closer than this (relative) to a boundary pole cancel it.
 CANCEL_RTOL = 1e-8
 _MAX_PASSES = 80
+_add_reduce = np.add.reduce
+_mul_reduce = np.multiply.reduce
 #: Samples per branch beyond which no further bisection is done (a curve that
 #: runs along a point, e.g. L = -1 identically, would otherwise never stop).
 _MAX_SAMPLES = 60_000
@@ -139,13 +141,12 @@ class RationalResponse:
         """``R(j w)`` or ``R(exp(j w h))`` for an array of frequencies (rad/s)."""
         x = self.variable(w)
         out = np.full(x.shape, self.gain, dtype=complex)
+        xc = x[..., None]
         with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
-            if self._pz.size:
-                out = out * np.prod(
-                    (x[..., None] - self._pz) / (x[..., None] - self._pp), axis=-1
-                )
+            if self._pz.size:  # np.prod is this reduction
+                out = out * _mul_reduce((xc - self._pz) / (xc - self._pp), axis=-1)
             if self._extra.size:
-                out = out / np.prod(x[..., None] - self._extra, axis=-1)
+                out = out / _mul_reduce(xc - self._extra, axis=-1)
             if self.delay:
                 out = out * np.exp(-x * self.delay)
         return out
@@ -180,7 +181,8 @@ class RationalResponse:
         with np.errstate(divide="ignore", invalid="ignore"):
             inv = 1.0 / diff
             nz = self._bound_zeros
-            s1 = inv[:, :nz].sum(axis=1) - inv[:, nz:].sum(axis=1)
+            # ndarray.sum is this reduction
+            s1 = _add_reduce(inv[:, :nz], axis=1) - _add_reduce(inv[:, nz:], axis=1)
             if self.h is None:
                 reach = half
                 d1 = np.abs(s1 - self.delay)
@@ -193,7 +195,7 @@ class RationalResponse:
             dist = np.abs(diff) - reach[:, None]
             ok = dist > 0
             if ok.all():  # the usual case: the same sums without the masking
-                s2 = (1.0 / dist**2 + 1.0 / dist).sum(1)
+                s2 = _add_reduce(1.0 / dist**2 + 1.0 / dist, axis=1)
             else:
                 safe = np.where(ok, dist, 1.0)
                 s2 = np.where(ok, 1.0 / safe**2 + 1.0 / safe, np.inf).sum(1)
