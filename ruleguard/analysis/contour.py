@@ -74,6 +74,8 @@ DELAY_TAIL_LEVEL = 1e-2
 #: Zeros closer than this (relative) to a boundary pole cancel it.
 CANCEL_RTOL = 1e-8
 _MAX_PASSES = 80
+_add_reduce = np.add.reduce
+_mul_reduce = np.multiply.reduce
 #: Samples per branch beyond which no further bisection is done (a curve that
 #: runs along a point, e.g. L = -1 identically, would otherwise never stop).
 _MAX_SAMPLES = 60_000
@@ -116,12 +118,16 @@ class RationalResponse:
         off = ~block.on_boundary(self.zeros)
         self._bound_zeros = int(np.count_nonzero(off))
         self._bound_roots = np.concatenate([self.zeros[off], self.poles])
-        zl = [complex(z) for z in self.zeros]
-        pl = [complex(p) for p in self.poles]
+        zl = np.asarray(self.zeros, dtype=complex).tolist()
+        pl = np.asarray(self.poles, dtype=complex).tolist()
         #: (zero, pole) pairs, then the poles left over, in the order of the
         #: vectorized path (plain complex numbers for :meth:`value`)
         self._pairs = tuple(zip(zl, pl[:n], strict=True))
         self._lone = tuple(pl[n:])
+        #: the function :meth:`value` (constants bound as locals: it runs in
+        #: every step of the root finders and minimisers)
+        self.scalar = _scalar_function(self._pairs, self._lone, complex(self.gain), self.h,
+                                       self.delay)
 
     @property
     def relative_degree(self) -> int:
@@ -135,31 +141,19 @@ class RationalResponse:
         """``R(j w)`` or ``R(exp(j w h))`` for an array of frequencies (rad/s)."""
         x = self.variable(w)
         out = np.full(x.shape, self.gain, dtype=complex)
+        xc = x[..., None]
         with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
-            if self._pz.size:
-                out = out * np.prod(
-                    (x[..., None] - self._pz) / (x[..., None] - self._pp), axis=-1
-                )
+            if self._pz.size:  # np.prod is this reduction
+                out = out * _mul_reduce((xc - self._pz) / (xc - self._pp), axis=-1)
             if self._extra.size:
-                out = out / np.prod(x[..., None] - self._extra, axis=-1)
+                out = out / _mul_reduce(xc - self._extra, axis=-1)
             if self.delay:
                 out = out * np.exp(-x * self.delay)
         return out
 
     def value(self, w: float) -> complex:
         """Scalar evaluation in plain complex arithmetic (root finders)."""
-        x = 1j * w if self.h is None else cmath.exp(1j * w * self.h)
-        out = complex(self.gain)
-        try:
-            for z, p in self._pairs:
-                out *= (x - z) / (x - p)
-            for p in self._lone:
-                out /= x - p
-        except ZeroDivisionError:
-            return complex(math.inf, 0.0)
-        if self.delay:
-            out *= cmath.exp(-x * self.delay)
-        return out
+        return self.scalar(w)
 
     def step_bound(self, wa: np.ndarray, wb: np.ndarray) -> np.ndarray:
         """Upper bound on ``|log R(wb) - log R(wa)|`` for each step ``[wa, wb]``.
@@ -187,7 +181,8 @@ class RationalResponse:
         with np.errstate(divide="ignore", invalid="ignore"):
             inv = 1.0 / diff
             nz = self._bound_zeros
-            s1 = inv[:, :nz].sum(axis=1) - inv[:, nz:].sum(axis=1)
+            # ndarray.sum is this reduction
+            s1 = _add_reduce(inv[:, :nz], axis=1) - _add_reduce(inv[:, nz:], axis=1)
             if self.h is None:
                 reach = half
                 d1 = np.abs(s1 - self.delay)
@@ -199,9 +194,38 @@ class RationalResponse:
             d1 = h * np.abs(s1)
             dist = np.abs(diff) - reach[:, None]
             ok = dist > 0
-            safe = np.where(ok, dist, 1.0)
-            s2 = np.where(ok, 1.0 / safe**2 + 1.0 / safe, np.inf).sum(1)
+            if ok.all():  # the usual case: the same sums without the masking
+                s2 = _add_reduce(1.0 / dist**2 + 1.0 / dist, axis=1)
+            else:
+                safe = np.where(ok, dist, 1.0)
+                s2 = np.where(ok, 1.0 / safe**2 + 1.0 / safe, np.inf).sum(1)
             return 2 * half * (d1 + half * h * h * s2)
+
+
+def _scalar_function(pairs: tuple, lone: tuple, gain: complex, h: float | None, delay: float):
+    """``w -> R(j w)`` or ``R(exp(j w h))`` for one float ``w``, in plain complex arithmetic.
+
+    The gain times each (zero, pole) ratio, then divided by each pole left
+    over, left to right, times ``exp(-x delay)``; ``inf`` when ``x`` is a pole.
+    """
+    exp = cmath.exp
+    inf = complex(math.inf, 0.0)
+
+    def scalar(w: float) -> complex:
+        x = 1j * w if h is None else exp(1j * w * h)
+        out = gain
+        try:
+            for z, p in pairs:
+                out *= (x - z) / (x - p)
+            for p in lone:
+                out /= x - p
+        except ZeroDivisionError:
+            return inf
+        if delay:
+            out *= exp(-x * delay)
+        return out
+
+    return scalar
 
 
 # --------------------------------------------------------------------------- records
@@ -269,8 +293,19 @@ class SampledContour:
 
     def evaluate_scalar(self, w: float) -> complex:
         if not self.open_loop.factors:
-            return self.rational.value(float(w))
+            return self.rational.scalar(float(w))
         return complex(self.evaluate(np.array([float(w)]))[0])
+
+    def scalar_evaluator(self):
+        """The function ``w -> L(w)`` (a float to a complex) that :meth:`evaluate_scalar` is.
+
+        Without factors it is the rational part's plain-arithmetic
+        :meth:`RationalResponse.value` itself (the same numbers, one call less
+        per evaluation in the root finders and minimisers).
+        """
+        if not self.open_loop.factors:
+            return self.rational.scalar
+        return self.evaluate_scalar
 
     @property
     def w(self) -> np.ndarray:
@@ -298,38 +333,41 @@ class SampledContour:
         mids = 0.5 * (br.w[idx] + br.w[idx + 1])
         Lm = self.evaluate(mids)
         left, right = _halves_bound(self.rational, br.w[idx], mids, br.w[idx + 1])
-        w = np.insert(br.w, idx + 1, mids)
-        L = np.insert(br.L, idx + 1, Lm)
+        w = _insert_after(br.w, idx, mids)
+        L = _insert_after(br.L, idx, Lm)
         bound = br.bound.copy()
         bound[idx] = left
-        bound = np.insert(bound, idx + 1, right)
+        bound = _insert_after(bound, idx, right)
         self.branches[bi] = Branch(w, L, bound)
 
     def refine_for_point(self, point: complex) -> None:
         """Bisect until the winding about ``point`` is certain between samples."""
         p = complex(point)
-        for bi in range(len(self.branches)):
-            for _ in range(_MAX_PASSES):
-                br = self.branches[bi]
-                if br.w.size < 2:
-                    break
-                d = br.L - p
-                ad = np.abs(d)
-                a0, a1 = ad[:-1], ad[1:]
-                L0 = np.abs(br.L[:-1])
-                with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        factors = bool(self.open_loop.factors)
+        with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+            for bi in range(len(self.branches)):
+                for _ in range(_MAX_PASSES):
+                    br = self.branches[bi]
+                    if br.w.size < 2:
+                        break
+                    d = br.L - p
+                    ad = np.abs(d)
+                    a0, a1 = ad[:-1], ad[1:]
+                    L0 = np.abs(br.L[:-1])
                     reach = np.expm1(np.minimum(br.bound, 50.0)) * L0
                     ang = np.abs(np.angle(d[1:] / d[:-1]))
-                    dlog = np.abs(np.log(np.abs(br.L[1:]) / np.maximum(L0, 1e-300)))
-                split = (reach >= 0.8 * np.minimum(a0, a1)) | (ang > ANGLE_BOUND)
-                if self.open_loop.factors:
-                    big = np.maximum(np.abs(br.L[1:]), L0) > _SMALL_L
-                    split |= (dlog > STEP_BOUND) & big
-                width = np.diff(br.w)
-                split &= width > _WIDTH_FLOOR * np.maximum(br.w[1:], 1.0)
-                if not split.any() or br.w.size + np.count_nonzero(split) > _MAX_SAMPLES:
-                    break
-                self._insert(bi, split)
+                    split = (reach >= 0.8 * np.minimum(a0, a1)) | (ang > ANGLE_BOUND)
+                    if factors:
+                        L1 = np.abs(br.L[1:])
+                        dlog = np.abs(np.log(L1 / np.maximum(L0, 1e-300)))
+                        big = np.maximum(L1, L0) > _SMALL_L
+                        split |= (dlog > STEP_BOUND) & big
+                    w = br.w
+                    split &= (w[1:] - w[:-1]) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0)
+                    n_new = np.count_nonzero(split)
+                    if not n_new or w.size + n_new > _MAX_SAMPLES:
+                        break
+                    self._insert(bi, split)
 
     def insert_points(self, bi: int, w_new: np.ndarray) -> None:
         """Add samples at ``w_new`` (inside branch ``bi``) and update the step bounds."""
@@ -399,7 +437,8 @@ class SampledContour:
                 if prune and _bracket_floor(br, int(i), d) * (1.0 - 1e-9) > threshold:
                     hi = lo  # provably farther than the threshold: not refined
                 if hi > lo:
-                    wv2, val2 = _minimize(lambda x: abs(self.evaluate_scalar(x) - p), lo, hi)
+                    ev = self.scalar_evaluator()
+                    wv2, val2 = _minimize(lambda x, ev=ev: abs(ev(x) - p), lo, hi)
                     if val2 < val:
                         val, wv = val2, wv2
                 if val < best:
@@ -518,9 +557,11 @@ def _local_minima(values: np.ndarray) -> np.ndarray:
     n = v.size
     if n == 1:
         return np.array([0])
-    left = np.concatenate([[np.inf], v[:-1]])
-    right = np.concatenate([v[1:], [np.inf]])
-    idx = np.nonzero((v <= left) & (v <= right) & np.isfinite(v))[0]
+    # v <= both neighbours (an end has +inf beyond it), finite
+    ok = np.isfinite(v)
+    ok[1:] &= v[1:] <= v[:-1]
+    ok[:-1] &= v[:-1] <= v[1:]
+    idx = np.flatnonzero(ok)
     return idx[np.argsort(v[idx])]
 
 
@@ -538,10 +579,12 @@ def _boundary_location(rational: RationalResponse, w0: float) -> complex:
     return cmath.exp(1j * w0 * rational.h)
 
 
-def _indentations(open_loop: OpenLoop, rational: RationalResponse, top: float):
-    """Boundary poles as indentations with their net order (cancelling zeros removed)."""
+def _indentations(open_loop: OpenLoop, rational: RationalResponse, top: float,
+                  boundary: list[tuple[float, int]]):
+    """Boundary poles (``boundary``: ``OpenLoop.boundary_pole_frequencies()``) as
+    indentations with their net order (cancelling zeros removed)."""
     out = []
-    for w0, m in open_loop.boundary_pole_frequencies():
+    for w0, m in boundary:
         loc = _boundary_location(rational, w0)
         tol = CANCEL_RTOL * max(1.0, abs(loc))
         ncancel = int(np.count_nonzero(np.abs(rational.zeros - loc) <= tol))
@@ -558,10 +601,26 @@ def _indentations(open_loop: OpenLoop, rational: RationalResponse, top: float):
     return out
 
 
-def _scale_hint(rational: RationalResponse, open_loop: OpenLoop) -> tuple[float, float]:
-    corners = open_loop.corner_frequencies()
-    bw = [w0 for w0, _ in open_loop.boundary_pole_frequencies() if w0 > 0]
-    pool = np.concatenate([corners, np.asarray(bw, dtype=float)])
+def _scale_hint(rational: RationalResponse, open_loop: OpenLoop,
+                boundary: list[tuple[float, int]]) -> tuple[float, float]:
+    """Smallest and largest characteristic frequency of the loop (rad/s).
+
+    Those of ``OpenLoop.corner_frequencies()`` (the same values: ``|s|`` of
+    every finite nonzero root, ``|log z| / h`` in a discrete loop, the
+    factors' grids), of the boundary poles and of a delay; only their extremes
+    are needed, so they are neither sorted nor made unique.
+    """
+    roots = rational.roots
+    if rational.h is None:
+        rw = np.abs(roots)
+    else:
+        rw = np.abs(np.log(roots[np.abs(roots) > 1e-300])) / rational.h
+    parts = [rw]
+    for f in open_loop.factors:
+        parts.append(np.asarray(f.grid(), dtype=float))
+    bw = [w0 for w0, _ in boundary if w0 > 0]
+    parts.append(np.asarray(bw, dtype=float))
+    pool = np.concatenate(parts)
     if rational.delay:
         pool = np.append(pool, 1.0 / rational.delay)
     pool = pool[np.isfinite(pool) & (pool > 0)]
@@ -606,8 +665,8 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
     lo = max(a, lo_scale)
     if b > lo > 0:
         n = max(int(8 * math.log10(b / lo)) + 2, 2)
-        pts.append(np.geomspace(lo, b, n))
-    offsets = np.array([-10, -3, -1, -0.3, 0.0, 0.3, 1, 3, 10])
+        pts.append(_geometric(lo, b, n))
+    offsets = _SEED_OFFSETS
     for part in (rational, *rational.extras):
         r = part.roots
         if not r.size:
@@ -624,7 +683,49 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
         pts.append(np.asarray(f.grid(), dtype=float))
     w = np.concatenate(pts)
     w = w[np.isfinite(w) & (w >= a) & (w <= b)]
-    return np.unique(w)
+    return _sorted_unique(w)
+
+
+#: Seeds around each root, in units of its distance to the contour.
+_SEED_OFFSETS = np.array([-10, -3, -1, -0.3, 0.0, 0.3, 1, 3, 10])
+
+
+def _geometric(lo: float, hi: float, n: int) -> np.ndarray:
+    """``np.geomspace(lo, hi, n)`` for ``0 < lo < hi`` and ``n >= 2``, the same numbers.
+
+    numpy's own steps (``linspace`` of the base-10 logarithms, ``10 ** y``,
+    the end points set exactly), without its general argument handling (sign
+    rotation, complex and array inputs), which costs more than the
+    arithmetic here.
+    """
+    log_lo = np.log10(np.float64(lo))
+    log_hi = np.log10(np.float64(hi))
+    delta = log_hi - log_lo
+    div = n - 1
+    y = np.arange(0, n, dtype=float)
+    step = delta / div
+    if step == 0:
+        y /= div
+        y *= delta
+    else:
+        y *= step
+    y += log_lo
+    y[-1] = log_hi
+    out = np.power(10.0, y)
+    out[0] = lo
+    out[-1] = hi
+    return out
+
+
+def _sorted_unique(w: np.ndarray) -> np.ndarray:
+    """``np.unique(w)`` for a 1-d float array without NaN: sorted, repeats dropped."""
+    w = np.sort(w)
+    if w.size < 2:
+        return w
+    keep = np.empty(w.size, dtype=bool)
+    keep[0] = True
+    np.not_equal(w[1:], w[:-1], out=keep[1:])
+    return w[keep]
 
 
 def _halves_bound(rational: RationalResponse, a: np.ndarray, mid: np.ndarray,
@@ -639,16 +740,32 @@ def _refine_rational(rational: RationalResponse, w: np.ndarray) -> tuple[np.ndar
     w = np.asarray(w, dtype=float)
     bound = rational.step_bound(w[:-1], w[1:])
     for _ in range(_MAX_PASSES):
-        split = (bound > STEP_BOUND) & (np.diff(w) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0))
-        if not split.any() or w.size + np.count_nonzero(split) > _MAX_SAMPLES:
+        split = (bound > STEP_BOUND) & ((w[1:] - w[:-1]) > _WIDTH_FLOOR * np.maximum(w[1:], 1.0))
+        idx = np.flatnonzero(split)
+        if idx.size == 0 or w.size + idx.size > _MAX_SAMPLES:
             break
-        idx = np.nonzero(split)[0]
-        mids = 0.5 * (w[idx] + w[idx + 1])
-        left, right = _halves_bound(rational, w[idx], mids, w[idx + 1])
-        w = np.insert(w, idx + 1, mids)
+        wa, wb = w[idx], w[idx + 1]
+        mids = 0.5 * (wa + wb)
+        left, right = _halves_bound(rational, wa, mids, wb)
+        w = _insert_after(w, idx, mids)
         bound[idx] = left
-        bound = np.insert(bound, idx + 1, right)
+        bound = _insert_after(bound, idx, right)
     return w, bound
+
+
+def _insert_after(a: np.ndarray, idx: np.ndarray, new: np.ndarray) -> np.ndarray:
+    """``a`` with ``new[k]`` placed right after ``a[idx[k]]`` (``idx`` increasing, distinct).
+
+    What ``np.insert(a, idx + 1, new)`` gives, without its general-purpose
+    argument handling (it runs once per bisection pass).
+    """
+    out = np.empty(a.size + idx.size, dtype=a.dtype)
+    pos = idx + np.arange(1, idx.size + 1)
+    keep = np.ones(out.size, dtype=bool)
+    keep[pos] = False
+    out[pos] = new
+    out[keep] = a
+    return out
 
 
 def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> SampledContour:
@@ -679,7 +796,8 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
             extras.append(RationalResponse(block))
     rational = RationalResponse(open_loop.rational, tuple(extras))
     notes: list[str] = []
-    lo_scale, hi_scale = _scale_hint(rational, open_loop)
+    boundary = open_loop.boundary_pole_frequencies()
+    lo_scale, hi_scale = _scale_hint(rational, open_loop, boundary)
     top = open_loop.w_max  # Nyquist, end of data, or inf
 
     def ev(w):
@@ -688,7 +806,7 @@ def sample_contour(open_loop: OpenLoop, tail_level: float | None = None) -> Samp
             out = out * np.asarray(f.response(w), dtype=complex)
         return out
 
-    raw = _indentations(open_loop, rational, top)
+    raw = _indentations(open_loop, rational, top, boundary)
     bws = [r[0] for r in raw]
     indents: list[Indentation] = []
     for w0, order, position, cancelled in raw:

@@ -103,11 +103,12 @@ def refine_tangencies(contour: SampledContour, kind: str) -> None:
             near &= br.L[1:-1].real < 0
         cand = np.nonzero((ext_max | ext_min) & near)[0] + 1
         new = []
+        gs = _gscalar(contour, kind)
         for i in cand[:64]:
             sign = 1.0 if g[i] >= 0 else -1.0
 
-            def fun(x, sign=sign):
-                return sign * float(_gvalues(np.array([contour.evaluate_scalar(x)]), kind)[0])
+            def fun(x, sign=sign, gs=gs):
+                return sign * gs(x)
 
             wx, val = _minimize(fun, float(br.w[i - 1]), float(br.w[i + 1]))
             if val < 0:
@@ -123,6 +124,41 @@ def _gvalues(L: np.ndarray, kind: str) -> np.ndarray:
         return L.imag / np.abs(L)
 
 
+def _gscalar(contour: SampledContour, kind: str) -> Callable[[float], float]:
+    """``w -> _gvalues(L(w), kind)`` for one frequency, as a float.
+
+    The same numbers as ``_gvalues`` on a one-element array: numpy's ``abs``
+    and ``log`` on numpy scalars run the same loops as on arrays (and differ
+    from ``math.log`` / Python's ``abs`` in the last bit now and then, so
+    those are not used); the special values ``log 0 = -inf`` and ``0 / 0 =
+    nan`` are set here without numpy's warning machinery.
+    """
+    ev = contour.scalar_evaluator()
+    if contour.open_loop.factors:
+        def vector_g(x: float) -> float:
+            return float(_gvalues(np.array([ev(x)]), kind)[0])
+
+        return vector_g
+    npabs, nplog, c128 = np.abs, np.log, np.complex128
+    if kind == "unit":
+        def unit_g(x: float) -> float:
+            a = npabs(c128(ev(x)))
+            if a == 0.0:
+                return -math.inf
+            return float(nplog(a))
+
+        return unit_g
+
+    def axis_g(x: float) -> float:
+        L = ev(x)
+        a = npabs(c128(L))
+        if a == 0.0 or a != a:
+            return math.nan
+        return float(L.imag / a)
+
+    return axis_g
+
+
 def _refine_roots(contour: SampledContour, kind: str, a: np.ndarray, b: np.ndarray,
                   ga: np.ndarray, gb: np.ndarray) -> np.ndarray:
     if a.size == 0:
@@ -135,9 +171,7 @@ def _refine_roots(contour: SampledContour, kind: str, a: np.ndarray, b: np.ndarr
         # vectorized: many roots, or a response whose per-call cost is high
         return _illinois(fvec, a, b, ga, gb)
 
-    def fs(x):
-        return float(_gvalues(np.array([contour.evaluate_scalar(x)]), kind)[0])
-
+    fs = _gscalar(contour, kind)
     return np.array([_brent(fs, float(x), float(y)) for x, y in zip(a, b, strict=False)])
 
 
@@ -247,8 +281,13 @@ def negative_axis_crossings(contour: SampledContour) -> list[AxisCrossing]:
     return out
 
 
-def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | None:
-    """Lowest frequency (rad/s) where ``fun_vec(L)`` falls below ``level`` (bracketed, Brent)."""
+def first_fall_below(contour: SampledContour, fun_vec, level: float,
+                     fun_np_scalar=None) -> float | None:
+    """Lowest frequency (rad/s) where ``fun_vec(L)`` falls below ``level`` (bracketed, Brent).
+
+    ``fun_np_scalar``, when given, is ``fun_vec`` on one numpy complex scalar
+    (the same numbers as on a one-element array, without building one).
+    """
     for br in contour.branches:
         v = fun_vec(br.L)
         below = np.nonzero(v < level)[0]
@@ -257,9 +296,13 @@ def first_fall_below(contour: SampledContour, fun_vec, level: float) -> float | 
         j = int(below[0])
         if j == 0:
             return float(br.w[0])
-
-        def fs(x):
-            return float(fun_vec(np.array([contour.evaluate_scalar(x)]))[0]) - level
+        ev = contour.scalar_evaluator()
+        if fun_np_scalar is None:
+            def fs(x, ev=ev):
+                return float(fun_vec(np.array([ev(x)]))[0]) - level
+        else:
+            def fs(x, ev=ev):
+                return float(fun_np_scalar(np.complex128(ev(x)))) - level
 
         return _brent(fs, float(br.w[j - 1]), float(br.w[j]))
     return None
@@ -293,10 +336,12 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
         v = fun_vec(br.L)
         if v.size == 0:
             continue
-        left = np.concatenate([[-np.inf], v[:-1]])
-        right = np.concatenate([v[1:], [-np.inf]])
-        idx = np.nonzero((v >= left) & (v >= right) & np.isfinite(v))[0]
-        found += [(float(v[i]), bi, int(i)) for i in idx]
+        # v >= both neighbours (an end has -inf beyond it), finite
+        ok = np.isfinite(v)
+        ok[1:] &= v[1:] >= v[:-1]
+        ok[:-1] &= v[:-1] >= v[1:]
+        idx = np.flatnonzero(ok)
+        found += zip(v[idx].tolist(), [bi] * idx.size, idx.tolist(), strict=True)
     if not found:
         return -math.inf, math.nan
     found.sort(reverse=True)
@@ -313,8 +358,10 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
                 and _bracket_bound(br, i, upper_bound) * (1.0 + 1e-9) < best):
             continue  # cannot beat the best one (see the docstring)
         if hi > lo:
-            def neg(x):
-                return -fun_scalar(contour.evaluate_scalar(x))
+            ev = contour.scalar_evaluator()
+
+            def neg(x, ev=ev):
+                return -fun_scalar(ev(x))
 
             wx, nv = _minimize(neg, float(lo), float(hi))
             if -nv > val:
@@ -327,16 +374,18 @@ def peak(contour: SampledContour, fun_vec, fun_scalar=None,
 def _bracket_bound(br, i: int, upper_bound) -> float:
     """Upper bound of the peaked function over ``[w_{i-1}, w_{i+1}]`` of branch ``br``."""
     worst = 0.0
+    lo = max(i - 1, 0)
+    Ls = br.L[lo:i + 2].tolist()  # plain complex numbers, from sample lo on
+    betas = br.bound[lo:i + 1].tolist()
     for k in (i - 1, i):  # the steps [k, k + 1] on either side of sample i
         if k < 0 or k + 1 >= br.w.size:
             continue
-        beta = float(br.bound[k])
+        beta = betas[k - lo]
         if not math.isfinite(beta) or beta > 50.0:
             return math.inf
         grow = math.expm1(beta)
         step = math.inf
-        for e in (k, k + 1):  # the step bound holds from either end point
-            L_e = complex(br.L[e])
+        for L_e in (Ls[k - lo], Ls[k + 1 - lo]):  # the step bound holds from either end
             if not (math.isfinite(L_e.real) and math.isfinite(L_e.imag)):
                 continue
             step = min(step, upper_bound(L_e, grow * abs(L_e)))

@@ -307,6 +307,16 @@ def _abs_t(L: np.ndarray) -> np.ndarray:
         return np.abs(L) / np.abs(1.0 + L)
 
 
+def _abs_t_np_scalar(L: np.complex128) -> float:
+    """``_abs_t`` of one numpy complex scalar: the same numbers (numpy's ``abs``), no warning."""
+    d = np.abs(1.0 + L)
+    if d == 0.0:  # L = -1
+        return math.inf
+    if d == math.inf:  # L infinite: inf / inf
+        return math.nan
+    return np.abs(L) / d
+
+
 def _abs_s_half(L: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.abs(1.0 - L) / (2.0 * np.abs(1.0 + L))
@@ -373,7 +383,7 @@ def _bandwidth(contour: SampledContour) -> float | None:
     if not (t0 > 0 and math.isfinite(t0)):
         return None
     level = t0 * 10.0 ** (-BANDWIDTH_DROP_DB / 20.0)
-    return first_fall_below(contour, _abs_t, level)
+    return first_fall_below(contour, _abs_t, level, _abs_t_np_scalar)
 
 
 def disk_margin(alpha: float, hz: float | None) -> DiskMargin:

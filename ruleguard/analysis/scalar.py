@@ -51,6 +51,10 @@ def brent_root(
         raise ValueError("brent_root: f(a) and f(b) must have opposite signs")
     c, fc = a, fa
     d = e = b - a
+    # the products below are evaluated left to right, so ``2.0 * rtol * |b|``
+    # is ``(2.0 * rtol) * |b|``: the constants are formed once
+    two_rtol = 2.0 * rtol
+    half_xtol = 0.5 * xtol
     for _ in range(maxiter):
         if (fb > 0) == (fc > 0):
             c, fc = a, fa
@@ -58,7 +62,7 @@ def brent_root(
         if abs(fc) < abs(fb):
             a, b, c = b, c, b
             fa, fb, fc = fb, fc, fb
-        tol = 2.0 * rtol * abs(b) + 0.5 * xtol
+        tol = two_rtol * abs(b) + half_xtol
         m = 0.5 * (c - b)
         if abs(m) <= tol or fb == 0.0:
             return float(b)
@@ -78,7 +82,9 @@ def brent_root(
                 q = -q
             else:
                 p = -p
-            if 2.0 * p < min(3.0 * m * q - abs(tol * q), abs(e * q)):
+            bound = 3.0 * m * q - abs(tol * q)
+            eq = abs(e * q)
+            if 2.0 * p < (eq if eq < bound else bound):  # min(bound, eq), exactly
                 e = d
                 d = p / q
             else:
@@ -110,9 +116,10 @@ def brent_minimize(
     x = w = v = a + golden * (b - a)
     fx = fw = fv = float(fun(x))
     d = e = 0.0
+    third_xatol = xatol / 3.0
     for _ in range(maxiter):
         xm = 0.5 * (a + b)
-        tol1 = sqrt_eps * abs(x) + xatol / 3.0
+        tol1 = sqrt_eps * abs(x) + third_xatol
         tol2 = 2.0 * tol1
         if abs(x - xm) <= tol2 - 0.5 * (b - a):
             break
