@@ -17,6 +17,8 @@ Conventions
 
 from __future__ import annotations
 
+import cmath
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -33,10 +35,19 @@ _BROADCAST_LIMIT = 4096
 
 
 def _as_complex_vector(values, name: str) -> np.ndarray:
-    arr = np.asarray(values, dtype=complex).reshape(-1)
-    if not np.all(np.isfinite(arr)):
+    if type(values) is np.ndarray and values.dtype == _COMPLEX and values.ndim == 1:
+        arr = values  # what asarray/reshape would give (a view of the same data)
+    else:
+        arr = np.asarray(values, dtype=complex).reshape(-1)
+    # a few roots: Python's test per element is cheaper than two numpy calls
+    finite = (all(map(cmath.isfinite, arr.tolist())) if arr.size <= 32
+              else bool(np.isfinite(arr).all()))
+    if not finite:
         raise ValueError(f"{name} must be finite, got {arr!r}")
     return arr
+
+
+_COMPLEX = np.dtype(complex)
 
 
 @dataclass(frozen=True, eq=False)
@@ -62,18 +73,21 @@ class Factored:
     sample_time_s: float | None = None
 
     def __post_init__(self) -> None:
-        object.__setattr__(self, "zeros", _as_complex_vector(self.zeros, "zeros"))
-        object.__setattr__(self, "poles", _as_complex_vector(self.poles, "poles"))
-        object.__setattr__(self, "gain", float(self.gain))
-        object.__setattr__(self, "delay_s", float(self.delay_s))
+        put = object.__setattr__
+        put(self, "zeros", _as_complex_vector(self.zeros, "zeros"))
+        put(self, "poles", _as_complex_vector(self.poles, "poles"))
+        gain = float(self.gain)
+        delay = float(self.delay_s)
+        put(self, "gain", gain)
+        put(self, "delay_s", delay)
         if self.sample_time_s is not None:
             h = float(self.sample_time_s)
             if not h > 0.0:
                 raise ValueError(f"sample_time_s must be positive, got {h}")
-            object.__setattr__(self, "sample_time_s", h)
-            if self.delay_s != 0.0:
+            put(self, "sample_time_s", h)
+            if delay != 0.0:
                 raise ValueError("a z-plane block carries delays as poles at z = 0, not delay_s")
-        if not np.isfinite(self.gain) or not np.isfinite(self.delay_s) or self.delay_s < 0:
+        if not math.isfinite(gain) or not math.isfinite(delay) or delay < 0:
             raise ValueError("gain and delay_s must be finite, delay_s >= 0")
 
     # ------------------------------------------------------------------ basics
