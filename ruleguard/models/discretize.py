@@ -580,8 +580,6 @@ def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) ->
     R. H. Middleton, G. C. Goodwin, Digital Control and Estimation: A Unified
     Approach, Prentice Hall, 1990 (the delta operator).
     """
-    from ruleguard.models.matrices import balance_scaling, siso_zeros
-
     n = dss.order
     if n == 0:
         return np.zeros(0, complex)
@@ -592,12 +590,20 @@ def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) ->
     pencil[:n, n:] = dss.b / h
     pencil[n:, :n] = dss.c
     pencil[n, n] = dss.d[0, 0]
+    if pole_radius is None:
+        pole_radius = float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
+    return _delta_pencil_zeros(pencil, h, pole_radius)
+
+
+def _delta_pencil_zeros(pencil: np.ndarray, h: float, pole_radius: float) -> np.ndarray:
+    """The discrete zeros ``1 + h delta`` from the delta-form pencil (see :func:`discrete_zeros`)."""
+    from ruleguard.models.matrices import balance_scaling, siso_zeros
+
+    n = pencil.shape[0] - 1
     # a diagonal similarity leaves E = diag(I, 0) as it is: balance the
     # pencil (Parlett-Reinsch) so that fast and slow modes have like scales
     t = balance_scaling(pencil)
     pencil = pencil * t[None, :] / t[:, None]
-    if pole_radius is None:
-        pole_radius = float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
     radius = 1.0 / h + pole_radius
     gev = siso_zeros(pencil[:n, :n], pencil[:n, n], pencil[n, :n], pencil[n, n], radius)
     if gev is None:  # a delicate feedthrough or a zero block: the QZ algorithm
@@ -720,8 +726,6 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     # the same numbers and must hold their digits where |H| is small too
     if not float(np.max(amplification)) <= mh.MODAL_AMPLIFICATION_LIMIT:
         return None
-    a, b, c, d, shifted = modes.real_realization()
-    dss = DiscreteStateSpace(a, b, c, d, h, whole, shifted)
     poles = np.exp(block.poles * h)
     poles = np.concatenate([poles, np.zeros(int(modes.fraction) + whole, complex)])
     # the eigenvalues of (A - I)/h are known: expm1(p h)/h, and -1/h for the delay state
@@ -729,7 +733,7 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     radius = float(np.max(lam, initial=0.0)) / h
     if modes.fraction:
         radius = max(radius, 1.0 / h)
-    zeros = discrete_zeros(dss, radius)
+    zeros = _delta_pencil_zeros(modes.delta_pencil(), h, radius)
     gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
     if not resid <= mh.MODAL_MISFIT_LIMIT:
         return None

@@ -32,6 +32,9 @@ BOUNDARY_ATOL = 1e-12
 #: Evaluations of at most this many (points x factors) use one broadcast
 #: product instead of a loop over the factors (fewer numpy calls per point).
 _BROADCAST_LIMIT = 4096
+#: Larger evaluations stack the zero/pole ratios of up to this many
+#: (points x factors) in one array (16 MB), beyond it they loop over the factors.
+_STACK_LIMIT = 1 << 20
 
 
 def _as_complex_vector(values, name: str) -> np.ndarray:
@@ -136,8 +139,22 @@ class Factored:
             if self.delay_s:
                 out = out * np.exp(-x * self.delay_s)
             return out
-        out = np.full(x.shape, self.gain, dtype=complex)
-        for i in range(max(nz, npl)):
+        k = min(nz, npl)
+        if k and x.size * (k + 1) <= _STACK_LIMIT:
+            # the zero/pole ratios of all points as rows of one array, multiplied
+            # row after row by one reduction over the first axis: the same
+            # products in the same order as the loop below, with fewer calls
+            flat = x.reshape(-1)
+            rows = np.empty((k + 1, flat.size), dtype=complex)
+            rows[0] = self.gain
+            np.divide(flat[None, :] - self.zeros[:k, None], flat[None, :] - self.poles[:k, None],
+                      out=rows[1:])
+            out = np.multiply.reduce(rows, axis=0).reshape(x.shape)
+            start = k
+        else:
+            out = np.full(x.shape, self.gain, dtype=complex)
+            start = 0
+        for i in range(start, max(nz, npl)):
             if i < nz and i < npl:
                 out = out * ((x - self.zeros[i]) / (x - self.poles[i]))
             elif i < nz:

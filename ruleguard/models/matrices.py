@@ -267,12 +267,7 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     radius = float(radius)
     if not radius > 0.0:
         return None
-    n = a.shape[0]
-    pencil = np.empty((n + 1, n + 1))
-    pencil[:n, :n] = a
-    pencil[:n, n] = b
-    pencil[n, :n] = c
-    pencil[n, n] = d
+    start = (a, b, c, d)  # the pencil, formed only when small zeros need refining
     while True:
         n = a.shape[0]
         nb2 = float(b @ b)
@@ -296,8 +291,8 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
             # their absolute accuracy only: refine them on the pencil
             terms = max(math.sqrt(na2), nb * nc / abs(d))
             small = np.abs(roots) < REFINE_BELOW * terms
-            if np.any(small):
-                roots[small] = _refine_zeros(pencil, roots, small)
+            if small.any():
+                roots[small] = _refine_zeros(_pencil(*start), roots, small)
             return roots
         if abs(d) > 1e-14 * scale or nc == 0.0 or n == 0:
             return None
@@ -306,8 +301,8 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         # reads one state alone is taken over exactly
         k = int(np.argmax(np.abs(c)))
         if k:
-            order = np.r_[k, 0:k, k + 1:n]
-            a, b, c = a[np.ix_(order, order)], b[order], c[order]
+            order = np.array([k, *range(k), *range(k + 1, n)])
+            a, b, c = a[order[:, None], order], b[order], c[order]  # C-contiguous, as a is
         # Householder v with (I - 2 v v^T / v^T v) c^T = -sign(c_0) ||c|| e_1
         v = c.copy()
         v[0] += math.copysign(nc, c[0])
@@ -319,6 +314,17 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         a = a - beta * np.outer(v, va)
         b = b - beta * float(v @ b) * v
         a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
+
+
+def _pencil(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float) -> np.ndarray:
+    """``[[a, b], [c, d]]``."""
+    n = a.shape[0]
+    pencil = np.empty((n + 1, n + 1))
+    pencil[:n, :n] = a
+    pencil[:n, n] = b
+    pencil[n, :n] = c
+    pencil[n, n] = d
+    return pencil
 
 
 def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
