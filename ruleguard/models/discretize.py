@@ -596,7 +596,7 @@ def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) ->
 
 
 def _delta_pencil_zeros(pencil: np.ndarray, h: float, pole_radius: float) -> np.ndarray:
-    """The discrete zeros ``1 + h delta`` from the delta-form pencil (see :func:`discrete_zeros`)."""
+    """The discrete zeros ``1 + h delta`` from the delta-form pencil (:func:`discrete_zeros`)."""
     from ruleguard.models.matrices import balance_scaling, siso_zeros
 
     n = pencil.shape[0] - 1

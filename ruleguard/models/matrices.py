@@ -144,6 +144,8 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
     np.fill_diagonal(sq, 0.0)
     if n <= _SMALL_BALANCE:
         return np.array(_balance_small(sq.tolist()))
+    if not _first_step_moves(sq):
+        return t  # balanced already (the first pass of the loop below would stop)
     for _ in range(60):
         col = sq.sum(axis=0)
         row = sq.sum(axis=1)
@@ -174,6 +176,31 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
         sq = new
         t *= f
     return t
+
+
+def _first_step_moves(sq: np.ndarray) -> bool:
+    """Whether the first pass of the vectorised loop of :func:`balance_scaling` scales anything.
+
+    The same test on Python floats (the sums and ``log2`` by numpy as there;
+    rounding half to even, exact powers of two, correctly rounded square
+    roots), so that a balanced matrix costs a handful of numpy calls.
+    """
+    col = sq.sum(axis=0)
+    row = sq.sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logs = np.log2(row / col).tolist()
+    for c2, r2, lg in zip(col.tolist(), row.tolist(), logs, strict=True):
+        if not (c2 > 0.0 and r2 > 0.0):
+            continue
+        k = round(0.25 * lg)
+        if k == 0 or not abs(k) < 490:  # t = 1 before the first pass: log2(t) = 0
+            continue
+        f = math.ldexp(1.0, k)
+        c = math.sqrt(c2)
+        r = math.sqrt(r2)
+        if c * f + r / f < 0.95 * (c + r):
+            return True
+    return False
 
 
 #: Up to this order :func:`balance_scaling` runs the sequential loop of

@@ -105,6 +105,8 @@ class ModalHold:
     fraction: bool
     delay_samples: int
     sample_time_s: float
+    #: ``(upper, real)`` of :func:`_pair_indices` when known (computed once).
+    pairs: tuple[list[int], list[int]] | None = None
 
     def terms(self, z: np.ndarray, z_minus_1: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Mode terms ``(points, modes)`` and the feedthrough term at ``z`` (no ``z^-d``)."""
@@ -171,7 +173,7 @@ class ModalHold:
 
     def _realization_lists(self) -> tuple[list[float], list[float], list[float], float]:
         """``a - I`` (row-major, flat), ``b``, ``c`` and ``d`` of the real realization."""
-        upper, real = _pair_indices(self.poles)
+        upper, real = self.pairs if self.pairs is not None else _pair_indices(self.poles)
         nu, nr = len(upper), len(real)
         n = 2 * nu + nr
         f = 1 if self.fraction else 0
@@ -251,10 +253,11 @@ def residues(block: Factored) -> np.ndarray | None:
     if n == 0:
         return np.zeros(0, complex)
     diff = p[:, None] - p[None, :]
-    off = ~np.eye(n, dtype=bool)
+    off = _off_diagonal(n)
     others = diff[off].reshape(n, n - 1)
-    mag = np.maximum(np.abs(p)[:, None], np.abs(p)[None, :])[off].reshape(n, n - 1)
-    if n > 1 and np.any(np.abs(others) <= MODAL_SEPARATION_RTOL * np.maximum(mag, 1e-300)):
+    size = np.abs(p)
+    mag = np.maximum(size[:, None], size[None, :])[off].reshape(n, n - 1)
+    if n > 1 and (np.abs(others) <= MODAL_SEPARATION_RTOL * np.maximum(mag, 1e-300)).any():
         return None
     zf = p[:, None] - block.zeros[None, :]
     m = zf.shape[1]
@@ -266,9 +269,23 @@ def residues(block: Factored) -> np.ndarray | None:
         out = out * np.prod(zf[:, k:], axis=1)
     if n - 1 > k:
         out = out / np.prod(others[:, k:], axis=1)
-    if not np.all(np.isfinite(out)):
+    if not np.isfinite(out).all():
         return None
     return out
+
+
+_OFF_DIAGONAL: dict[int, np.ndarray] = {}
+
+
+def _off_diagonal(n: int) -> np.ndarray:
+    """The mask ``~eye(n)`` (kept per order, read-only)."""
+    mask = _OFF_DIAGONAL.get(n)
+    if mask is None:
+        mask = ~np.eye(n, dtype=bool)
+        mask.flags.writeable = False
+        if len(_OFF_DIAGONAL) < 64:
+            _OFF_DIAGONAL[n] = mask
+    return mask
 
 
 def _psi(p: np.ndarray, t: float) -> np.ndarray:
@@ -302,13 +319,18 @@ def modal_hold(block: Factored, sample_time_s: float, whole: int, fraction: floa
     h = float(sample_time_s)
     p = block.poles
     feed = block.gain if block.zeros.size == block.poles.size else 0.0
+    lam_minus_one = np.expm1(p * h)
     if fraction > 0.0:
         rest = h - fraction * h
         q0 = _psi(p, rest)
         q1 = np.exp(p * rest) * _psi(p, fraction * h)
+        if not (np.isfinite(q0).all() and np.isfinite(q1).all()):
+            return None
     else:
-        q0 = _psi(p, h)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            q0 = np.where(p == 0, h, lam_minus_one / p)  # _psi(p, h), from the same expm1
         q1 = np.zeros_like(q0)
-    if not (np.all(np.isfinite(q0)) and np.all(np.isfinite(q1))):
-        return None
-    return ModalHold(p, r, np.expm1(p * h), q0, q1, float(feed), fraction > 0.0, int(whole), h)
+        if not np.isfinite(q0).all():
+            return None
+    return ModalHold(p, r, lam_minus_one, q0, q1, float(feed), fraction > 0.0, int(whole), h,
+                     (upper, real))

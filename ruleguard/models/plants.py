@@ -41,7 +41,11 @@ from ruleguard.errors import InputError
 from ruleguard.load.spec import PlantEntry
 from ruleguard.models.fieldvalues import FieldReader, is_expression, resolve_parameters
 from ruleguard.models.lti import Factored, MeasuredResponse, StateSpace
-from ruleguard.models.polynomials import polynomial_roots, second_order_roots
+from ruleguard.models.polynomials import (
+    polynomial_roots,
+    second_order_pair,
+    second_order_roots,
+)
 
 TWO_PI = 2.0 * math.pi
 
@@ -137,7 +141,7 @@ def _roots(reader: FieldReader, key: str) -> np.ndarray:
                 zeta = reader.item(item["damping"], where)
                 if not f > 0:
                     raise InputError.at(reader.where(key), f"{where}.freq_hz must be positive")
-                roots.extend(second_order_roots(TWO_PI * f, zeta))
+                roots.extend(second_order_pair(TWO_PI * f, zeta))
             else:
                 raise InputError.at(reader.where(key),
                                     f"{where}: expected {{re, im}} or {{freq_hz, damping}}")
