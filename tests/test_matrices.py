@@ -229,6 +229,122 @@ def test_siso_zeros_declines_delicate_cases():
     assert siso_zeros(a, b, np.zeros(2), 0.0, 3.0) is None  # a zero block
 
 
+# ------------------------------------- small feedthrough: the refined band
+def mp_zeros(a, b, c, d) -> np.ndarray:
+    """Zeros of ``c (xI - a)^-1 b + d`` (d != 0) at 50 digits: eigenvalues of the
+    Schur complement ``a - b c / d`` formed and solved by mpmath from the given
+    doubles (the exact zeros of the given realization)."""
+    with mpmath.workdps(50):
+        am = mpmath.matrix(a.tolist())
+        bm = mpmath.matrix(b.tolist())
+        cm = mpmath.matrix([c.tolist()])
+        ev = mpmath.eig(am - bm * cm / mpmath.mpf(d), left=False, right=False)
+        return np.array([complex(e) for e in ev])
+
+
+def worst_match(got: np.ndarray, ref: np.ndarray, scale: float) -> float:
+    """Largest |got - ref| / scale over the zeros, each matched to its nearest."""
+    left = list(got)
+    worst = 0.0
+    for r in ref:
+        k = int(np.argmin([abs(r - g) for g in left]))
+        worst = max(worst, abs(left.pop(k) - r) / scale)
+    return worst
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_siso_zeros_small_feedthrough_refined_against_mpmath_and_qz(seed):
+    # |d| between SCHUR_REFINED_FEEDTHROUGH and SCHUR_MIN_FEEDTHROUGH times
+    # ||b|| ||c|| / nu: the Schur complement amplifies rounding by up to 1000,
+    # the refinement on the pencil must give QZ's accuracy back (mpmath reference)
+    rng = np.random.default_rng(100 + seed)
+    for n in (2, 3, 5, 8, 11):
+        a = rng.standard_normal((n, n)) * 10.0 ** rng.uniform(0, 3)
+        b = rng.standard_normal(n)
+        c = rng.standard_normal(n)
+        nb, nc = float(np.linalg.norm(b)), float(np.linalg.norm(c))
+        radius = 1.0 + float(np.max(np.abs(np.linalg.eigvals(a))))
+        size = max(radius, math.sqrt(float(np.vdot(a, a)) + nb * nb + nc * nc))
+        d = float(10.0 ** rng.uniform(-2.9, -1.1)) * nb * nc / size * rng.choice([-1.0, 1.0])
+        got = siso_zeros(a, b, c, d, radius)
+        if got is None:  # a zero that does not settle goes to QZ: allowed, but rare
+            continue
+        ref = mp_zeros(a, b, c, d)
+        qz = qz_zeros(a, b, c, d, 1e12 * radius)
+        assert got.size == ref.size == qz.size == n
+        # errors relative to the pencil's size (the backward error of QZ)
+        err, qz_err = worst_match(got, ref, size), worst_match(qz, ref, size)
+        assert err <= max(4.0 * qz_err, 1e-15), (n, err, qz_err)
+
+
+def servo_plant_of_bench_project(index: int):
+    """Plant ``index`` of the project of benchmarks/bench_vs_grid.py (the same
+    random draws, seed 9): 10th order, four lightly damped pairs."""
+    from ruleguard.models.lti import Factored
+
+    rng = np.random.default_rng(9)
+    wc = 2 * math.pi * 100.0
+    for _ in range(index + 1):
+        res_hz = np.sort(10 ** rng.uniform(math.log10(800.0), math.log10(4000.0), 4))
+        res_damp = 10 ** rng.uniform(-1.7, -1.0, 4)
+        anti_hz = res_hz * rng.uniform(0.85, 0.97, 4)
+        anti_damp = res_damp * rng.uniform(0.5, 1.0, 4)
+        slow = -float(rng.uniform(2.0, 20.0))
+        fast = -float(rng.uniform(4000.0, 9000.0))
+        rng.uniform(4.0, 8.0)  # the PI corner of that loop
+    zeros = [complex(-z * 2 * math.pi * f, 2 * math.pi * f * math.sqrt(1 - z * z))
+             for f, z in zip(anti_hz, anti_damp, strict=True)]
+    poles = [complex(-z * 2 * math.pi * f, 2 * math.pi * f * math.sqrt(1 - z * z))
+             for f, z in zip(res_hz, res_damp, strict=True)]
+    zc = np.array(zeros + [z.conjugate() for z in zeros])
+    pc = np.array(poles + [p.conjugate() for p in poles] + [slow, fast])
+    shape = abs(np.prod(1j * wc - zc) / np.prod(1j * wc - pc))
+    return Factored(zc, pc, 1.0 / shape)
+
+
+@pytest.mark.parametrize("index", [53, 165])
+def test_sampled_plants_with_a_small_first_sample_need_no_qz(index, monkeypatch):
+    # these two plants of the benchmark project put the deflated feedthrough
+    # (c b, about h^2/2 of the scale for relative degree 2) just below
+    # SCHUR_MIN_FEEDTHROUGH: once the QZ fallback of the build, now refined;
+    # the discrete zeros agree with the 50-digit zeros of the same pencil
+    import ruleguard.models.discretize as disc
+    import ruleguard.models.matrices as mat
+    from ruleguard.models import modal_hold as mh
+
+    h = 1e-4
+    plant = servo_plant_of_bench_project(index)
+    modes = mh.modal_hold(plant, h, 1, 0.0)
+    pencil = modes.delta_pencil()
+    n = pencil.shape[0] - 1
+    a, b, c = pencil[:n, :n], pencil[:n, n], pencil[n, :n]
+    assert pencil[n, n] == 0.0
+    # one Householder deflation (c -> first state) in 50 digits, then the Schur complement
+    with mpmath.workdps(50):
+        am, bm = mpmath.matrix(a.tolist()), mpmath.matrix(b.tolist())
+        v = mpmath.matrix(c.tolist())
+        v[0] += mpmath.sqrt(sum(x * x for x in v)) * (1 if c[0] >= 0 else -1)
+        hh = mpmath.eye(n) - 2 * v * v.T / sum(x * x for x in v)
+        ar, br = hh * am * hh, hh * bm
+        a1, b1, c1, d1 = ar[1:, 1:], br[1:, 0], ar[0:1, 1:], br[0, 0]
+        ev = mpmath.eig(a1 - b1 * c1 / d1, left=False, right=False)
+        ref = 1.0 + h * np.array([complex(e) for e in ev])
+    scipy_calls = []
+    real_eig = scipy.linalg.eig
+    monkeypatch.setattr(scipy.linalg, "eig", lambda *x, **k: scipy_calls.append(1) or
+                        real_eig(*x, **k))
+    radius = float(np.max(np.abs(modes.lam_minus_one))) / h
+    zeros = disc._delta_pencil_zeros(pencil, h, radius)
+    assert not scipy_calls
+    assert mat.siso_zeros(a, b, c, 0.0, 1.0 / h + radius) is not None
+    assert zeros.size == n - 1 == ref.size
+    assert worst_match(zeros, ref, 1.0) <= 1e-13  # z-plane zeros, |z| about 1
+    # and the whole ZOH equivalent matches the modal sum on the unit circle
+    zoh = disc.zoh_equivalent(plant, h, h)
+    w = np.geomspace(1.0, math.pi / h * 0.999, 300)
+    np.testing.assert_allclose(zoh.response(w), modes.response(w), rtol=1e-10)
+
+
 # ------------------------------------------------------------- import cost
 _PROBE = """
 import io, sys

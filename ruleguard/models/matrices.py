@@ -42,6 +42,13 @@ SCHUR_MIN_FEEDTHROUGH = 0.1
 #: (``max(||a||_F, ||b|| ||c|| / |d|)``) are refined on the pencil: their
 #: absolute error is the rounding of those terms.
 REFINE_BELOW = 1e-2
+#: Between ``SCHUR_REFINED_FEEDTHROUGH * ||b|| ||c|| / nu`` and the bound
+#: above, the Schur complement is formed and every zero is refined on the
+#: pencil (``_refined_schur_zeros``); below it the caller's QZ is used.
+SCHUR_REFINED_FEEDTHROUGH = 1e-3
+#: A refined zero has settled when its last Aberth step is below this
+#: fraction of its modulus and of its distance to the other zeros.
+REFINED_SETTLE = 1e-9
 # [H05] coefficients b_0, ..., b_m of the [m/m] Pade numerator p_m(x)
 _PADE = {
     3: (120.0, 60.0, 12.0, 1.0),
@@ -267,11 +274,17 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     With ``nu`` the larger of ``radius`` and the Frobenius norm of the
     current pencil, ``d`` counts as zero below ``1e-14 ||b|| ||c|| / nu``
     (the next deflation step) and the Schur complement is formed above
-    ``SCHUR_MIN_FEEDTHROUGH ||b|| ||c|| / nu``; in between, and when
-    ``b`` or ``c`` vanishes (a zero block), ``None`` is returned. The sampled
-    plants of ordinary loops (relative degree 1 after sampling) stay far
-    inside the bound (``||b|| ||c|| / (|d| radius)`` below 0.4 for every
-    variant of the demo project).
+    ``SCHUR_MIN_FEEDTHROUGH ||b|| ||c|| / nu``. Down to
+    ``SCHUR_REFINED_FEEDTHROUGH ||b|| ||c|| / nu`` it is formed as well and
+    every zero is then refined on the pencil (the rounding it amplifies is
+    undone there; a zero that does not settle leaves the problem to QZ). In
+    between, and when ``b`` or ``c`` vanishes (a zero block), ``None`` is
+    returned. The sampled plants of ordinary loops (relative degree 1 after
+    sampling) stay far inside the first bound (``||b|| ||c|| / (|d| radius)``
+    below 0.4 for every variant of the demo project); a plant of relative
+    degree 2 whose first sample ``c b`` is small (about ``h^2/2`` of its
+    scale) may fall in the refined band (2 of the 300 loops of
+    ``benchmarks/bench_vs_grid.py``).
 
     Parameters
     ----------
@@ -321,6 +334,11 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
             if small.any():
                 roots[small] = _refine_zeros(_pencil(*start), roots, small)
             return roots
+        if abs(d) >= SCHUR_REFINED_FEEDTHROUGH * scale and n:
+            # a small feedthrough: the Schur complement amplifies rounding by
+            # up to 1 / SCHUR_REFINED_FEEDTHROUGH, so every zero is refined on
+            # the pencil (backward stable), or the problem goes to QZ
+            return _refined_schur_zeros(_pencil(*start), a, b, c, d)
         if abs(d) > 1e-14 * scale or nc == 0.0 or n == 0:
             return None
         # the largest output weight first (a symmetric permutation): the
@@ -343,6 +361,37 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
 
 
+def _refined_schur_zeros(pencil: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.ndarray,
+                         d: float) -> np.ndarray | None:
+    """Zeros of a stage with a small feedthrough: Schur complement, then Aberth on the pencil.
+
+    The eigenvalues of ``a - b c / d`` carry an absolute error of about
+    ``eps ||b|| ||c|| / |d|``, at most ``1 / SCHUR_REFINED_FEEDTHROUGH`` times
+    the rounding of the pencil itself. From there every zero is refined on
+    the original pencil (:func:`_refine_zeros`, cubically convergent, each
+    evaluation backward stable), so that the zeros reached are those of a
+    pencil within rounding of the given one, as with QZ. ``None`` (leave it
+    to QZ) when a zero does not settle: a refinement step refused, or the
+    last step larger than ``REFINED_SETTLE`` of the zero's modulus or of its
+    distance to the others.
+    """
+    n = a.shape[0]
+    if n == 1:
+        roots = np.array([a[0, 0] - b[0] / d * c[0]], dtype=complex)
+    else:
+        roots = np.linalg.eigvals(a - np.outer(b / d, c)).astype(complex)
+    every = np.ones(roots.size, dtype=bool)
+    refined, last, ok = _refine_zeros(pencil, roots, every, steps=3, report=True)
+    if not ok:
+        return None
+    gaps = np.abs(refined[:, None] - refined[None, :])
+    np.fill_diagonal(gaps, np.inf)
+    near = np.minimum(np.abs(refined), np.min(gaps, axis=1, initial=np.inf))
+    if not np.all(last <= REFINED_SETTLE * near):
+        return None
+    return refined
+
+
 def _pencil(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float) -> np.ndarray:
     """``[[a, b], [c, d]]``."""
     n = a.shape[0]
@@ -355,7 +404,7 @@ def _pencil(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float) -> np.ndarray
 
 
 def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
-                  steps: int = 2) -> np.ndarray:
+                  steps: int = 2, report: bool = False):
     """Aberth-Ehrlich refinement of ``roots[which]``, eigenvalues of ``(M, diag(I, 0))``.
 
     ``det(M - x E)`` is a polynomial whose roots are exactly the finite
@@ -379,12 +428,15 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
     x = roots[which].astype(complex)
     e = np.zeros((n + 1, n + 1))
     e[:n, :n] = np.eye(n)
+    last = np.full(x.size, np.inf)
+    settled = True
     for _ in range(steps):
         mats = pencil[None, :, :] - x[:, None, None] * e[None, :, :]
         try:
             inv = np.linalg.inv(mats)
         except np.linalg.LinAlgError:
-            break  # a root exact to working precision
+            last[:] = 0.0  # a root exact to working precision
+            break
         with np.errstate(all="ignore"):
             logd = -np.trace(inv[:, :n, :n], axis1=1, axis2=2)
             gaps = x[:, None] - x[None, :]
@@ -395,7 +447,11 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
                           np.min(np.abs(far), axis=1, initial=np.inf))
         limit = 1e-3 * np.minimum(near, np.abs(x))
         ok = np.isfinite(step) & (np.abs(step) <= limit)
+        settled = bool(np.all(ok | (np.abs(step) == 0.0)))
+        last = np.where(ok, np.abs(step), np.where(np.abs(step) == 0.0, 0.0, np.inf))
         if not np.any(ok):
             break
         x = x - np.where(ok, step, 0.0)
+    if report:
+        return x, last, settled
     return x
