@@ -603,7 +603,8 @@ def _delta_pencil_zeros(pencil: np.ndarray, h: float, pole_radius: float) -> np.
     # a diagonal similarity leaves E = diag(I, 0) as it is: balance the
     # pencil (Parlett-Reinsch) so that fast and slow modes have like scales
     t = balance_scaling(pencil)
-    pencil = pencil * t[None, :] / t[:, None]
+    if not (t == 1.0).all():  # (x * 1) / 1 is x: nothing to do for a balanced pencil
+        pencil = pencil * t[None, :] / t[:, None]
     radius = 1.0 / h + pole_radius
     gev = siso_zeros(pencil[:n, :n], pencil[:n, n], pencil[n, :n], pencil[n, n], radius)
     if gev is None:  # a delicate feedthrough or a zero block: the QZ algorithm
@@ -658,18 +659,27 @@ def _fit_points() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, z: np.ndarray,
-                     target: np.ndarray) -> tuple[float, float, np.ndarray]:
-    """Least-squares real gain, its largest relative misfit, and the points used (at ``z``)."""
+                     target: np.ndarray, mag: np.ndarray | None = None,
+                     top: float | None = None) -> tuple[float, float, np.ndarray]:
+    """Least-squares real gain, its largest relative misfit, and the points used (at ``z``).
+
+    ``mag`` and ``top`` (``|target|`` and its largest value) may be passed
+    when the caller has them.
+    """
     with np.errstate(all="ignore"):
         shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(z)
-    mag = np.abs(target)
-    top = float(np.max(mag, initial=0.0))
+    if mag is None or top is None:
+        mag = np.abs(target)
+        top = float(np.max(mag, initial=0.0))
     if top == 0.0:
         return 0.0, 0.0, np.zeros(z.shape, dtype=bool)
     keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
-    if not np.any(keep):
-        keep = mag >= 0.5 * top
-    ratio = shape[keep] / target[keep]
+    if keep.all():
+        ratio = shape / target  # every point: the same numbers as through the mask
+    else:
+        if not keep.any():
+            keep = mag >= 0.5 * top
+        ratio = shape[keep] / target[keep]
     gain = float(np.real(np.sum(np.conj(ratio))) / np.sum(np.abs(ratio) ** 2))
     resid = float(np.max(np.abs(gain * ratio - 1.0)))
     return gain, resid, keep
@@ -719,22 +729,23 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     _, z, z_minus_1 = _fit_points()
     target, amplification = modes.evaluate_with_amplification(z, z_minus_1)
     mag = np.abs(target)
-    top = float(np.max(mag, initial=0.0))
-    if not (top > 0.0 and np.isfinite(top)):
+    top = float(mag.max())  # (320 points, all >= 0: the maximum with initial=0)
+    if not (top > 0.0 and math.isfinite(top)):
         return None
     # every point counts (also the deep roll-off): the zeros are computed from
     # the same numbers and must hold their digits where |H| is small too
-    if not float(np.max(amplification)) <= mh.MODAL_AMPLIFICATION_LIMIT:
+    if not float(amplification.max()) <= mh.MODAL_AMPLIFICATION_LIMIT:
         return None
     poles = np.exp(block.poles * h)
-    poles = np.concatenate([poles, np.zeros(int(modes.fraction) + whole, complex)])
+    extra = int(modes.fraction) + whole
+    if extra:
+        poles = np.concatenate([poles, np.zeros(extra, complex)])
     # the eigenvalues of (A - I)/h are known: expm1(p h)/h, and -1/h for the delay state
-    lam = np.abs(modes.lam_minus_one)
-    radius = float(np.max(lam, initial=0.0)) / h
+    radius = float(np.abs(modes.lam_minus_one).max()) / h  # at least one pole
     if modes.fraction:
         radius = max(radius, 1.0 / h)
     zeros = _delta_pencil_zeros(modes.delta_pencil(), h, radius)
-    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target, mag, top)
     if not resid <= mh.MODAL_MISFIT_LIMIT:
         return None
     return Factored(zeros, poles, gain, 0.0, h)

@@ -354,9 +354,9 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         beta = 2.0 / float(v @ v)
         # a~ = H a H, b~ = H b
         av = a @ v
-        a = a - beta * np.outer(av, v)
+        a = a - beta * (av[:, None] * v[None, :])  # np.outer, without its call overhead
         va = v @ a
-        a = a - beta * np.outer(v, va)
+        a = a - beta * (v[:, None] * va[None, :])
         b = b - beta * float(v @ b) * v
         a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
 
