@@ -302,45 +302,59 @@ def servo_plant_of_bench_project(index: int):
     return Factored(zc, pc, 1.0 / shape)
 
 
-@pytest.mark.parametrize("index", [53, 165])
-def test_sampled_plants_with_a_small_first_sample_need_no_qz(index, monkeypatch):
-    # these two plants of the benchmark project put the deflated feedthrough
+def mp_pencil_zeros(pencil: np.ndarray) -> np.ndarray:
+    """Finite zeros of the system pencil ``[[a, b], [c, d]]`` at 50 digits: the
+    orthogonal deflation of [EV] (Householder, c -> first state) while ``d``
+    vanishes, then the eigenvalues of the Schur complement, all in mpmath."""
+    n = pencil.shape[0] - 1
+    with mpmath.workdps(50):
+        m = mpmath.matrix(pencil.tolist())
+        a, b, c, d = m[:n, :n], m[:n, n], m[n:n + 1, :n], m[n, n]
+        size = mpmath.mnorm(m, "f")
+        while abs(d) <= mpmath.mpf(10) ** -40 * size and a.rows > 0:
+            k = a.rows
+            v = mpmath.matrix([c[0, j] for j in range(k)])
+            v[0] += mpmath.sqrt(sum(x * x for x in v)) * (1 if v[0] >= 0 else -1)
+            hh = mpmath.eye(k) - 2 * v * v.T / sum(x * x for x in v)
+            ar, br = hh * a * hh, hh * b
+            a, b, c, d = ar[1:, 1:], br[1:, 0], ar[0:1, 1:], br[0, 0]
+        if a.rows == 0:
+            return np.zeros(0, complex)
+        ev = mpmath.eig(a - b * c / d, left=False, right=False)
+        return np.array([complex(e) for e in ev])
+
+
+@pytest.mark.parametrize("index, whole, fraction",
+                         [(53, 1, 0.0), (165, 1, 0.0), (0, 1, 0.37), (7, 2, 0.5), (12, 0, 0.5)])
+def test_sampled_plants_with_a_small_first_sample_need_no_qz(index, whole, fraction,
+                                                              monkeypatch):
+    # plants 53 and 165 of the benchmark project put the deflated feedthrough
     # (c b, about h^2/2 of the scale for relative degree 2) just below
-    # SCHUR_MIN_FEEDTHROUGH: once the QZ fallback of the build, now refined;
-    # the discrete zeros agree with the 50-digit zeros of the same pencil
+    # SCHUR_MIN_FEEDTHROUGH, and so does a fractional delay for these plants
+    # (the input reaches the output through the delay state): once the QZ
+    # fallback of the build (and an import of scipy), now refined. The
+    # discrete zeros agree with the 50-digit zeros of the same pencil.
     import ruleguard.models.discretize as disc
-    import ruleguard.models.matrices as mat
     from ruleguard.models import modal_hold as mh
 
     h = 1e-4
     plant = servo_plant_of_bench_project(index)
-    modes = mh.modal_hold(plant, h, 1, 0.0)
+    modes = mh.modal_hold(plant, h, whole, fraction)
     pencil = modes.delta_pencil()
-    n = pencil.shape[0] - 1
-    a, b, c = pencil[:n, :n], pencil[:n, n], pencil[n, :n]
-    assert pencil[n, n] == 0.0
-    # one Householder deflation (c -> first state) in 50 digits, then the Schur complement
-    with mpmath.workdps(50):
-        am, bm = mpmath.matrix(a.tolist()), mpmath.matrix(b.tolist())
-        v = mpmath.matrix(c.tolist())
-        v[0] += mpmath.sqrt(sum(x * x for x in v)) * (1 if c[0] >= 0 else -1)
-        hh = mpmath.eye(n) - 2 * v * v.T / sum(x * x for x in v)
-        ar, br = hh * am * hh, hh * bm
-        a1, b1, c1, d1 = ar[1:, 1:], br[1:, 0], ar[0:1, 1:], br[0, 0]
-        ev = mpmath.eig(a1 - b1 * c1 / d1, left=False, right=False)
-        ref = 1.0 + h * np.array([complex(e) for e in ev])
+    ref = 1.0 + h * mp_pencil_zeros(pencil)
     scipy_calls = []
     real_eig = scipy.linalg.eig
     monkeypatch.setattr(scipy.linalg, "eig", lambda *x, **k: scipy_calls.append(1) or
                         real_eig(*x, **k))
     radius = float(np.max(np.abs(modes.lam_minus_one))) / h
+    if fraction:
+        radius = max(radius, 1.0 / h)
     zeros = disc._delta_pencil_zeros(pencil, h, radius)
     assert not scipy_calls
-    assert mat.siso_zeros(a, b, c, 0.0, 1.0 / h + radius) is not None
-    assert zeros.size == n - 1 == ref.size
+    assert zeros.size == ref.size == (9 if fraction == 0.0 else 10)
     assert worst_match(zeros, ref, 1.0) <= 1e-13  # z-plane zeros, |z| about 1
     # and the whole ZOH equivalent matches the modal sum on the unit circle
-    zoh = disc.zoh_equivalent(plant, h, h)
+    zoh = disc.zoh_equivalent(plant, h, (whole + fraction) * h)
     w = np.geomspace(1.0, math.pi / h * 0.999, 300)
     np.testing.assert_allclose(zoh.response(w), modes.response(w), rtol=1e-10)
 
