@@ -242,6 +242,8 @@ def _map_roots(roots: np.ndarray, factor, degenerate, scale: float):
     b = np.asarray(b, dtype=complex)
     # a root at q = c (Tustin) or q = 1/h (backward Euler) goes to z = infinity
     at_infinity = np.abs(a) <= 1e-14 * (scale + np.abs(q))
+    if not at_infinity.any():  # the usual case: every root stays finite
+        return -b / a, a, degenerate(q[:0]), common
     finite = ~at_infinity
     mapped = -b[finite] / a[finite]
     return mapped, a[finite], degenerate(q[at_infinity]), common

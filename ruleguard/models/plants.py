@@ -131,12 +131,12 @@ def _roots(reader: FieldReader, key: str) -> np.ndarray:
     roots: list[complex] = []
     for i, item in enumerate(raw):
         where = f"{key}.{i}"
-        if isinstance(item, Mapping):
-            if set(item) == {"re", "im"}:
+        if type(item) is dict or isinstance(item, Mapping):
+            if item.keys() == {"re", "im"}:
                 re = reader.item(item["re"], where)
                 im = reader.item(item["im"], where)
                 roots.extend([complex(re, im), complex(re, -im)])
-            elif set(item) == {"freq_hz", "damping"}:
+            elif item.keys() == {"freq_hz", "damping"}:
                 f = reader.item(item["freq_hz"], where)
                 zeta = reader.item(item["damping"], where)
                 if not f > 0:

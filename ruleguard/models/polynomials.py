@@ -29,6 +29,11 @@ from ruleguard.models.lti import Factored
 
 def strip_leading_zeros(coefficients: Sequence[float]) -> np.ndarray:
     """Drop exactly-zero leading coefficients (descending powers)."""
+    if type(coefficients) is list and all(type(v) is float for v in coefficients):
+        for i, v in enumerate(coefficients):  # a short list of floats: no numpy calls
+            if v != 0.0:
+                return np.array(coefficients[i:], dtype=float)
+        return np.zeros(0)
     c = np.asarray(coefficients, dtype=float).reshape(-1)
     nonzero = np.flatnonzero(c != 0.0)
     if nonzero.size == 0:
