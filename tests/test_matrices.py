@@ -375,3 +375,23 @@ def test_cold_one_loop_check_imports_no_scipy(tmp_path):
     out = subprocess.run([sys.executable, "-c", _PROBE], cwd=tmp_path, capture_output=True,
                          text=True, env=env)
     assert out.stdout.split() == ["0", "False"], out.stdout + out.stderr
+
+
+def test_balanced_matrices_are_recognised_without_the_loop(monkeypatch):
+    # the quick test of the first pass must agree with the vectorised loop
+    # itself (run by making the quick test always say "moves"): same scaling
+    # bit for bit, for matrices that need balancing and for balanced ones
+    import ruleguard.models.matrices as mat
+
+    rng = np.random.default_rng(31)
+    cases = []
+    for _ in range(150):
+        n = int(rng.integers(11, 25))
+        a = rng.standard_normal((n, n)) * (rng.random((n, n)) < 0.7)
+        cases.append(a * 10.0 ** rng.integers(-3, 4, size=(n, n)))
+        cases.append(np.diag(rng.standard_normal(n)) + 0.3 * rng.standard_normal((n, n)))
+    quick = [balance_scaling(a) for a in cases]
+    monkeypatch.setattr(mat, "_first_step_moves", lambda sq: True)
+    loop = [balance_scaling(a) for a in cases]
+    assert all(x.tobytes() == y.tobytes() for x, y in zip(quick, loop, strict=True))
+    assert sum(bool(np.all(x == 1.0)) for x in quick) >= 20  # balanced ones are among them
