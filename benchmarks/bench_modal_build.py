@@ -12,7 +12,8 @@ and the milliseconds of ``build_loop`` per variant for every loop of the demo.
 
 ``--grid-project`` times ``build_loop`` instead over the loops of the project
 that ``benchmarks/bench_vs_grid.py`` builds (``--loops``, default 300: 10th-order
-zero-pole-gain plants, ZOH at 10 kHz, one sample of delay, Tustin PI), in a
+zero-pole-gain plants, ZOH at 10 kHz, one sample of delay, Tustin PI;
+``--delay-samples 1.37`` gives them a fractional delay instead), in a
 fresh process per round for this checkout and, with ``--baseline DIR``, for
 the checkout in ``DIR`` (rounds alternate, so both see the same load on a
 shared machine). It prints the CPU milliseconds per loop (median and best of
@@ -139,7 +140,8 @@ def _round(tree: Path, manifest: Path, repeats: int) -> dict:
     return json.loads(out.strip().splitlines()[-1])
 
 
-def grid_project(loops: int, baseline: Path | None, rounds: int, repeats: int) -> None:
+def grid_project(loops: int, baseline: Path | None, rounds: int, repeats: int,
+                 delay_samples: float = 1.0) -> None:
     sys.path.insert(0, str(ROOT / "benchmarks"))
     import bench_vs_grid
 
@@ -149,11 +151,16 @@ def grid_project(loops: int, baseline: Path | None, rounds: int, repeats: int) -
     with tempfile.TemporaryDirectory() as tmp:
         manifest = bench_vs_grid.write_project(Path(tmp) / "project",
                                                bench_vs_grid.loop_parameters(loops))
+        if delay_samples != 1.0:  # e.g. 1.37: a fractional delay, the augmented realization
+            text = manifest.read_text().replace("delay_samples = 1.0",
+                                                f"delay_samples = {delay_samples!r}")
+            manifest.write_text(text)
         results: dict[str, list[dict]] = {name: [] for name in trees}
         for _ in range(rounds):  # alternate: both checkouts see the same machine load
             for name, tree in trees.items():
                 results[name].append(_round(tree, manifest, repeats))
     print(f"build_loop over the {loops} loops of bench_vs_grid.py's project "
+          f"(delay_samples = {delay_samples:g}) "
           f"(CPU ms per loop; {rounds} alternating rounds, best of {repeats} passes each)")
     medians = {}
     for name, rows in results.items():
@@ -180,8 +187,10 @@ if __name__ == "__main__":
     parser.add_argument("--loops", type=int, default=300)
     parser.add_argument("--rounds", type=int, default=5)
     parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--delay-samples", type=float, default=1.0,
+                        help="the loops' delay_samples (1.0 in bench_vs_grid.py)")
     args = parser.parse_args()
     if args.grid_project:
-        grid_project(args.loops, args.baseline, args.rounds, args.repeats)
+        grid_project(args.loops, args.baseline, args.rounds, args.repeats, args.delay_samples)
     else:
         main()

@@ -446,9 +446,11 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
         near = np.minimum(np.min(np.abs(gaps), axis=1, initial=np.inf),
                           np.min(np.abs(far), axis=1, initial=np.inf))
         limit = 1e-3 * np.minimum(near, np.abs(x))
-        ok = np.isfinite(step) & (np.abs(step) <= limit)
-        settled = bool(np.all(ok | (np.abs(step) == 0.0)))
-        last = np.where(ok, np.abs(step), np.where(np.abs(step) == 0.0, 0.0, np.inf))
+        size = np.abs(step)
+        ok = np.isfinite(step) & (size <= limit)
+        if report:
+            settled = bool(np.all(ok | (size == 0.0)))
+            last = np.where(ok | (size == 0.0), size, np.inf)
         if not np.any(ok):
             break
         x = x - np.where(ok, step, 0.0)
