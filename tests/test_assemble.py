@@ -688,3 +688,40 @@ def test_loaded_project_builds_the_formula_loop(tmp_path):
         ref = (2.1 + 6200.0 / s) / (4.2e-4 * s + r) * np.exp(-1e-4 * s)
         assert rel_err(model.open_loop.response(w), ref) < 1e-12
     assert variants[0].parameters == {"winding.R": 1.3}
+
+
+def test_controller_side_is_built_once_per_controller_entry_and_rate():
+    # the variants of a loop share its controller entry: the second build
+    # returns the same block objects (and the same notes) as the first; an
+    # equal but distinct entry, or another rate, is built afresh with equal
+    # numbers; the Tustin form checked against scipy.signal.cont2discrete
+    import ruleguard.models.assemble as assemble
+
+    h = 1e-3
+    g = plant("g", "zero_pole_gain", gain=3.0, zeros=[], poles=[-2.0, -30.0], varied=[
+        vary("gain", 2.0, 4.0)])
+    pi = controller("pid", kp=1.5, ki=20.0)  # no discretization given: a note, Tustin
+    proj = project([g], [loop("a", "g", pi, rate=1.0 / h)])
+    spec = proj.loops[0]
+    variants = loop_variants(proj, spec)
+    assert len(variants) >= 2
+    first = build_loop(proj, spec, variants[0])
+    second = build_loop(proj, spec, variants[1])
+    assert second.controller is first.controller
+    assert second.controller.discrete is first.controller.discrete
+    assert second.notes == first.notes
+    assert any("tustin (the default)" in n for n in first.notes)
+    assert not np.array_equal(first.plant.discrete.gain, second.plant.discrete.gain)
+    # scipy.signal.cont2discrete of (kp s + ki)/s by the bilinear rule
+    num, den, _ = scipy.signal.cont2discrete(([1.5, 20.0], [1.0, 0.0]), h, method="bilinear")
+    z = np.exp(1j * np.linspace(0.01, 3.0, 7))
+    np.testing.assert_allclose(first.controller.discrete.evaluate(z),
+                               polyval_ratio(np.ravel(num), den, z), rtol=1e-12)
+    fresh = loop("a", "g", controller("pid", kp=1.5, ki=20.0), rate=1.0 / h)
+    third = build_loop(proj, fresh, variants[0])
+    assert third.controller is not first.controller
+    d1, d3 = first.controller.discrete, third.controller.discrete
+    assert d3.zeros.tobytes() == d1.zeros.tobytes() and d3.gain == d1.gain
+    other_rate = build_loop(proj, loop("a", "g", pi, rate=2.0 / h), variants[0])
+    assert other_rate.controller.discrete.sample_time_s == h / 2
+    assert len(assemble._CONTROLLER_SIDES) <= assemble._CONTROLLER_SIDES_MAX

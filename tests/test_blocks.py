@@ -226,3 +226,26 @@ class TestRoots:
         # each root satisfies s^2 + 2 zeta w s + w^2 = 0 (definition)
         np.testing.assert_allclose(r**2 + 2 * zeta * w * r + w**2, 0, atol=1e-9 * w**2)
         np.testing.assert_allclose(r[0] * r[1], w**2, rtol=1e-12)
+
+
+def test_pid_polynomial_arithmetic_is_numpy_polymul_and_polyadd_bit_for_bit():
+    # the PID rationals are formed on Python floats; numpy.polymul and
+    # numpy.polyadd (the reference) must give the same bits, leading zeros
+    # and signed zeros included
+    from ruleguard.models.blocks import _polyadd, _polymul
+
+    rng = np.random.default_rng(4)
+
+    def coefficient():
+        pick = rng.random()
+        if pick < 0.15:
+            return 0.0
+        if pick < 0.2:
+            return -0.0
+        return float(rng.uniform(-10, 10) * 10.0 ** rng.integers(-8, 9))
+
+    for _ in range(3000):
+        a = [coefficient() for _ in range(int(rng.integers(1, 4)))]
+        b = [coefficient() for _ in range(int(rng.integers(1, 4)))]
+        assert np.array(_polymul(a, b)).tobytes() == np.polymul(a, b).tobytes(), (a, b)
+        assert np.array(_polyadd(a, b)).tobytes() == np.polyadd(a, b).tobytes(), (a, b)

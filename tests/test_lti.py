@@ -117,3 +117,25 @@ def test_state_space_delay_kept_in_factored_form():
     assert block.gain == pytest.approx(1.0)
     assert block.delay_s == 0.1
     np.testing.assert_allclose(block.poles, [-2.0])
+
+
+def test_large_evaluations_multiply_the_factors_in_order_bit_for_bit():
+    # above the broadcast limit the zero/pole ratios are stacked and reduced
+    # over the first axis: the reference is the product written out factor
+    # by factor (gain, then each zero/pole ratio, then unpaired factors)
+    rng = np.random.default_rng(8)
+    for nz, npl in ((9, 11), (11, 9), (3, 3), (0, 5), (6, 0)):
+        zeros = rng.standard_normal(nz) + 1j * rng.standard_normal(nz)
+        poles = rng.standard_normal(npl) + 1j * rng.standard_normal(npl)
+        block = Factored(zeros, poles, 1.7, 0.0, 1e-3)
+        x = np.exp(1j * rng.uniform(0, np.pi, (40, 30)))
+        ref = np.full(x.shape, 1.7, dtype=complex)
+        for i in range(max(nz, npl)):
+            if i < nz and i < npl:
+                ref = ref * ((x - zeros[i]) / (x - poles[i]))
+            elif i < nz:
+                ref = ref * (x - zeros[i])
+            else:
+                ref = ref / (x - poles[i])
+        got = block.evaluate(x)
+        assert got.shape == x.shape and got.tobytes() == ref.tobytes()

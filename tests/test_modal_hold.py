@@ -149,3 +149,22 @@ def test_falls_back_when_the_modal_sum_cancels():
     w = np.geomspace(1.0, math.pi / h, 30)
     ref = modal_zoh_response_mp(blk, h, 0.0, np.exp(1j * w * h))
     assert np.max(np.abs(zoh_equivalent(blk, h).response(w) / ref - 1)) < 1e-9
+
+
+@pytest.mark.parametrize("fraction", [0.0, 0.37])
+def test_delta_pencil_is_the_realization_over_h_bit_for_bit(fraction):
+    # the pencil the discrete zeros are computed from is the real realization
+    # with its a - I and b divided by h (what discrete_zeros forms from it)
+    rng = np.random.default_rng(12)
+    blk = resonant_plant(rng, pairs=3)
+    h = 1e-4
+    modes = modal_hold(blk, h, 1, fraction)
+    a, b, c, dd, shifted = modes.real_realization()
+    n = shifted.shape[0]
+    ref = np.empty((n + 1, n + 1))
+    ref[:n, :n] = shifted / h
+    ref[:n, n:] = b / h
+    ref[n:, :n] = c
+    ref[n, n] = dd[0, 0]
+    assert modes.delta_pencil().tobytes() == ref.tobytes()
+    np.testing.assert_array_equal(a, shifted + np.eye(n))

@@ -244,9 +244,38 @@ def at_operating_point(spec: LoopSpec, variant: Variant) -> LoopSpec:
         controller, fields=fields, field_locations=locations, location=point.location))
 
 
+#: Controller sides built already in this process: ``(id(controller), h)`` ->
+#: ``(controller, block models, run blocks, notes)``. The variants of a loop
+#: (all but the operating points of a schedule) share their controller entry,
+#: whose blocks and discretization do not depend on the variant. The entry is
+#: kept in the value, so its ``id`` is not reused while the key exists.
+_CONTROLLER_SIDES: dict = {}
+_CONTROLLER_SIDES_MAX = 256
+
+
 def _controller_side(spec: LoopSpec, h: float | None, notes: list[str]
                      ) -> tuple[list[BlockModel], list[Factored]]:
-    """The controller and its filters as designed and as run (in the loop's domain)."""
+    """The controller and its filters as designed and as run (in the loop's domain).
+
+    Remembered per controller entry and sample period (:data:`_CONTROLLER_SIDES`):
+    the same entry gives the same blocks (the same objects) and notes.
+    """
+    key = (id(spec.controller), h)
+    done = _CONTROLLER_SIDES.get(key)
+    if done is not None and done[0] is spec.controller:
+        notes.extend(done[3])
+        return list(done[1]), list(done[2])
+    first = len(notes)
+    block_models, run_blocks = _build_controller_side(spec, h, notes)
+    if len(_CONTROLLER_SIDES) >= _CONTROLLER_SIDES_MAX:
+        _CONTROLLER_SIDES.clear()
+    _CONTROLLER_SIDES[key] = (spec.controller, tuple(block_models), tuple(run_blocks),
+                              tuple(notes[first:]))
+    return block_models, run_blocks
+
+
+def _build_controller_side(spec: LoopSpec, h: float | None, notes: list[str]
+                           ) -> tuple[list[BlockModel], list[Factored]]:
     designed = [controller_block(spec.controller, h)]
     designed += [filter_block(f, h) for f in spec.controller.filters]
     if h is None:

@@ -101,27 +101,69 @@ class DesignedBlock:
 
 # --------------------------------------------------------------- rationals
 # Tiny exact arithmetic on (numerator, denominator) coefficient pairs for the
-# PID forms (degree <= 2 in the end), in descending powers of s.
+# PID forms (degree <= 2 in the end), in descending powers of s, on Python
+# floats: the same operations as numpy's polyadd and polymul (leading zeros
+# trimmed, an all-zero polynomial kept as [0.0]) without their per-call cost.
 
-_Rational = tuple[np.ndarray, np.ndarray]
+_Rational = tuple[list[float], list[float]]
 
 
 def _rat(num, den) -> _Rational:
-    return np.asarray(num, dtype=float), np.asarray(den, dtype=float)
+    return [float(v) for v in num], [float(v) for v in den]
+
+
+def _trimmed(p: list[float]) -> list[float]:
+    """``p`` without leading zeros; ``[0.0]`` when nothing is left (as numpy's poly1d)."""
+    for i, v in enumerate(p):
+        if v != 0.0:
+            return p[i:]
+    return [0.0]
+
+
+def _polyadd(a: list[float], b: list[float]) -> list[float]:
+    """Sum of two polynomials, the shorter padded with leading zeros (no trimming)."""
+    if len(a) < len(b):
+        a = [0.0] * (len(b) - len(a)) + a
+    elif len(b) < len(a):
+        b = [0.0] * (len(a) - len(b)) + b
+    return [x + y for x, y in zip(a, b, strict=True)]
+
+
+def _polymul(a: list[float], b: list[float]) -> list[float]:
+    """Product of two polynomials (the full convolution of the trimmed coefficients).
+
+    Each coefficient of a product of factors of degree <= 1 is a sum of at
+    most two products, whose floating-point value does not depend on the
+    order of summation (tests/test_blocks.py compares with :func:`numpy.polymul`
+    bit for bit); longer factors go to :func:`numpy.polymul`.
+    """
+    a, b = _trimmed(a), _trimmed(b)
+    if min(len(a), len(b)) > 2:
+        return [float(v) for v in np.polymul(a, b)]
+    out = [0.0] * (len(a) + len(b) - 1)  # sums start at +0.0, as numpy's dot does
+    for i, x in enumerate(a):
+        for j, y in enumerate(b):
+            out[i + j] += x * y
+    return out
+
+
+def _same(a: list[float], b: list[float]) -> bool:
+    return len(a) == len(b) and all(x == y for x, y in zip(a, b, strict=True))
 
 
 def _add(x: _Rational, y: _Rational) -> _Rational:
-    if np.array_equal(x[1], y[1]):
-        return np.polyadd(x[0], y[0]), x[1]
-    return np.polyadd(np.polymul(x[0], y[1]), np.polymul(y[0], x[1])), np.polymul(x[1], y[1])
+    if _same(x[1], y[1]):
+        return _polyadd(x[0], y[0]), x[1]
+    return (_polyadd(_polymul(x[0], y[1]), _polymul(y[0], x[1])),
+            _polymul(x[1], y[1]))
 
 
 def _mul(x: _Rational, y: _Rational) -> _Rational:
-    return np.polymul(x[0], y[0]), np.polymul(x[1], y[1])
+    return _polymul(x[0], y[0]), _polymul(x[1], y[1])
 
 
 def _scale(x: _Rational, k: float) -> _Rational:
-    return x[0] * k, x[1]
+    return [v * k for v in x[0]], x[1]
 
 
 # ---------------------------------------------------------------- builders

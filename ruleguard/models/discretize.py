@@ -242,6 +242,8 @@ def _map_roots(roots: np.ndarray, factor, degenerate, scale: float):
     b = np.asarray(b, dtype=complex)
     # a root at q = c (Tustin) or q = 1/h (backward Euler) goes to z = infinity
     at_infinity = np.abs(a) <= 1e-14 * (scale + np.abs(q))
+    if not at_infinity.any():  # the usual case: every root stays finite
+        return -b / a, a, degenerate(q[:0]), common
     finite = ~at_infinity
     mapped = -b[finite] / a[finite]
     return mapped, a[finite], degenerate(q[at_infinity]), common
@@ -580,8 +582,6 @@ def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) ->
     R. H. Middleton, G. C. Goodwin, Digital Control and Estimation: A Unified
     Approach, Prentice Hall, 1990 (the delta operator).
     """
-    from ruleguard.models.matrices import balance_scaling, siso_zeros
-
     n = dss.order
     if n == 0:
         return np.zeros(0, complex)
@@ -592,12 +592,21 @@ def discrete_zeros(dss: DiscreteStateSpace, pole_radius: float | None = None) ->
     pencil[:n, n:] = dss.b / h
     pencil[n:, :n] = dss.c
     pencil[n, n] = dss.d[0, 0]
+    if pole_radius is None:
+        pole_radius = float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
+    return _delta_pencil_zeros(pencil, h, pole_radius)
+
+
+def _delta_pencil_zeros(pencil: np.ndarray, h: float, pole_radius: float) -> np.ndarray:
+    """The discrete zeros ``1 + h delta`` from the delta-form pencil (:func:`discrete_zeros`)."""
+    from ruleguard.models.matrices import balance_scaling, siso_zeros
+
+    n = pencil.shape[0] - 1
     # a diagonal similarity leaves E = diag(I, 0) as it is: balance the
     # pencil (Parlett-Reinsch) so that fast and slow modes have like scales
     t = balance_scaling(pencil)
-    pencil = pencil * t[None, :] / t[:, None]
-    if pole_radius is None:
-        pole_radius = float(np.max(np.abs(np.linalg.eigvals(f)), initial=0.0))
+    if not (t == 1.0).all():  # (x * 1) / 1 is x: nothing to do for a balanced pencil
+        pencil = pencil * t[None, :] / t[:, None]
     radius = 1.0 / h + pole_radius
     gev = siso_zeros(pencil[:n, :n], pencil[:n, n], pencil[n, :n], pencil[n, n], radius)
     if gev is None:  # a delicate feedthrough or a zero block: the QZ algorithm
@@ -652,18 +661,27 @@ def _fit_points() -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 
 def _gain_and_misfit(h: float, zeros: np.ndarray, poles: np.ndarray, z: np.ndarray,
-                     target: np.ndarray) -> tuple[float, float, np.ndarray]:
-    """Least-squares real gain, its largest relative misfit, and the points used (at ``z``)."""
+                     target: np.ndarray, mag: np.ndarray | None = None,
+                     top: float | None = None) -> tuple[float, float, np.ndarray]:
+    """Least-squares real gain, its largest relative misfit, and the points used (at ``z``).
+
+    ``mag`` and ``top`` (``|target|`` and its largest value) may be passed
+    when the caller has them.
+    """
     with np.errstate(all="ignore"):
         shape = Factored(zeros, poles, 1.0, 0.0, h).evaluate(z)
-    mag = np.abs(target)
-    top = float(np.max(mag, initial=0.0))
+    if mag is None or top is None:
+        mag = np.abs(target)
+        top = float(np.max(mag, initial=0.0))
     if top == 0.0:
         return 0.0, 0.0, np.zeros(z.shape, dtype=bool)
     keep = (mag >= 1e-6 * top) & np.isfinite(shape) & (np.abs(shape) > 0)
-    if not np.any(keep):
-        keep = mag >= 0.5 * top
-    ratio = shape[keep] / target[keep]
+    if keep.all():
+        ratio = shape / target  # every point: the same numbers as through the mask
+    else:
+        if not keep.any():
+            keep = mag >= 0.5 * top
+        ratio = shape[keep] / target[keep]
     gain = float(np.real(np.sum(np.conj(ratio))) / np.sum(np.abs(ratio) ** 2))
     resid = float(np.max(np.abs(gain * ratio - 1.0)))
     return gain, resid, keep
@@ -713,24 +731,23 @@ def _modal_equivalent(block: Factored, h: float, delay_s: float) -> Factored | N
     _, z, z_minus_1 = _fit_points()
     target, amplification = modes.evaluate_with_amplification(z, z_minus_1)
     mag = np.abs(target)
-    top = float(np.max(mag, initial=0.0))
-    if not (top > 0.0 and np.isfinite(top)):
+    top = float(mag.max())  # (320 points, all >= 0: the maximum with initial=0)
+    if not (top > 0.0 and math.isfinite(top)):
         return None
     # every point counts (also the deep roll-off): the zeros are computed from
     # the same numbers and must hold their digits where |H| is small too
-    if not float(np.max(amplification)) <= mh.MODAL_AMPLIFICATION_LIMIT:
+    if not float(amplification.max()) <= mh.MODAL_AMPLIFICATION_LIMIT:
         return None
-    a, b, c, d, shifted = modes.real_realization()
-    dss = DiscreteStateSpace(a, b, c, d, h, whole, shifted)
     poles = np.exp(block.poles * h)
-    poles = np.concatenate([poles, np.zeros(int(modes.fraction) + whole, complex)])
+    extra = int(modes.fraction) + whole
+    if extra:
+        poles = np.concatenate([poles, np.zeros(extra, complex)])
     # the eigenvalues of (A - I)/h are known: expm1(p h)/h, and -1/h for the delay state
-    lam = np.abs(modes.lam_minus_one)
-    radius = float(np.max(lam, initial=0.0)) / h
+    radius = float(np.abs(modes.lam_minus_one).max()) / h  # at least one pole
     if modes.fraction:
         radius = max(radius, 1.0 / h)
-    zeros = discrete_zeros(dss, radius)
-    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target)
+    zeros = _delta_pencil_zeros(modes.delta_pencil(), h, radius)
+    gain, resid, _ = _gain_and_misfit(h, zeros, poles, z, target, mag, top)
     if not resid <= mh.MODAL_MISFIT_LIMIT:
         return None
     return Factored(zeros, poles, gain, 0.0, h)

@@ -127,6 +127,8 @@ class FieldReader:
             if default is _MISSING:
                 raise InputError.at(self.location, f"missing required key {key!r}")
             return default
+        if type(value) is float or type(value) is int:  # the common case: no location needed
+            return float(value)
         return to_float(value, self.env, self.where(key), key)
 
     def optional(self, key: str) -> float | None:
@@ -142,6 +144,8 @@ class FieldReader:
 
     def item(self, value: Any, key: str) -> float:
         """A number inside a list or table field (coefficient, root, matrix entry)."""
+        if type(value) is float or type(value) is int:  # the common case: no location needed
+            return float(value)
         return to_float(value, self.env, self.where(key), key)
 
     def raw(self, key: str, default: Any = None) -> Any:

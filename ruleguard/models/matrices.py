@@ -42,6 +42,13 @@ SCHUR_MIN_FEEDTHROUGH = 0.1
 #: (``max(||a||_F, ||b|| ||c|| / |d|)``) are refined on the pencil: their
 #: absolute error is the rounding of those terms.
 REFINE_BELOW = 1e-2
+#: Between ``SCHUR_REFINED_FEEDTHROUGH * ||b|| ||c|| / nu`` and the bound
+#: above, the Schur complement is formed and every zero is refined on the
+#: pencil (``_refined_schur_zeros``); below it the caller's QZ is used.
+SCHUR_REFINED_FEEDTHROUGH = 1e-3
+#: A refined zero has settled when its last Aberth step is below this
+#: fraction of its modulus and of its distance to the other zeros.
+REFINED_SETTLE = 1e-9
 # [H05] coefficients b_0, ..., b_m of the [m/m] Pade numerator p_m(x)
 _PADE = {
     3: (120.0, 60.0, 12.0, 1.0),
@@ -144,6 +151,8 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
     np.fill_diagonal(sq, 0.0)
     if n <= _SMALL_BALANCE:
         return np.array(_balance_small(sq.tolist()))
+    if not _first_step_moves(sq):
+        return t  # balanced already (the first pass of the loop below would stop)
     for _ in range(60):
         col = sq.sum(axis=0)
         row = sq.sum(axis=1)
@@ -174,6 +183,31 @@ def balance_scaling(a: np.ndarray) -> np.ndarray:
         sq = new
         t *= f
     return t
+
+
+def _first_step_moves(sq: np.ndarray) -> bool:
+    """Whether the first pass of the vectorised loop of :func:`balance_scaling` scales anything.
+
+    The same test on Python floats (the sums and ``log2`` by numpy as there;
+    rounding half to even, exact powers of two, correctly rounded square
+    roots), so that a balanced matrix costs a handful of numpy calls.
+    """
+    col = sq.sum(axis=0)
+    row = sq.sum(axis=1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        logs = np.log2(row / col).tolist()
+    for c2, r2, lg in zip(col.tolist(), row.tolist(), logs, strict=True):
+        if not (c2 > 0.0 and r2 > 0.0):
+            continue
+        k = round(0.25 * lg)
+        if k == 0 or not abs(k) < 490:  # t = 1 before the first pass: log2(t) = 0
+            continue
+        f = math.ldexp(1.0, k)
+        c = math.sqrt(c2)
+        r = math.sqrt(r2)
+        if c * f + r / f < 0.95 * (c + r):
+            return True
+    return False
 
 
 #: Up to this order :func:`balance_scaling` runs the sequential loop of
@@ -240,11 +274,17 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     With ``nu`` the larger of ``radius`` and the Frobenius norm of the
     current pencil, ``d`` counts as zero below ``1e-14 ||b|| ||c|| / nu``
     (the next deflation step) and the Schur complement is formed above
-    ``SCHUR_MIN_FEEDTHROUGH ||b|| ||c|| / nu``; in between, and when
-    ``b`` or ``c`` vanishes (a zero block), ``None`` is returned. The sampled
-    plants of ordinary loops (relative degree 1 after sampling) stay far
-    inside the bound (``||b|| ||c|| / (|d| radius)`` below 0.4 for every
-    variant of the demo project).
+    ``SCHUR_MIN_FEEDTHROUGH ||b|| ||c|| / nu``. Down to
+    ``SCHUR_REFINED_FEEDTHROUGH ||b|| ||c|| / nu`` it is formed as well and
+    every zero is then refined on the pencil (the rounding it amplifies is
+    undone there; a zero that does not settle leaves the problem to QZ). In
+    between, and when ``b`` or ``c`` vanishes (a zero block), ``None`` is
+    returned. The sampled plants of ordinary loops (relative degree 1 after
+    sampling) stay far inside the first bound (``||b|| ||c|| / (|d| radius)``
+    below 0.4 for every variant of the demo project); a plant of relative
+    degree 2 whose first sample ``c b`` is small (about ``h^2/2`` of its
+    scale) may fall in the refined band (2 of the 300 loops of
+    ``benchmarks/bench_vs_grid.py``).
 
     Parameters
     ----------
@@ -267,12 +307,7 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
     radius = float(radius)
     if not radius > 0.0:
         return None
-    n = a.shape[0]
-    pencil = np.empty((n + 1, n + 1))
-    pencil[:n, :n] = a
-    pencil[:n, n] = b
-    pencil[n, :n] = c
-    pencil[n, n] = d
+    start = (a, b, c, d)  # the pencil, formed only when small zeros need refining
     while True:
         n = a.shape[0]
         nb2 = float(b @ b)
@@ -296,9 +331,14 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
             # their absolute accuracy only: refine them on the pencil
             terms = max(math.sqrt(na2), nb * nc / abs(d))
             small = np.abs(roots) < REFINE_BELOW * terms
-            if np.any(small):
-                roots[small] = _refine_zeros(pencil, roots, small)
+            if small.any():
+                roots[small] = _refine_zeros(_pencil(*start), roots, small)
             return roots
+        if abs(d) >= SCHUR_REFINED_FEEDTHROUGH * scale and n:
+            # a small feedthrough: the Schur complement amplifies rounding by
+            # up to 1 / SCHUR_REFINED_FEEDTHROUGH, so every zero is refined on
+            # the pencil (backward stable), or the problem goes to QZ
+            return _refined_schur_zeros(_pencil(*start), a, b, c, d)
         if abs(d) > 1e-14 * scale or nc == 0.0 or n == 0:
             return None
         # the largest output weight first (a symmetric permutation): the
@@ -306,23 +346,65 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         # reads one state alone is taken over exactly
         k = int(np.argmax(np.abs(c)))
         if k:
-            order = np.r_[k, 0:k, k + 1:n]
-            a, b, c = a[np.ix_(order, order)], b[order], c[order]
+            order = np.array([k, *range(k), *range(k + 1, n)])
+            a, b, c = a[order[:, None], order], b[order], c[order]  # C-contiguous, as a is
         # Householder v with (I - 2 v v^T / v^T v) c^T = -sign(c_0) ||c|| e_1
         v = c.copy()
         v[0] += math.copysign(nc, c[0])
         beta = 2.0 / float(v @ v)
         # a~ = H a H, b~ = H b
         av = a @ v
-        a = a - beta * np.outer(av, v)
+        a = a - beta * (av[:, None] * v[None, :])  # np.outer, without its call overhead
         va = v @ a
-        a = a - beta * np.outer(v, va)
+        a = a - beta * (v[:, None] * va[None, :])
         b = b - beta * float(v @ b) * v
         a, b, c, d = a[1:, 1:], b[1:], a[0, 1:], float(b[0])
 
 
+def _refined_schur_zeros(pencil: np.ndarray, a: np.ndarray, b: np.ndarray, c: np.ndarray,
+                         d: float) -> np.ndarray | None:
+    """Zeros of a stage with a small feedthrough: Schur complement, then Aberth on the pencil.
+
+    The eigenvalues of ``a - b c / d`` carry an absolute error of about
+    ``eps ||b|| ||c|| / |d|``, at most ``1 / SCHUR_REFINED_FEEDTHROUGH`` times
+    the rounding of the pencil itself. From there every zero is refined on
+    the original pencil (:func:`_refine_zeros`, cubically convergent, each
+    evaluation backward stable), so that the zeros reached are those of a
+    pencil within rounding of the given one, as with QZ. ``None`` (leave it
+    to QZ) when a zero does not settle: a refinement step refused, or the
+    last step larger than ``REFINED_SETTLE`` of the zero's modulus or of its
+    distance to the others.
+    """
+    n = a.shape[0]
+    if n == 1:
+        roots = np.array([a[0, 0] - b[0] / d * c[0]], dtype=complex)
+    else:
+        roots = np.linalg.eigvals(a - np.outer(b / d, c)).astype(complex)
+    every = np.ones(roots.size, dtype=bool)
+    refined, last, ok = _refine_zeros(pencil, roots, every, steps=3, report=True)
+    if not ok:
+        return None
+    gaps = np.abs(refined[:, None] - refined[None, :])
+    np.fill_diagonal(gaps, np.inf)
+    near = np.minimum(np.abs(refined), np.min(gaps, axis=1, initial=np.inf))
+    if not np.all(last <= REFINED_SETTLE * near):
+        return None
+    return refined
+
+
+def _pencil(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float) -> np.ndarray:
+    """``[[a, b], [c, d]]``."""
+    n = a.shape[0]
+    pencil = np.empty((n + 1, n + 1))
+    pencil[:n, :n] = a
+    pencil[:n, n] = b
+    pencil[n, :n] = c
+    pencil[n, n] = d
+    return pencil
+
+
 def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
-                  steps: int = 2) -> np.ndarray:
+                  steps: int = 2, report: bool = False):
     """Aberth-Ehrlich refinement of ``roots[which]``, eigenvalues of ``(M, diag(I, 0))``.
 
     ``det(M - x E)`` is a polynomial whose roots are exactly the finite
@@ -346,12 +428,15 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
     x = roots[which].astype(complex)
     e = np.zeros((n + 1, n + 1))
     e[:n, :n] = np.eye(n)
+    last = np.full(x.size, np.inf)
+    settled = True
     for _ in range(steps):
         mats = pencil[None, :, :] - x[:, None, None] * e[None, :, :]
         try:
             inv = np.linalg.inv(mats)
         except np.linalg.LinAlgError:
-            break  # a root exact to working precision
+            last[:] = 0.0  # a root exact to working precision
+            break
         with np.errstate(all="ignore"):
             logd = -np.trace(inv[:, :n, :n], axis1=1, axis2=2)
             gaps = x[:, None] - x[None, :]
@@ -361,8 +446,14 @@ def _refine_zeros(pencil: np.ndarray, roots: np.ndarray, which: np.ndarray,
         near = np.minimum(np.min(np.abs(gaps), axis=1, initial=np.inf),
                           np.min(np.abs(far), axis=1, initial=np.inf))
         limit = 1e-3 * np.minimum(near, np.abs(x))
-        ok = np.isfinite(step) & (np.abs(step) <= limit)
+        size = np.abs(step)
+        ok = np.isfinite(step) & (size <= limit)
+        if report:
+            settled = bool(np.all(ok | (size == 0.0)))
+            last = np.where(ok | (size == 0.0), size, np.inf)
         if not np.any(ok):
             break
         x = x - np.where(ok, step, 0.0)
+    if report:
+        return x, last, settled
     return x

@@ -105,6 +105,8 @@ class ModalHold:
     fraction: bool
     delay_samples: int
     sample_time_s: float
+    #: ``(upper, real)`` of :func:`_pair_indices` when known (computed once).
+    pairs: tuple[list[int], list[int]] | None = None
 
     def terms(self, z: np.ndarray, z_minus_1: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Mode terms ``(points, modes)`` and the feedthrough term at ``z`` (no ``z^-d``)."""
@@ -147,50 +149,88 @@ class ModalHold:
         ``sigma + j omega``. With a fraction the state is augmented with
         ``u[k - 1]`` as in :func:`ruleguard.models.discretize.zoh_state_space`.
         """
-        upper, real = _pair_indices(self.poles)
+        shifted, b, c, d = self._realization_lists()
+        m = len(b)
+        shifted_a = np.array(shifted, dtype=float).reshape(m, m)
+        return (shifted_a + np.eye(m), np.array(b, dtype=float).reshape(m, 1),
+                np.array(c, dtype=float).reshape(1, m), np.array([[d]], dtype=float), shifted_a)
+
+    def delta_pencil(self) -> np.ndarray:
+        """The system pencil ``[[(A - I)/h, B/h], [C, D]]`` of :meth:`real_realization`.
+
+        The matrix whose invariant zeros
+        (:func:`ruleguard.models.discretize.discrete_zeros`) are the discrete
+        zeros in the delta form, built from the same numbers (equal bit for
+        bit to dividing the realization's ``a - I`` and ``b`` by ``h``).
+        """
+        shifted, b, c, d = self._realization_lists()
+        m = len(b)
+        rows = [shifted[i * m:(i + 1) * m] + [b[i]] for i in range(m)]
+        rows.append(c + [d])
+        pencil = np.array(rows, dtype=float)
+        pencil[:m] /= self.sample_time_s
+        return pencil
+
+    def _realization_lists(self) -> tuple[list[float], list[float], list[float], float]:
+        """``a - I`` (row-major, flat), ``b``, ``c`` and ``d`` of the real realization."""
+        upper, real = self.pairs if self.pairs is not None else _pair_indices(self.poles)
         nu, nr = len(upper), len(real)
         n = 2 * nu + nr
         f = 1 if self.fraction else 0
-        shifted = np.zeros((n + f, n + f))  # a - I
-        b = np.zeros((n + f, 1))
-        c = np.zeros((1, n + f))
+        m = n + f
+        shifted = [0.0] * (m * m)
+        b = [0.0] * m
+        c = [0.0] * m
         # pairs: states 2k, 2k + 1 (k < nu); a function of the rotation block
         # of q is the rotation block of the function, rot(q) @ [0, t] = t [Im q, Re q]
-        r = self.residue[upper]
-        t = np.sqrt(2.0 * np.abs(r))
-        t = np.where(t > 0.0, t, 1.0)
-        lam = self.lam_minus_one[upper]
-        first = np.arange(0, 2 * nu, 2)
-        second = first + 1
-        shifted[first, first] = lam.real
-        shifted[first, second] = lam.imag
-        shifted[second, first] = -lam.imag
-        shifted[second, second] = lam.real
-        b[first, 0] = self.q0[upper].imag * t
-        b[second, 0] = self.q0[upper].real * t
-        if f:
-            shifted[first, n] = self.q1[upper].imag * t
-            shifted[second, n] = self.q1[upper].real * t
-        c[0, first] = -2.0 * r.imag / t
-        c[0, second] = 2.0 * r.real / t
+        if nu:
+            r = self.residue[upper]
+            t = np.sqrt(2.0 * np.abs(r))
+            t = np.where(t > 0.0, t, 1.0)
+            lam = self.lam_minus_one[upper]
+            q0 = self.q0[upper]
+            lam_re, lam_im = lam.real.tolist(), lam.imag.tolist()
+            b_first, b_second = (q0.imag * t).tolist(), (q0.real * t).tolist()
+            c_first, c_second = (-2.0 * r.imag / t).tolist(), (2.0 * r.real / t).tolist()
+            if f:
+                q1 = self.q1[upper]
+                g_first, g_second = (q1.imag * t).tolist(), (q1.real * t).tolist()
+            for k in range(nu):
+                i, j = 2 * k, 2 * k + 1
+                shifted[i * m + i] = lam_re[k]
+                shifted[i * m + j] = lam_im[k]
+                shifted[j * m + i] = -lam_im[k]
+                shifted[j * m + j] = lam_re[k]
+                b[i], b[j] = b_first[k], b_second[k]
+                c[i], c[j] = c_first[k], c_second[k]
+                if f:
+                    shifted[i * m + n] = g_first[k]
+                    shifted[j * m + n] = g_second[k]
         # real poles: states 2 nu ..
-        rr = self.residue[real].real
-        tr = np.sqrt(np.abs(rr))
-        tr = np.where(tr > 0.0, tr, 1.0)
-        idx = np.arange(2 * nu, n)
-        shifted[idx, idx] = self.lam_minus_one[real].real
-        b[idx, 0] = self.q0[real].real * tr
+        if nr:
+            rr = self.residue[real].real
+            tr = np.sqrt(np.abs(rr))
+            tr = np.where(tr > 0.0, tr, 1.0)
+            lam_r = self.lam_minus_one[real].real.tolist()
+            b_real = (self.q0[real].real * tr).tolist()
+            c_real = (rr / tr).tolist()
+            if f:
+                g_real = (self.q1[real].real * tr).tolist()
+            for k in range(nr):
+                i = 2 * nu + k
+                shifted[i * m + i] = lam_r[k]
+                b[i] = b_real[k]
+                c[i] = c_real[k]
+                if f:
+                    shifted[i * m + n] = g_real[k]
         if f:
-            shifted[idx, n] = self.q1[real].real * tr
-        c[0, idx] = rr / tr
-        if f:
-            shifted[n, n] = -1.0
-            b[n, 0] = 1.0
-            c[0, n] = self.feedthrough
-            d = np.zeros((1, 1))
+            shifted[n * m + n] = -1.0
+            b[n] = 1.0
+            c[n] = self.feedthrough
+            d = 0.0
         else:
-            d = np.array([[self.feedthrough]])
-        return shifted + np.eye(n + f), b, c, d, shifted
+            d = self.feedthrough
+        return shifted, b, c, float(d)
 
 
 def _pair_indices(poles: np.ndarray) -> tuple[list[int], list[int]]:
@@ -213,10 +253,11 @@ def residues(block: Factored) -> np.ndarray | None:
     if n == 0:
         return np.zeros(0, complex)
     diff = p[:, None] - p[None, :]
-    off = ~np.eye(n, dtype=bool)
+    off = _off_diagonal(n)
     others = diff[off].reshape(n, n - 1)
-    mag = np.maximum(np.abs(p)[:, None], np.abs(p)[None, :])[off].reshape(n, n - 1)
-    if n > 1 and np.any(np.abs(others) <= MODAL_SEPARATION_RTOL * np.maximum(mag, 1e-300)):
+    size = np.abs(p)
+    mag = np.maximum(size[:, None], size[None, :])[off].reshape(n, n - 1)
+    if n > 1 and (np.abs(others) <= MODAL_SEPARATION_RTOL * np.maximum(mag, 1e-300)).any():
         return None
     zf = p[:, None] - block.zeros[None, :]
     m = zf.shape[1]
@@ -228,9 +269,23 @@ def residues(block: Factored) -> np.ndarray | None:
         out = out * np.prod(zf[:, k:], axis=1)
     if n - 1 > k:
         out = out / np.prod(others[:, k:], axis=1)
-    if not np.all(np.isfinite(out)):
+    if not np.isfinite(out).all():
         return None
     return out
+
+
+_OFF_DIAGONAL: dict[int, np.ndarray] = {}
+
+
+def _off_diagonal(n: int) -> np.ndarray:
+    """The mask ``~eye(n)`` (kept per order, read-only)."""
+    mask = _OFF_DIAGONAL.get(n)
+    if mask is None:
+        mask = ~np.eye(n, dtype=bool)
+        mask.flags.writeable = False
+        if len(_OFF_DIAGONAL) < 64:
+            _OFF_DIAGONAL[n] = mask
+    return mask
 
 
 def _psi(p: np.ndarray, t: float) -> np.ndarray:
@@ -264,13 +319,18 @@ def modal_hold(block: Factored, sample_time_s: float, whole: int, fraction: floa
     h = float(sample_time_s)
     p = block.poles
     feed = block.gain if block.zeros.size == block.poles.size else 0.0
+    lam_minus_one = np.expm1(p * h)
     if fraction > 0.0:
         rest = h - fraction * h
         q0 = _psi(p, rest)
         q1 = np.exp(p * rest) * _psi(p, fraction * h)
+        if not (np.isfinite(q0).all() and np.isfinite(q1).all()):
+            return None
     else:
-        q0 = _psi(p, h)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            q0 = np.where(p == 0, h, lam_minus_one / p)  # _psi(p, h), from the same expm1
         q1 = np.zeros_like(q0)
-    if not (np.all(np.isfinite(q0)) and np.all(np.isfinite(q1))):
-        return None
-    return ModalHold(p, r, np.expm1(p * h), q0, q1, float(feed), fraction > 0.0, int(whole), h)
+        if not np.isfinite(q0).all():
+            return None
+    return ModalHold(p, r, lam_minus_one, q0, q1, float(feed), fraction > 0.0, int(whole), h,
+                     (upper, real))

@@ -41,7 +41,11 @@ from ruleguard.errors import InputError
 from ruleguard.load.spec import PlantEntry
 from ruleguard.models.fieldvalues import FieldReader, is_expression, resolve_parameters
 from ruleguard.models.lti import Factored, MeasuredResponse, StateSpace
-from ruleguard.models.polynomials import polynomial_roots, second_order_roots
+from ruleguard.models.polynomials import (
+    polynomial_roots,
+    second_order_pair,
+    second_order_roots,
+)
 
 TWO_PI = 2.0 * math.pi
 
@@ -127,17 +131,17 @@ def _roots(reader: FieldReader, key: str) -> np.ndarray:
     roots: list[complex] = []
     for i, item in enumerate(raw):
         where = f"{key}.{i}"
-        if isinstance(item, Mapping):
-            if set(item) == {"re", "im"}:
+        if type(item) is dict or isinstance(item, Mapping):
+            if item.keys() == {"re", "im"}:
                 re = reader.item(item["re"], where)
                 im = reader.item(item["im"], where)
                 roots.extend([complex(re, im), complex(re, -im)])
-            elif set(item) == {"freq_hz", "damping"}:
+            elif item.keys() == {"freq_hz", "damping"}:
                 f = reader.item(item["freq_hz"], where)
                 zeta = reader.item(item["damping"], where)
                 if not f > 0:
                     raise InputError.at(reader.where(key), f"{where}.freq_hz must be positive")
-                roots.extend(second_order_roots(TWO_PI * f, zeta))
+                roots.extend(second_order_pair(TWO_PI * f, zeta))
             else:
                 raise InputError.at(reader.where(key),
                                     f"{where}: expected {{re, im}} or {{freq_hz, damping}}")

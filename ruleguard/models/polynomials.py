@@ -29,6 +29,11 @@ from ruleguard.models.lti import Factored
 
 def strip_leading_zeros(coefficients: Sequence[float]) -> np.ndarray:
     """Drop exactly-zero leading coefficients (descending powers)."""
+    if type(coefficients) is list and all(type(v) is float for v in coefficients):
+        for i, v in enumerate(coefficients):  # a short list of floats: no numpy calls
+            if v != 0.0:
+                return np.array(coefficients[i:], dtype=float)
+        return np.zeros(0)
     c = np.asarray(coefficients, dtype=float).reshape(-1)
     nonzero = np.flatnonzero(c != 0.0)
     if nonzero.size == 0:
@@ -94,16 +99,21 @@ def second_order_roots(w: float, zeta: float) -> np.ndarray:
     and ``w^2`` divided by it (no cancellation). Negative damping gives
     right-half-plane roots, as the formula says.
     """
+    return np.array(second_order_pair(w, zeta), dtype=complex)
+
+
+def second_order_pair(w: float, zeta: float) -> tuple[complex, complex]:
+    """:func:`second_order_roots` as two Python complex numbers (the same values)."""
     w = float(w)
     zeta = float(zeta)
     if w == 0.0:
-        return np.zeros(2, dtype=complex)
+        return 0j, 0j
     if abs(zeta) < 1.0:
         im = abs(w) * math.sqrt(1.0 - zeta * zeta)
         re = -zeta * abs(w)
-        return np.array([complex(re, im), complex(re, -im)])
+        return complex(re, im), complex(re, -im)
     r1 = -abs(w) * (zeta + math.copysign(math.sqrt(zeta * zeta - 1.0), zeta))
-    return np.array([r1, w * w / r1], dtype=complex)
+    return complex(r1), complex(w * w / r1)
 
 
 def trim_common_trailing_zeros(
