@@ -34,3 +34,4 @@ class DeferredModule:
 
 numpy: Any = DeferredModule("numpy")
 discretize: Any = DeferredModule("ruleguard.models.discretize")
+arrays: Any = DeferredModule("ruleguard.models.arrays")

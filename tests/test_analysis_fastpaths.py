@@ -48,14 +48,6 @@ def test_geometric_is_numpy_geomspace():
         assert np.array_equal(C._geometric(lo, hi, n), np.geomspace(lo, hi, n))
 
 
-def test_sorted_unique_is_numpy_unique():
-    # reference: numpy.unique (sorted, repeats dropped)
-    rng = np.random.default_rng(1)
-    for size in (0, 1, 2, 5, 50, 400):
-        w = np.round(rng.uniform(0.0, 30.0, size), 1)
-        assert np.array_equal(C._sorted_unique(w), np.unique(w))
-
-
 def test_insert_after_is_numpy_insert():
     # reference: numpy.insert(a, idx + 1, new)
     rng = np.random.default_rng(2)

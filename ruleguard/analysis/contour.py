@@ -57,6 +57,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.models.arrays import sorted_unique
 from ruleguard.models.lti import Factored
 
 #: The curve passes through a point ``p`` when ``min |L - p| <= CRITICAL_TOL * max(1, |p|)``.
@@ -376,7 +377,7 @@ class SampledContour:
         w_new = w_new[(w_new > br.w[0]) & (w_new < br.w[-1])]
         if w_new.size == 0:
             return
-        w = np.unique(np.concatenate([br.w, w_new]))
+        w = sorted_unique(np.concatenate([br.w, w_new]))
         L = np.empty(w.size, dtype=complex)
         old = np.isin(w, br.w)
         L[old] = br.L[np.searchsorted(br.w, w[old])]
@@ -683,7 +684,7 @@ def _seeds(rational: RationalResponse, open_loop: OpenLoop, a: float, b: float,
         pts.append(np.asarray(f.grid(), dtype=float))
     w = np.concatenate(pts)
     w = w[np.isfinite(w) & (w >= a) & (w <= b)]
-    return _sorted_unique(w)
+    return sorted_unique(w)
 
 
 #: Seeds around each root, in units of its distance to the contour.
@@ -715,17 +716,6 @@ def _geometric(lo: float, hi: float, n: int) -> np.ndarray:
     out[0] = lo
     out[-1] = hi
     return out
-
-
-def _sorted_unique(w: np.ndarray) -> np.ndarray:
-    """``np.unique(w)`` for a 1-d float array without NaN: sorted, repeats dropped."""
-    w = np.sort(w)
-    if w.size < 2:
-        return w
-    keep = np.empty(w.size, dtype=bool)
-    keep[0] = True
-    np.not_equal(w[1:], w[:-1], out=keep[1:])
-    return w[keep]
 
 
 def _halves_bound(rational: RationalResponse, a: np.ndarray, mid: np.ndarray,

@@ -25,6 +25,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ruleguard.analysis.contour import SampledContour, _minimize
+from ruleguard.models.arrays import sorted_unique
 
 #: Crossings of the negative real axis with ``|L|`` below this stand for k -> inf.
 NEGLIGIBLE_GAIN = 1e-10
@@ -190,7 +191,7 @@ def unit_gain_crossings(contour: SampledContour) -> np.ndarray:
             out.append(np.array([w_end]))
     if not out:
         return np.zeros(0)
-    return np.unique(np.concatenate(out))
+    return sorted_unique(np.concatenate(out))
 
 
 def _end_samples(contour: SampledContour):

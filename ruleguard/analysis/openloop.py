@@ -15,6 +15,7 @@ from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from ruleguard.models.arrays import sorted_unique
 from ruleguard.models.lti import Factored
 
 
@@ -124,4 +125,4 @@ class OpenLoop:
         for f in self.factors:
             parts.append(np.asarray(f.grid(), dtype=float))
         w = np.concatenate(parts) if parts else np.zeros(0)
-        return np.unique(w[np.isfinite(w) & (w > 0)])
+        return sorted_unique(w[np.isfinite(w) & (w > 0)])

@@ -23,6 +23,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ruleguard.models.arrays import sorted_unique
+
 #: Relative tolerance within which a pole counts as lying on the stability
 #: boundary (imaginary axis or unit circle). A continuous pole p is on the
 #: boundary when ``|Re p| <= BOUNDARY_RTOL * max(|p|, 1e-300)`` or
@@ -233,7 +235,7 @@ class Factored:
             nz = roots[np.abs(roots) > 1e-300]
             w = np.abs(np.log(nz)) / self.sample_time_s
         w = w[np.isfinite(w) & (w > 0)]
-        return np.unique(w)
+        return sorted_unique(w)
 
     # ----------------------------------------------------------- composition
     def __mul__(self, other: Factored) -> Factored:

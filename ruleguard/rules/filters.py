@@ -27,7 +27,7 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
-from ruleguard.deferred import discretize
+from ruleguard.deferred import arrays, discretize
 from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import (
@@ -312,7 +312,7 @@ def _peaks_db(open_loop, resonances: list[tuple[float, float]],
         return [(float(w_peak), -math.inf) for w_peak, _ in resonances]
     grids = []
     for (w_peak, _), (lo, hi) in zip(resonances, windows, strict=True):
-        w = np.unique(np.concatenate([np.linspace(lo, hi, 801), [min(w_peak, hi)]]))
+        w = arrays.sorted_unique(np.concatenate([np.linspace(lo, hi, 801), [min(w_peak, hi)]]))
         grids.append(w[w > 0])
 
     def values(x):

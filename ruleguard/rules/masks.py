@@ -17,6 +17,7 @@ import math
 from collections.abc import Iterable, Mapping
 from typing import Any
 
+from ruleguard.deferred import arrays
 from ruleguard.deferred import numpy as np
 from ruleguard.rules.base import LoopContext, Severity, Violation
 from ruleguard.rules.evidence import db, format_number, note, unanalysed_notes, variant_id
@@ -70,7 +71,7 @@ def _worst_excess(model, signal, bound_f, bound_db, sign, top):
     if w_hi > w_lo:
         w = dense_grid(w_lo, w_hi, blocks)
         breaks = 2.0 * math.pi * bound_f
-        w = np.unique(np.concatenate([w, breaks[(breaks >= w_lo) & (breaks <= w_hi)]]))
+        w = arrays.sorted_unique(np.concatenate([w, breaks[(breaks >= w_lo) & (breaks <= w_hi)]]))
     else:
         w = np.array([w_lo])
 

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
+from ruleguard.deferred import arrays
 from ruleguard.deferred import numpy as np
 
 SIGNALS = ("loop", "sensitivity", "complementary", "controller")
@@ -83,7 +84,7 @@ def dense_grid(
                 parts.append(wn * (1.0 + np.linspace(-half, half, 41)))
     w = np.concatenate(parts)
     w = w[np.isfinite(w) & (w >= w_lo) & (w <= w_hi)]
-    return np.unique(w)
+    return arrays.sorted_unique(w)
 
 
 def refine_maximum(
