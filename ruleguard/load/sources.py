@@ -39,7 +39,7 @@ from ruleguard.load.positions import (
     text_offset,
     toml_key_by_text,
 )
-from ruleguard.location import Location
+from ruleguard.location import Location, deferred_location
 
 try:  # Python >= 3.11
     import tomllib
@@ -115,10 +115,17 @@ class Document:
         return source_map.get((), (1, 1)) if self.text else (None, None)
 
     def locate(self, path: KeyPath | list = ()) -> Location:
-        """:class:`Location` of ``path`` (falling back to the nearest ancestor)."""
-        path = tuple(path)
-        line, column = self.position(path)
-        return Location(self.file, line, column, format_key(path))
+        """:class:`Location` of ``path`` (falling back to the nearest ancestor).
+
+        Deferred (:func:`~ruleguard.location.deferred_location`): the source
+        map is built, and the line, column and key worked out, only when
+        something reads them (a message, a finding, a report).
+        """
+        return deferred_location(self.file, self, tuple(path))
+
+    def key_text(self, path: KeyPath) -> str:
+        """The dotted key of ``path`` (:func:`format_key`)."""
+        return format_key(path)
 
     def error(self, path: KeyPath | list, message: str) -> InputError:
         """An :class:`InputError` at ``path`` of this document."""
