@@ -19,9 +19,11 @@ choice of library is explained there).
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import re
+import stat
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
@@ -184,7 +186,21 @@ def resolve_inside(root: str | Path, rel_path: str, origin: Location | None = No
     for absolute paths, paths through ``..`` or symlinks leaving ``root``,
     missing files and non-regular files.
     """
-    root_path = Path(root).resolve()
+    return Path(_contained(root, rel_path, origin)[0])
+
+
+def _contained(
+    root: str | Path, rel_path: str, origin: Location | None
+) -> tuple[str, str, os.stat_result]:
+    """:func:`resolve_inside` on strings: (real path, name relative to ``root``
+    with ``/``, the file's ``os.stat``).
+
+    The steps and errors of ``Path.resolve(strict=False)``, ``is_relative_to``,
+    ``exists`` and ``is_file`` in that order, with one ``stat`` for them all
+    (pathlib objects cost more than the file system calls here: a project
+    reads one file per loop).
+    """
+    root_real = str(Path(root).resolve())
     shown = str(rel_path)
     if not isinstance(rel_path, str) or not rel_path.strip():
         raise _origin_error(origin, shown, "expected a relative file path, found an empty name")
@@ -199,25 +215,48 @@ def resolve_inside(root: str | Path, rel_path: str, origin: Location | None = No
             f"'{rel_path}' is an absolute path; files must be given relative to the "
             "project folder and stay inside it",
         )
-    candidate = root_path / rel_path
+    real = os.path.realpath(os.path.join(root_real, rel_path))
+    status: os.stat_result | None = None
+    failure: OSError | None = None
     try:
-        resolved = candidate.resolve(strict=False)
-    except (OSError, RuntimeError):  # symlink loops
-        raise _origin_error(
-            origin, shown, f"cannot resolve '{rel_path}': it is a loop of symbolic links"
-        ) from None
-    if not resolved.is_relative_to(root_path):
+        status = os.stat(real)
+    except OSError as exc:
+        failure = exc
+        if exc.errno == errno.ELOOP or getattr(exc, "winerror", 0) == 1921:  # symlink loops
+            raise _origin_error(
+                origin, shown, f"cannot resolve '{rel_path}': it is a loop of symbolic links"
+            ) from None
+    name = _relative(real, root_real)
+    if name is None:
         raise _origin_error(
             origin,
             shown,
             f"'{rel_path}' resolves outside the project folder; ruleguard reads only files "
             "inside the manifest's folder (symlinks included)",
         )
-    if not resolved.exists():
+    if status is None:
+        if failure is not None and failure.errno not in _MISSING:
+            raise failure  # as Path.exists would
         raise _origin_error(origin, shown, f"file '{rel_path}' does not exist")
-    if not resolved.is_file():
+    if not stat.S_ISREG(status.st_mode):
         raise _origin_error(origin, shown, f"'{rel_path}' is not a regular file")
-    return resolved
+    return real, name, status
+
+
+#: errno values for which ``Path.exists`` answers False (pathlib's ``_IGNORED_ERRNOS``).
+_MISSING = (errno.ENOENT, errno.ENOTDIR, errno.EBADF, errno.ELOOP)
+
+
+def _relative(real: str, root_real: str) -> str | None:
+    """``real`` relative to the folder ``root_real`` with ``/`` (``Path.relative_to``),
+    ``None`` outside it."""
+    if os.path.normcase(real) == os.path.normcase(root_real):
+        return "."
+    prefix = root_real if root_real.endswith(os.sep) else root_real + os.sep
+    if not os.path.normcase(real).startswith(os.path.normcase(prefix)):
+        return None
+    name = real[len(prefix):]
+    return name if os.sep == "/" else name.replace(os.sep, "/")
 
 
 def relative_name(root: str | Path, path: Path) -> str:
@@ -235,23 +274,23 @@ def read_text(
 
     Empty, oversized and binary files are input errors.
     """
-    return _read_resolved(root, resolve_inside(root, rel_path, origin), origin, max_bytes)
+    return _read_contained(_contained(root, rel_path, origin), origin, max_bytes)
 
 
-def _read_resolved(
-    root: str | Path, resolved: Path, origin: Location | None, max_bytes: int
+def _read_contained(
+    found: tuple[str, str, os.stat_result], origin: Location | None, max_bytes: int
 ) -> tuple[str, str]:
-    """:func:`read_text` of a path :func:`resolve_inside` already gave."""
-    name = relative_name(root, resolved)
+    """:func:`read_text` of a file :func:`_contained` already found."""
+    real, name, status = found
     try:
-        size = resolved.stat().st_size
+        size = status.st_size
         if size > max_bytes:
             raise _origin_error(
                 origin,
                 name,
                 f"'{name}' is {size} bytes; input files are limited to {max_bytes} bytes",
             )
-        with open(resolved, "rb") as handle:
+        with open(real, "rb") as handle:
             raw = handle.read(max_bytes + 1)
     except OSError as exc:
         raise _origin_error(origin, name, f"cannot read '{name}': {exc.strerror}") from None
@@ -329,9 +368,9 @@ def read_document(
     InputError
         Containment, size, encoding or syntax problems, located.
     """
-    resolved = resolve_inside(root, rel_path, origin)  # containment first, whatever the name says
+    found = _contained(root, rel_path, origin)  # containment first, whatever the name says
     fmt = format_of(str(rel_path), origin)
-    name, text = _read_resolved(root, resolved, origin, max_bytes)
+    name, text = _read_contained(found, origin, max_bytes)
     return parse_text(name, text, fmt)
 
 
@@ -472,9 +511,9 @@ def read_firmware(
     C file (:mod:`ruleguard.load.c_source`). The readers of C, YAML and
     key-value files are imported on first use only.
     """
-    resolved = resolve_inside(root, rel_path, origin)
+    found = _contained(root, rel_path, origin)
     fmt = firmware_format_of(str(rel_path), fmt, origin)
-    name, text = _read_resolved(root, resolved, origin, MAX_FILE_BYTES)
+    name, text = _read_contained(found, origin, MAX_FILE_BYTES)
     if fmt in ("toml", "json"):
         return parse_text(name, text, fmt)
     try:
