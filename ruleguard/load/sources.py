@@ -41,6 +41,7 @@ from ruleguard.load.positions import (
     text_offset,
     toml_key_by_text,
 )
+from ruleguard.load.toml_subset import read_plain_toml
 from ruleguard.location import Location, deferred_location
 
 try:  # Python >= 3.11
@@ -387,6 +388,9 @@ _TOML_POSITION = re.compile(r"\(at line (\d+), column (\d+)\)")
 
 
 def _parse_toml(name: str, text: str) -> Any:
+    plain = read_plain_toml(text)  # the same value, quicker, or None
+    if plain is not None:
+        return plain
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
