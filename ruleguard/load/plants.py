@@ -16,6 +16,7 @@ Sensors are entries of the same registry.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from math import isfinite
 from pathlib import Path
 from typing import Any
 
@@ -220,6 +221,10 @@ def build_entry(
     return entry
 
 
+#: Integer fields, kept as they are.
+_WHOLE_NUMBERS = ("unstable_poles", "integrators")
+
+
 def _convert(
     value: Any,
     path: KeyPath,
@@ -228,9 +233,11 @@ def _convert(
     key: str,
 ) -> Any:
     """Numbers -> float, strings -> Expression in number positions, recursively."""
+    if type(value) is float and key not in _WHOLE_NUMBERS and isfinite(value):
+        return value  # what number_or_expression gives (its location is for errors only)
     if isinstance(value, bool):  # excluded by the schemas; kept for safety
         raise document.error(path, "expected a number, found a boolean")
-    if isinstance(value, (int, float)) and key not in ("unstable_poles", "integrators"):
+    if isinstance(value, (int, float)) and key not in _WHOLE_NUMBERS:
         return number_or_expression(value, document.locate(path))
     if isinstance(value, int):
         return value
@@ -240,9 +247,10 @@ def _convert(
         return number_or_expression(value, document.locate(path))
     if isinstance(value, list):
         items = []
+        prefix = ".".join(str(p) for p in path[2:])
         for index, item in enumerate(value):
             sub = path + (index,)
-            field_locations[".".join(str(p) for p in sub[2:])] = document.locate(sub)
+            field_locations[f"{prefix}.{index}" if prefix else str(index)] = document.locate(sub)
             items.append(_convert(item, sub, document, field_locations, key))
         return items
     if isinstance(value, dict):

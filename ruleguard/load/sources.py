@@ -201,7 +201,7 @@ def _contained(
     (pathlib objects cost more than the file system calls here: a project
     reads one file per loop).
     """
-    root_real = str(Path(root).resolve())
+    root_real = _real_folder(root)
     shown = str(rel_path)
     if not isinstance(rel_path, str) or not rel_path.strip():
         raise _origin_error(origin, shown, "expected a relative file path, found an empty name")
@@ -242,6 +242,17 @@ def _contained(
     if not stat.S_ISREG(status.st_mode):
         raise _origin_error(origin, shown, f"'{rel_path}' is not a regular file")
     return real, name, status
+
+
+def _real_folder(root: str | Path) -> str:
+    """``str(Path(root).resolve())`` (non-strict: a symlink loop is a RuntimeError)."""
+    real = os.path.realpath(root)
+    try:
+        os.stat(real)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP or getattr(exc, "winerror", 0) == 1921:
+            raise RuntimeError(f"Symlink loop from {exc.filename!r}") from None
+    return real
 
 
 #: errno values for which ``Path.exists`` answers False (pathlib's ``_IGNORED_ERRNOS``).
