@@ -245,30 +245,47 @@ def _convert(
         if key in ("file", "output", "magnitude_unit"):
             return value
         return number_or_expression(value, document.locate(path))
+    plain = key not in _WHOLE_NUMBERS  # (a finite float item is kept as it is, as above)
     if isinstance(value, list):
         items = []
         prefix = ".".join(str(p) for p in path[2:])
         for index, item in enumerate(value):
             sub = path + (index,)
             field_locations[f"{prefix}.{index}" if prefix else str(index)] = document.locate(sub)
-            items.append(_convert(item, sub, document, field_locations, key))
+            if type(item) is float and plain and isfinite(item):
+                items.append(item)
+            else:
+                items.append(_convert(item, sub, document, field_locations, key))
         return items
     if isinstance(value, dict):
-        return {
-            k: _convert(v, path + (k,), document, field_locations, key) for k, v in value.items()
-        }
+        table = {}
+        for k, v in value.items():
+            if type(v) is float and plain and isfinite(v):
+                table[k] = v
+            else:
+                table[k] = _convert(v, path + (k,), document, field_locations, key)
+        return table
     return value
 
 
-def _expressions(value: Any):
+def _expressions(value: Any) -> list[Expression]:
+    """The expressions in ``value`` (nested lists and tables), in order."""
+    found: list[Expression] = []
+    _collect_expressions(value, found)
+    return found
+
+
+def _collect_expressions(value: Any, found: list[Expression]) -> None:
     if isinstance(value, Expression):
-        yield value
+        found.append(value)
     elif isinstance(value, list):
         for item in value:
-            yield from _expressions(item)
+            if type(item) is not float:
+                _collect_expressions(item, found)
     elif isinstance(value, dict):
         for item in value.values():
-            yield from _expressions(item)
+            if type(item) is not float:
+                _collect_expressions(item, found)
 
 
 def _check_names(parameters: Mapping[str, Any], fields: Mapping[str, Any], name: str) -> None:

@@ -26,7 +26,7 @@ import re
 import stat
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from pathlib import Path, PurePosixPath
+from pathlib import Path
 from typing import Any
 
 from ruleguard.errors import InputError
@@ -207,9 +207,9 @@ def _contained(
         raise _origin_error(origin, shown, "expected a relative file path, found an empty name")
     if "\x00" in rel_path:
         raise _origin_error(origin, shown, "a file path may not contain a NUL character")
-    if os.path.isabs(rel_path) or PurePosixPath(rel_path).is_absolute() or re.match(
+    if os.path.isabs(rel_path) or rel_path.startswith("/") or re.match(
         r"^[A-Za-z]:[\\/]", rel_path
-    ):
+    ):  # (a POSIX path is absolute when it starts with "/")
         raise _origin_error(
             origin,
             shown,
@@ -333,8 +333,16 @@ def _read_contained(
     return name, text
 
 
+def _suffix(name: str) -> str:
+    """``PurePosixPath(name).suffix`` (the last component's, "" for none)."""
+    parts = [part for part in name.split("/") if part and part != "."]
+    last = parts[-1] if parts else ""
+    dot = last.rfind(".")
+    return last[dot:] if 0 < dot < len(last) - 1 else ""
+
+
 def _kind_of(name: str) -> str:
-    suffix = PurePosixPath(name).suffix.lower()
+    suffix = _suffix(name).lower()
     return {
         ".toml": "TOML", ".json": "JSON", ".csv": "CSV", ".h": "C", ".hpp": "C", ".c": "C",
         ".yaml": "YAML", ".yml": "YAML", ".params": "parameter", ".cfg": "parameter",
@@ -343,7 +351,7 @@ def _kind_of(name: str) -> str:
 
 def format_of(name: str, origin: Location | None = None) -> str:
     """``"toml"`` or ``"json"`` by extension."""
-    suffix = PurePosixPath(name).suffix.lower()
+    suffix = _suffix(name).lower()
     if suffix == ".toml":
         return "toml"
     if suffix == ".json":
@@ -500,7 +508,7 @@ def firmware_format_of(name: str, declared: str | None, origin: Location | None 
     """The format of a firmware file: ``declared`` (the binding's ``format``) or by extension."""
     if declared is not None:
         return declared
-    suffix = PurePosixPath(name).suffix.lower()
+    suffix = _suffix(name).lower()
     for fmt, suffixes in FIRMWARE_FORMATS.items():
         if suffix in suffixes:
             return fmt

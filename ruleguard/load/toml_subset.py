@@ -42,7 +42,7 @@ _ARRAY_TABLE = re.compile(r"[ \t]*\[\[[ \t]*(" + _KEYS + r")[ \t]*\]\][ \t]*")
 _PAIR = re.compile(r"[ \t]*([A-Za-z0-9_-]+)[ \t]*=(.*)")
 _NUMBER = re.compile(r"-?(?:0|[1-9][0-9]*)(\.[0-9]+)?([eE][+-]?[0-9]+)?")
 _STRING = re.compile(r"\"[^\"\\]*\"")
-_INNER_KEY = re.compile(r"(?<=[{,])([ \t]*)([A-Za-z0-9_-]+)[ \t]*=")
+_INNER_KEY = re.compile(r"(?<=[{,])[ \t]*([A-Za-z0-9_-]+)[ \t]*=")
 
 
 class _NotPlain(Exception):
@@ -79,7 +79,9 @@ def _value(text: str) -> Any:
         raise _NotPlain  # the keys below are found by their "="
     if ":" in text and ":" in _STRING.sub("", text):
         raise _NotPlain  # not TOML, though JSON
-    converted = _INNER_KEY.sub(r'\1"\2":', text)
+    parts = _INNER_KEY.split(text)  # [text, key, text, key, ..., text]
+    parts[1::2] = [f'"{key}":' for key in parts[1::2]]
+    converted = "".join(parts)
     if "null" in converted:
         raise _NotPlain  # JSON's null, which TOML lacks (or a string holding the word)
     try:
