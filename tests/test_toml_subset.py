@@ -97,6 +97,8 @@ PLAIN = [
     "big = 123456789012345678901234567890\n",
     "f = 1e400\n",
     "i = { 1 = 2, x-y = 3 }\n",
+    '[rules."margin.phase"]\nmin_deg = 30.0\n[rules."a b"]\n[rules.c."d.e"]\n[""]\n',
+    '[[w."x.y"]]\na = 1\n[[w."x.y"]]\n[w."x.y".z]\n',
 ]
 
 DECLINED_OR_EQUAL = [
@@ -164,6 +166,13 @@ DECLINED_OR_EQUAL = [
     "[[a.b]]\n[a]\n",
     "a = [[1], [2]]\n[[a]]\n",
     "a = [" * 40 + "]" * 40 + "\n",
+    '[a."b"]\n[a.b]\n',
+    '[a."b\\nc"]\n',
+    '[a."b\tc"]\n',
+    '[a."b]\n',
+    '[a.""b""]\n',
+    '[a."b".]\n',
+    "[a.'b']\n",
 ]
 
 
@@ -184,7 +193,8 @@ def test_edge_cases_are_declined_or_equal(text):
         assert repr(quick) == repr(reference)
 
 
-_WORDS = st.sampled_from(["a", "b", "c", "a.b", "b.c", "1", "x-y", '"a"', "a b", ""])
+_WORDS = st.sampled_from(["a", "b", "c", "a.b", "b.c", "1", "x-y", '"a"', "a b", "",
+                          '"a.b"', 'a."b"', '"a".b', '""', '"a" . b', '"x\tc"', "'a'"])
 _SCALARS = st.sampled_from([
     "1", "-0", "0.5", "1e3", "1E-2", "-7.25", "12345678901234567890", "true", "false",
     '"s"', '""', '"a,b"', '"a=b"', '"{x}"', '"#"', "'lit'", "nan", "inf", "+1", "1_0",

@@ -1,8 +1,9 @@
 """A quick reader for the plain subset of TOML that generated inputs are written in.
 
 :func:`read_plain_toml` reads a document line by line when every line is
-blank, a comment, a table header (``[a.b]``, ``[[a]]``, bare keys) or a
-``bare_key = value`` pair whose value sits on that line and is
+blank, a comment, a table header (``[a.b]``, ``[[a]]``, ``[a."b.c"]``: bare
+keys, or quoted ones without escapes) or a ``bare_key = value`` pair whose
+value sits on that line and is
 
 * a decimal number in JSON's grammar (``-12``, ``0.5``, ``1e-3``), a
   boolean, or a basic string without escapes, taken as ``tomllib`` takes it
@@ -11,9 +12,9 @@ blank, a comment, a table header (``[a.b]``, ``[[a]]``, bare keys) or a
   becomes ``:``, and the text is then read by ``json.loads`` (C), whose
   numbers are ``int(text)`` / ``float(text)`` as in ``tomllib``.
 
-Anything else (escapes, literal or multi-line strings, dotted or quoted keys,
-dates, ``inf``/``nan``, underscores in numbers, multi-line arrays, trailing
-commas, ``\\r``, a key or a table defined twice, a table reopened or
+Anything else (escapes, literal or multi-line strings, dotted or quoted keys
+of pairs, dates, ``inf``/``nan``, underscores in numbers, multi-line arrays,
+trailing commas, ``\\r``, a key or a table defined twice, a table reopened or
 extended after it was written) makes it answer ``None``, and the caller
 reads the text with ``tomllib``, which stays the authority (and gives the
 message of a syntax error). So the answer is ``None`` or exactly
@@ -36,7 +37,9 @@ _FORBIDDEN = re.compile(r"[\x00-\x08\x0b-\x1f\x7f]")
 #: Code (outside comments: no quote, backslash or ``#`` except inside basic
 #: strings without escapes), then an optional comment.
 _CODE = re.compile(r"((?:[^\"#'\\]|\"[^\"\\]*\")*)(#.*)?")
-_KEYS = r"[A-Za-z0-9_-]+(?:[ \t]*\.[ \t]*[A-Za-z0-9_-]+)*"
+_PART = r"(?:[A-Za-z0-9_-]+|\"[^\"\\\\]*\")"  # a bare or quoted key (no escapes)
+_KEYS = _PART + r"(?:[ \t]*\.[ \t]*" + _PART + r")*"
+_PARTS = re.compile(_PART)
 _TABLE = re.compile(r"[ \t]*\[[ \t]*(" + _KEYS + r")[ \t]*\][ \t]*")
 _ARRAY_TABLE = re.compile(r"[ \t]*\[\[[ \t]*(" + _KEYS + r")[ \t]*\]\][ \t]*")
 _PAIR = re.compile(r"[ \t]*([A-Za-z0-9_-]+)[ \t]*=(.*)")
@@ -130,7 +133,8 @@ def _read(text: str) -> dict:
             header = _TABLE.fullmatch(code)
             if header is None:
                 raise _NotPlain
-        keys = [part.strip(" \t") for part in header.group(1).split(".")]
+        keys = [part[1:-1] if part[0] == '"' else part
+                for part in _PARTS.findall(header.group(1))]
         node = root
         for key in keys[:-1]:
             child = node.get(key)
