@@ -28,8 +28,9 @@ the fastest (2-6x), its grammars are versioned wheels, and it keeps
 positions of every construct we need (tables, arrays of tables, dotted keys,
 inline tables, multi-line arrays, nested JSON objects). It never decides
 values: ``tomllib``/``json`` do, so a grammar quirk can at worst misplace a
-line number, never change a gain. Positions are built on the first
-:meth:`Document.locate` of a file, so files never asked about cost nothing.
+line number, never change a gain. Positions are built when a location in a
+file is first read (:meth:`Document.locate` defers them), so files no
+message, finding or report points into cost nothing.
 """
 
 from __future__ import annotations

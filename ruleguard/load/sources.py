@@ -8,9 +8,11 @@
   :class:`~ruleguard.errors.InputError` at the place that referenced the file;
 * takes the values from the standard parsers (``tomllib``/``tomli`` for TOML,
   ``json`` for JSON, which stay the authority for what a file means), with
-  duplicate JSON keys and the non-standard ``NaN``/``Infinity`` rejected;
-* builds, lazily on the first :meth:`Document.locate`, a source map from key
-  paths (tuples of ``str`` keys and ``int`` array indices) to 1-based
+  duplicate JSON keys and the non-standard ``NaN``/``Infinity`` rejected
+  (plain TOML is read quicker to the same value, :mod:`ruleguard.load.toml_subset`);
+* builds, lazily when the line or column of one of its locations is first
+  read (:meth:`Document.locate` gives deferred locations), a source map from
+  key paths (tuples of ``str`` keys and ``int`` array indices) to 1-based
   ``(line, column)``.
 
 Positions come from :mod:`ruleguard.load.positions` (tree-sitter; the
