@@ -74,14 +74,16 @@ class _Deferred:
             return self.default
         values = instance.__dict__
         at = values.get("_at")
-        if at is None:  # pragma: no cover - every instance has its values or _at
+        if at is None:  # pragma: no cover - placed meanwhile (another thread), or broken
+            if self.name in values:
+                return values[self.name]
             raise AttributeError(self.name)
         placer, path = at
         line, column = placer.position(path)
         values["line"] = line
         values["column"] = column
         values["key"] = placer.key_text(path)
-        del values["_at"]
+        values.pop("_at", None)
         return values[self.name]
 
 
