@@ -253,3 +253,24 @@ def test_syntax_errors_keep_tomllib_messages():
     with pytest.raises(Exception) as caught:
         parse_text("x.toml", "a = 1\na = 2\n", "toml")
     assert caught.value.line == 2
+
+
+def test_header_positions_equal_the_source_map():
+    # reference: ruleguard.load.positions.build_source_map (tree-sitter), which
+    # places every key; the header index must give the same for table paths
+    from ruleguard.load.positions import build_source_map
+    from ruleguard.load.toml_subset import header_positions
+
+    checked = 0
+    texts = [GENERATED, *PLAIN, "  [a]\n\t[[b]]\n[[b]]\n[b.c]\n[[b.d]]\n[[b.d]]\n[\"é\".x]\n"]
+    for path in _toml_files():
+        text = path.read_bytes().decode("utf-8", "replace")
+        texts.append(text[1:] if text.startswith("\ufeff") else text)
+    for text in texts:
+        if read_plain_toml(text) is None:
+            continue
+        source_map = build_source_map(text, "toml")
+        for key_path, place in header_positions(text).items():
+            assert source_map[key_path] == place, (key_path, text[:200])
+            checked += 1
+    assert checked > 300

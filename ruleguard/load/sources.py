@@ -43,7 +43,7 @@ from ruleguard.load.positions import (
     text_offset,
     toml_key_by_text,
 )
-from ruleguard.load.toml_subset import read_plain_toml
+from ruleguard.load.toml_subset import header_positions, read_plain_toml
 from ruleguard.location import Location, deferred_location
 
 try:  # Python >= 3.11
@@ -109,9 +109,22 @@ class Document:
         return cached
 
     def position(self, path: KeyPath) -> tuple[int | None, int | None]:
-        """Line and column of ``path`` or of its nearest located ancestor."""
-        source_map = self.source_map
+        """Line and column of ``path`` or of its nearest located ancestor.
+
+        In a plain TOML document (:mod:`ruleguard.load.toml_subset`) the path
+        of a table or of an element of an array of tables (what most
+        findings point to) is placed from the header lines alone, without
+        the source map, at the same line and column.
+        """
         path = tuple(path)
+        if "map" not in self._cache and self._cache.get("plain"):
+            headers = self._cache.get("headers")
+            if headers is None:
+                headers = self._cache["headers"] = header_positions(self.text)
+            hit = headers.get(path)
+            if hit is not None:
+                return hit
+        source_map = self.source_map
         while path:
             hit = source_map.get(path)
             if hit is not None:
@@ -399,6 +412,9 @@ def read_document(
 def parse_text(name: str, text: str, fmt: str) -> Document:
     """Parse ``text`` (already read) as ``fmt``; syntax errors are located."""
     if fmt == "toml":
+        plain = read_plain_toml(text)  # the same value, quicker, or None
+        if plain is not None:
+            return Document(name, plain, text, fmt, {"plain": True})
         data = _parse_toml(name, text)
     else:
         data = _parse_json(name, text)
@@ -409,9 +425,6 @@ _TOML_POSITION = re.compile(r"\(at line (\d+), column (\d+)\)")
 
 
 def _parse_toml(name: str, text: str) -> Any:
-    plain = read_plain_toml(text)  # the same value, quicker, or None
-    if plain is not None:
-        return plain
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

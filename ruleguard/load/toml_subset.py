@@ -162,3 +162,48 @@ def _read(text: str) -> dict:
                 raise _NotPlain
             node[last] = table
     return root
+
+
+def header_positions(text: str) -> dict[tuple, tuple[int, int]]:
+    """Line and column of each table and array-of-tables element a header of
+    ``text`` opens, for a document :func:`read_plain_toml` read.
+
+    The same values as :func:`ruleguard.load.positions.build_source_map` for
+    those paths (the header's ``[``, whose column counts characters; an
+    element of ``[[a]]`` as ``("a", index)``), found from the header lines
+    alone: in a plain document every line that starts with ``[`` is a header
+    and no other line places a table.
+    """
+    positions: dict[tuple, tuple[int, int]] = {}
+    counts: dict[tuple, int] = {}
+    for row, line in enumerate(text.split("\n"), start=1):
+        stripped = line.lstrip(" \t")
+        if not stripped.startswith("["):
+            continue
+        code = line
+        if "#" in line or "'" in line or "\\" in line:
+            found = _CODE.fullmatch(line)
+            if found is None:  # pragma: no cover - not a plain document
+                continue
+            code = found.group(1)
+        header = _ARRAY_TABLE.fullmatch(code)
+        is_array = header is not None
+        if header is None:
+            header = _TABLE.fullmatch(code)
+            if header is None:  # pragma: no cover - not a plain document
+                continue
+        keys = [part[1:-1] if part[0] == '"' else part
+                for part in _PARTS.findall(header.group(1))]
+        place = (row, len(line) - len(stripped) + 1)
+        resolved: list = []
+        for index, name in enumerate(keys):
+            resolved.append(name)
+            if index < len(keys) - 1:
+                if tuple(resolved) in counts:
+                    resolved.append(counts[tuple(resolved)] - 1)
+            elif is_array:
+                count = counts.get(tuple(resolved), 0)
+                counts[tuple(resolved)] = count + 1
+                resolved.append(count)
+        positions[tuple(resolved)] = place
+    return positions
