@@ -260,7 +260,9 @@ def test_byte_order_mark_is_accepted(tmp_path):
 def test_source_map_is_built_lazily():
     document = parse_text("lazy.toml", "a = 1\n", "toml")
     assert "map" not in document._cache
-    document.locate(("a",))
+    location = document.locate(("a",))
+    assert "map" not in document._cache  # a location is placed when read
+    assert (location.line, location.column, location.key) == (1, 1, "a")
     assert "map" in document._cache
 
 

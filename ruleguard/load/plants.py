@@ -16,6 +16,7 @@ Sensors are entries of the same registry.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from math import isfinite
 from pathlib import Path
 from typing import Any
 
@@ -220,6 +221,10 @@ def build_entry(
     return entry
 
 
+#: Integer fields, kept as they are.
+_WHOLE_NUMBERS = ("unstable_poles", "integrators")
+
+
 def _convert(
     value: Any,
     path: KeyPath,
@@ -228,9 +233,11 @@ def _convert(
     key: str,
 ) -> Any:
     """Numbers -> float, strings -> Expression in number positions, recursively."""
+    if type(value) is float and key not in _WHOLE_NUMBERS and isfinite(value):
+        return value  # what number_or_expression gives (its location is for errors only)
     if isinstance(value, bool):  # excluded by the schemas; kept for safety
         raise document.error(path, "expected a number, found a boolean")
-    if isinstance(value, (int, float)) and key not in ("unstable_poles", "integrators"):
+    if isinstance(value, (int, float)) and key not in _WHOLE_NUMBERS:
         return number_or_expression(value, document.locate(path))
     if isinstance(value, int):
         return value
@@ -238,29 +245,47 @@ def _convert(
         if key in ("file", "output", "magnitude_unit"):
             return value
         return number_or_expression(value, document.locate(path))
+    plain = key not in _WHOLE_NUMBERS  # (a finite float item is kept as it is, as above)
     if isinstance(value, list):
         items = []
+        prefix = ".".join(str(p) for p in path[2:])
         for index, item in enumerate(value):
             sub = path + (index,)
-            field_locations[".".join(str(p) for p in sub[2:])] = document.locate(sub)
-            items.append(_convert(item, sub, document, field_locations, key))
+            field_locations[f"{prefix}.{index}" if prefix else str(index)] = document.locate(sub)
+            if type(item) is float and plain and isfinite(item):
+                items.append(item)
+            else:
+                items.append(_convert(item, sub, document, field_locations, key))
         return items
     if isinstance(value, dict):
-        return {
-            k: _convert(v, path + (k,), document, field_locations, key) for k, v in value.items()
-        }
+        table = {}
+        for k, v in value.items():
+            if type(v) is float and plain and isfinite(v):
+                table[k] = v
+            else:
+                table[k] = _convert(v, path + (k,), document, field_locations, key)
+        return table
     return value
 
 
-def _expressions(value: Any):
+def _expressions(value: Any) -> list[Expression]:
+    """The expressions in ``value`` (nested lists and tables), in order."""
+    found: list[Expression] = []
+    _collect_expressions(value, found)
+    return found
+
+
+def _collect_expressions(value: Any, found: list[Expression]) -> None:
     if isinstance(value, Expression):
-        yield value
+        found.append(value)
     elif isinstance(value, list):
         for item in value:
-            yield from _expressions(item)
+            if type(item) is not float:
+                _collect_expressions(item, found)
     elif isinstance(value, dict):
         for item in value.values():
-            yield from _expressions(item)
+            if type(item) is not float:
+                _collect_expressions(item, found)
 
 
 def _check_names(parameters: Mapping[str, Any], fields: Mapping[str, Any], name: str) -> None:

@@ -28,8 +28,9 @@ the fastest (2-6x), its grammars are versioned wheels, and it keeps
 positions of every construct we need (tables, arrays of tables, dotted keys,
 inline tables, multi-line arrays, nested JSON objects). It never decides
 values: ``tomllib``/``json`` do, so a grammar quirk can at worst misplace a
-line number, never change a gain. Positions are built on the first
-:meth:`Document.locate` of a file, so files never asked about cost nothing.
+line number, never change a gain. Positions are built when a location in a
+file is first read (:meth:`Document.locate` defers them), so files no
+message, finding or report points into cost nothing.
 """
 
 from __future__ import annotations
@@ -217,9 +218,22 @@ def _tree(text: str, fmt: str) -> Any:
     return parser.parse(text.encode("utf-8"))
 
 
+class _AsciiLines(list):
+    """The lines of an ASCII text (their byte columns are character columns)."""
+
+
+def _lines(text: str) -> list[str]:
+    lines = text.split("\n")
+    return _AsciiLines(lines) if text.isascii() else lines
+
+
 def _point(text_or_lines: Any, point: Any) -> tuple[int, int]:
     """1-based line and character column of a tree-sitter point (byte column)."""
     row, byte_column = point
+    if type(text_or_lines) is _AsciiLines:  # one byte per character on every line
+        if row < len(text_or_lines):
+            return row + 1, min(byte_column, len(text_or_lines[row])) + 1
+        return row + 1, byte_column + 1
     lines = text_or_lines if isinstance(text_or_lines, list) else None
     if lines is None:
         lines = text_or_lines.split("\n")
@@ -256,8 +270,9 @@ def build_source_map(
     text: str, fmt: str, occurrences: list | None = None
 ) -> dict[KeyPath, tuple[int, int]]:
     tree = _tree(text, fmt)
-    lines = text.split("\n")
-    positions = _Positions(occurrences)
+    lines = _lines(text)
+    # a plain dict unless every occurrence is wanted (the subclass costs a call per key)
+    positions: dict = _Positions(occurrences) if occurrences is not None else {}
     positions[()] = (1, 1)
     if fmt == "toml":
         _map_toml(tree.root_node, lines, positions)

@@ -8,9 +8,11 @@
   :class:`~ruleguard.errors.InputError` at the place that referenced the file;
 * takes the values from the standard parsers (``tomllib``/``tomli`` for TOML,
   ``json`` for JSON, which stay the authority for what a file means), with
-  duplicate JSON keys and the non-standard ``NaN``/``Infinity`` rejected;
-* builds, lazily on the first :meth:`Document.locate`, a source map from key
-  paths (tuples of ``str`` keys and ``int`` array indices) to 1-based
+  duplicate JSON keys and the non-standard ``NaN``/``Infinity`` rejected
+  (plain TOML is read quicker to the same value, :mod:`ruleguard.load.toml_subset`);
+* builds, lazily when the line or column of one of its locations is first
+  read (:meth:`Document.locate` gives deferred locations), a source map from
+  key paths (tuples of ``str`` keys and ``int`` array indices) to 1-based
   ``(line, column)``.
 
 Positions come from :mod:`ruleguard.load.positions` (tree-sitter; the
@@ -19,12 +21,14 @@ choice of library is explained there).
 
 from __future__ import annotations
 
+import errno
 import json
 import os
 import re
+import stat
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from pathlib import Path, PurePosixPath
+from pathlib import Path
 from typing import Any
 
 from ruleguard.errors import InputError
@@ -39,7 +43,8 @@ from ruleguard.load.positions import (
     text_offset,
     toml_key_by_text,
 )
-from ruleguard.location import Location
+from ruleguard.load.toml_subset import header_positions, read_plain_toml
+from ruleguard.location import Location, deferred_location
 
 try:  # Python >= 3.11
     import tomllib
@@ -104,9 +109,22 @@ class Document:
         return cached
 
     def position(self, path: KeyPath) -> tuple[int | None, int | None]:
-        """Line and column of ``path`` or of its nearest located ancestor."""
-        source_map = self.source_map
+        """Line and column of ``path`` or of its nearest located ancestor.
+
+        In a plain TOML document (:mod:`ruleguard.load.toml_subset`) the path
+        of a table or of an element of an array of tables (what most
+        findings point to) is placed from the header lines alone, without
+        the source map, at the same line and column.
+        """
         path = tuple(path)
+        if "map" not in self._cache and self._cache.get("plain"):
+            headers = self._cache.get("headers")
+            if headers is None:
+                headers = self._cache["headers"] = header_positions(self.text)
+            hit = headers.get(path)
+            if hit is not None:
+                return hit
+        source_map = self.source_map
         while path:
             hit = source_map.get(path)
             if hit is not None:
@@ -115,10 +133,17 @@ class Document:
         return source_map.get((), (1, 1)) if self.text else (None, None)
 
     def locate(self, path: KeyPath | list = ()) -> Location:
-        """:class:`Location` of ``path`` (falling back to the nearest ancestor)."""
-        path = tuple(path)
-        line, column = self.position(path)
-        return Location(self.file, line, column, format_key(path))
+        """:class:`Location` of ``path`` (falling back to the nearest ancestor).
+
+        Deferred (:func:`~ruleguard.location.deferred_location`): the source
+        map is built, and the line, column and key worked out, only when
+        something reads them (a message, a finding, a report).
+        """
+        return deferred_location(self.file, self, tuple(path))
+
+    def key_text(self, path: KeyPath) -> str:
+        """The dotted key of ``path`` (:func:`format_key`)."""
+        return format_key(path)
 
     def error(self, path: KeyPath | list, message: str) -> InputError:
         """An :class:`InputError` at ``path`` of this document."""
@@ -177,40 +202,88 @@ def resolve_inside(root: str | Path, rel_path: str, origin: Location | None = No
     for absolute paths, paths through ``..`` or symlinks leaving ``root``,
     missing files and non-regular files.
     """
-    root_path = Path(root).resolve()
+    return Path(_contained(root, rel_path, origin)[0])
+
+
+def _contained(
+    root: str | Path, rel_path: str, origin: Location | None
+) -> tuple[str, str, os.stat_result]:
+    """:func:`resolve_inside` on strings: (real path, name relative to ``root``
+    with ``/``, the file's ``os.stat``).
+
+    The steps and errors of ``Path.resolve(strict=False)``, ``is_relative_to``,
+    ``exists`` and ``is_file`` in that order, with one ``stat`` for them all
+    (pathlib objects cost more than the file system calls here: a project
+    reads one file per loop).
+    """
+    root_real = _real_folder(root)
     shown = str(rel_path)
     if not isinstance(rel_path, str) or not rel_path.strip():
         raise _origin_error(origin, shown, "expected a relative file path, found an empty name")
     if "\x00" in rel_path:
         raise _origin_error(origin, shown, "a file path may not contain a NUL character")
-    if os.path.isabs(rel_path) or PurePosixPath(rel_path).is_absolute() or re.match(
+    if os.path.isabs(rel_path) or rel_path.startswith("/") or re.match(
         r"^[A-Za-z]:[\\/]", rel_path
-    ):
+    ):  # (a POSIX path is absolute when it starts with "/")
         raise _origin_error(
             origin,
             shown,
             f"'{rel_path}' is an absolute path; files must be given relative to the "
             "project folder and stay inside it",
         )
-    candidate = root_path / rel_path
+    real = os.path.realpath(os.path.join(root_real, rel_path))
+    status: os.stat_result | None = None
+    failure: OSError | None = None
     try:
-        resolved = candidate.resolve(strict=False)
-    except (OSError, RuntimeError):  # symlink loops
-        raise _origin_error(
-            origin, shown, f"cannot resolve '{rel_path}': it is a loop of symbolic links"
-        ) from None
-    if not resolved.is_relative_to(root_path):
+        status = os.stat(real)
+    except OSError as exc:
+        failure = exc
+        if exc.errno == errno.ELOOP or getattr(exc, "winerror", 0) == 1921:  # symlink loops
+            raise _origin_error(
+                origin, shown, f"cannot resolve '{rel_path}': it is a loop of symbolic links"
+            ) from None
+    name = _relative(real, root_real)
+    if name is None:
         raise _origin_error(
             origin,
             shown,
             f"'{rel_path}' resolves outside the project folder; ruleguard reads only files "
             "inside the manifest's folder (symlinks included)",
         )
-    if not resolved.exists():
+    if status is None:
+        if failure is not None and failure.errno not in _MISSING:
+            raise failure  # as Path.exists would
         raise _origin_error(origin, shown, f"file '{rel_path}' does not exist")
-    if not resolved.is_file():
+    if not stat.S_ISREG(status.st_mode):
         raise _origin_error(origin, shown, f"'{rel_path}' is not a regular file")
-    return resolved
+    return real, name, status
+
+
+def _real_folder(root: str | Path) -> str:
+    """``str(Path(root).resolve())`` (non-strict: a symlink loop is a RuntimeError)."""
+    real = os.path.realpath(root)
+    try:
+        os.stat(real)
+    except OSError as exc:
+        if exc.errno == errno.ELOOP or getattr(exc, "winerror", 0) == 1921:
+            raise RuntimeError(f"Symlink loop from {exc.filename!r}") from None
+    return real
+
+
+#: errno values for which ``Path.exists`` answers False (pathlib's ``_IGNORED_ERRNOS``).
+_MISSING = (errno.ENOENT, errno.ENOTDIR, errno.EBADF, errno.ELOOP)
+
+
+def _relative(real: str, root_real: str) -> str | None:
+    """``real`` relative to the folder ``root_real`` with ``/`` (``Path.relative_to``),
+    ``None`` outside it."""
+    if os.path.normcase(real) == os.path.normcase(root_real):
+        return "."
+    prefix = root_real if root_real.endswith(os.sep) else root_real + os.sep
+    if not os.path.normcase(real).startswith(os.path.normcase(prefix)):
+        return None
+    name = real[len(prefix):]
+    return name if os.sep == "/" else name.replace(os.sep, "/")
 
 
 def relative_name(root: str | Path, path: Path) -> str:
@@ -228,23 +301,23 @@ def read_text(
 
     Empty, oversized and binary files are input errors.
     """
-    return _read_resolved(root, resolve_inside(root, rel_path, origin), origin, max_bytes)
+    return _read_contained(_contained(root, rel_path, origin), origin, max_bytes)
 
 
-def _read_resolved(
-    root: str | Path, resolved: Path, origin: Location | None, max_bytes: int
+def _read_contained(
+    found: tuple[str, str, os.stat_result], origin: Location | None, max_bytes: int
 ) -> tuple[str, str]:
-    """:func:`read_text` of a path :func:`resolve_inside` already gave."""
-    name = relative_name(root, resolved)
+    """:func:`read_text` of a file :func:`_contained` already found."""
+    real, name, status = found
     try:
-        size = resolved.stat().st_size
+        size = status.st_size
         if size > max_bytes:
             raise _origin_error(
                 origin,
                 name,
                 f"'{name}' is {size} bytes; input files are limited to {max_bytes} bytes",
             )
-        with open(resolved, "rb") as handle:
+        with open(real, "rb") as handle:
             raw = handle.read(max_bytes + 1)
     except OSError as exc:
         raise _origin_error(origin, name, f"cannot read '{name}': {exc.strerror}") from None
@@ -275,8 +348,16 @@ def _read_resolved(
     return name, text
 
 
+def _suffix(name: str) -> str:
+    """``PurePosixPath(name).suffix`` (the last component's, "" for none)."""
+    parts = [part for part in name.split("/") if part and part != "."]
+    last = parts[-1] if parts else ""
+    dot = last.rfind(".")
+    return last[dot:] if 0 < dot < len(last) - 1 else ""
+
+
 def _kind_of(name: str) -> str:
-    suffix = PurePosixPath(name).suffix.lower()
+    suffix = _suffix(name).lower()
     return {
         ".toml": "TOML", ".json": "JSON", ".csv": "CSV", ".h": "C", ".hpp": "C", ".c": "C",
         ".yaml": "YAML", ".yml": "YAML", ".params": "parameter", ".cfg": "parameter",
@@ -285,7 +366,7 @@ def _kind_of(name: str) -> str:
 
 def format_of(name: str, origin: Location | None = None) -> str:
     """``"toml"`` or ``"json"`` by extension."""
-    suffix = PurePosixPath(name).suffix.lower()
+    suffix = _suffix(name).lower()
     if suffix == ".toml":
         return "toml"
     if suffix == ".json":
@@ -322,15 +403,18 @@ def read_document(
     InputError
         Containment, size, encoding or syntax problems, located.
     """
-    resolved = resolve_inside(root, rel_path, origin)  # containment first, whatever the name says
+    found = _contained(root, rel_path, origin)  # containment first, whatever the name says
     fmt = format_of(str(rel_path), origin)
-    name, text = _read_resolved(root, resolved, origin, max_bytes)
+    name, text = _read_contained(found, origin, max_bytes)
     return parse_text(name, text, fmt)
 
 
 def parse_text(name: str, text: str, fmt: str) -> Document:
     """Parse ``text`` (already read) as ``fmt``; syntax errors are located."""
     if fmt == "toml":
+        plain = read_plain_toml(text)  # the same value, quicker, or None
+        if plain is not None:
+            return Document(name, plain, text, fmt, {"plain": True})
         data = _parse_toml(name, text)
     else:
         data = _parse_json(name, text)
@@ -439,7 +523,7 @@ def firmware_format_of(name: str, declared: str | None, origin: Location | None 
     """The format of a firmware file: ``declared`` (the binding's ``format``) or by extension."""
     if declared is not None:
         return declared
-    suffix = PurePosixPath(name).suffix.lower()
+    suffix = _suffix(name).lower()
     for fmt, suffixes in FIRMWARE_FORMATS.items():
         if suffix in suffixes:
             return fmt
@@ -465,9 +549,9 @@ def read_firmware(
     C file (:mod:`ruleguard.load.c_source`). The readers of C, YAML and
     key-value files are imported on first use only.
     """
-    resolved = resolve_inside(root, rel_path, origin)
+    found = _contained(root, rel_path, origin)
     fmt = firmware_format_of(str(rel_path), fmt, origin)
-    name, text = _read_resolved(root, resolved, origin, MAX_FILE_BYTES)
+    name, text = _read_contained(found, origin, MAX_FILE_BYTES)
     if fmt in ("toml", "json"):
         return parse_text(name, text, fmt)
     try:
