@@ -24,8 +24,11 @@ The same folder keeps ``validated.json``: the digests of input values that
 passed their JSON Schema (:class:`ValidatedDocuments`,
 :func:`ruleguard.load.validation.validation_digest`: ruleguard version,
 schema text and value). A file whose content passed once is not validated
-again; a changed file is. Like the entries, the memo is trusted only from
-the version that wrote it.
+again; a changed file is. It also keeps ``parsed.json``
+(:class:`ParsedDocuments`): the parse of each firmware file read by the C,
+YAML or key-value reader, by the digest of its content, so an unchanged
+header or YAML file is not parsed again. Like the entries, both memos are
+trusted only from the version that wrote them.
 """
 
 from __future__ import annotations
@@ -40,6 +43,8 @@ from pathlib import Path
 from typing import Any
 
 from ruleguard import __version__
+from ruleguard.load.sources import Unreadable
+from ruleguard.location import Location
 from ruleguard.report.model import LoopResult
 from ruleguard.report.records import (
     finding_from_dict,
@@ -58,8 +63,11 @@ CACHEDIR_TAG = (
 )
 MAX_ENTRIES = 2000
 VALIDATED_FILE = "validated.json"
+PARSED_FILE = "parsed.json"
 #: Most digests ``validated.json`` keeps (the ones used most recently).
 MAX_VALIDATED = 5000
+#: Firmware files whose parse ``parsed.json`` keeps.
+MAX_PARSED = 500
 
 
 class LoopCache:
@@ -220,7 +228,7 @@ class LoopCache:
         keep = MAX_ENTRIES if keep is None else keep
         entries = [
             p for p in self.folder.glob("*.json")
-            if not p.name.startswith(".") and p.name != VALIDATED_FILE
+            if not p.name.startswith(".") and p.name not in (VALIDATED_FILE, PARSED_FILE)
         ]
         if len(entries) <= keep:
             return
@@ -238,7 +246,7 @@ class LoopCache:
             if path.is_file() and (
                 path.suffix == ".json" or path.name in (".gitignore", "CACHEDIR.TAG")
             ):
-                removed += path.suffix == ".json" and path.name != VALIDATED_FILE
+                removed += path.suffix == ".json" and path.name not in (VALIDATED_FILE, PARSED_FILE)
                 path.unlink(missing_ok=True)
         try:
             self.folder.rmdir()
@@ -247,32 +255,93 @@ class LoopCache:
         return removed
 
 
-class ValidatedDocuments:
-    """The digests of input values that passed their schema, kept in the cache folder.
+class _RememberedFile:
+    """A memo file of the cache folder: ``digest -> value`` entries.
 
-    A :class:`~ruleguard.load.validation.ValidationMemo`: read once from
-    ``validated.json`` (a missing, unreadable or other-version file is an
-    empty memo), extended while a project loads, written back by
-    :meth:`save` when it learnt something. The digests of this run come
-    last, so pruning to :data:`MAX_VALIDATED` drops the least recent.
+    Read once (a missing, unreadable or other-version file is an empty
+    memo), extended while a project loads, written back by :meth:`save`
+    when it learnt something. The entries of this run come last, so pruning
+    to ``limit`` drops the least recent. Subclasses say how entries are kept
+    in the file (:meth:`_decode`, :meth:`_encode`).
     """
+
+    file_name = ""
+    limit = 0
 
     def __init__(self, cache: LoopCache) -> None:
         self.cache = cache
-        self._known: dict[str, None] = {}
+        self._known: dict[str, Any] = {}
         self._used: dict[str, None] = {}
         self._learnt = False
         if cache.enabled and cache._usable_folder():
-            self._known = dict.fromkeys(self._read())
+            self._known = self._read()
 
-    def _read(self) -> list[str]:
+    def _read(self) -> dict[str, Any]:
         try:
-            data = json.loads((self.cache.folder / VALIDATED_FILE).read_text(encoding="utf-8"))
+            data = json.loads((self.cache.folder / self.file_name).read_text(encoding="utf-8"))
             if data.get("cache_format") != CACHE_FORMAT or data.get("tool_version") != __version__:
-                return []
-            return [d for d in data["digests"] if isinstance(d, str)]
+                return {}
+            return self._decode(data)
         except (OSError, ValueError, KeyError, TypeError, AttributeError):
-            return []
+            return {}
+
+    def _decode(self, data: dict) -> dict[str, Any]:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _encode(self, entries: dict[str, Any]) -> dict:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+    def _remember(self, digest: str, value: Any = None) -> None:
+        if digest not in self._known:
+            self._known[digest] = value
+            self._learnt = True
+        self._used[digest] = None
+
+    def save(self, inputs=()) -> None:
+        """Write the memo back when it learnt an entry (silently skipped when
+        the folder cannot be used, or when ``inputs``, the project's input
+        files, include a file in the cache folder)."""
+        if not (self._learnt and self.cache.enabled and self.cache._usable_folder()):
+            return
+        self.cache._inputs |= set(inputs)
+        if f"{CACHE_FOLDER}/{self.file_name}" in self.cache._inputs:
+            return
+        order = [d for d in self._known if d not in self._used] + list(self._used)
+        entry = {
+            "cache_format": CACHE_FORMAT,
+            "tool_version": __version__,
+            **self._encode({d: self._known[d] for d in order[-self.limit:]}),
+        }
+        try:
+            self.cache._prepare_folder()
+            fd, tmp = tempfile.mkstemp(dir=self.cache.folder, prefix=".tmp-", suffix=".json")
+            try:
+                with os.fdopen(fd, "w", encoding="utf-8") as handle:
+                    handle.write(json.dumps(entry))
+                os.replace(tmp, self.cache.folder / self.file_name)
+            except BaseException:
+                Path(tmp).unlink(missing_ok=True)
+                raise
+        except OSError:
+            return
+        self._learnt = False
+
+
+class ValidatedDocuments(_RememberedFile):
+    """The digests of input values that passed their schema, kept in the cache folder.
+
+    A :class:`~ruleguard.load.validation.ValidationMemo` in ``validated.json``
+    (at most :data:`MAX_VALIDATED` digests, the least recent dropped first).
+    """
+
+    file_name = VALIDATED_FILE
+    limit = MAX_VALIDATED
+
+    def _decode(self, data: dict) -> dict[str, Any]:
+        return dict.fromkeys(d for d in data["digests"] if isinstance(d, str))
+
+    def _encode(self, entries: dict[str, Any]) -> dict:
+        return {"digests": list(entries)}
 
     def __contains__(self, digest: object) -> bool:
         if digest in self._known:
@@ -282,36 +351,100 @@ class ValidatedDocuments:
 
     def add(self, digest: str) -> None:
         """Remember that the value with ``digest`` passed its schema."""
-        if digest not in self._known:
-            self._known[digest] = None
-            self._learnt = True
-        self._used[digest] = None
+        self._remember(digest)
 
-    def save(self, inputs=()) -> None:
-        """Write the memo back when it learnt a digest (silently skipped when
-        the folder cannot be used, or when ``inputs``, the project's input
-        files, include a file in the cache folder)."""
-        if not (self._learnt and self.cache.enabled and self.cache._usable_folder()):
-            return
-        self.cache._inputs |= set(inputs)
-        if f"{CACHE_FOLDER}/{VALIDATED_FILE}" in self.cache._inputs:
-            return
-        order = [d for d in self._known if d not in self._used] + list(self._used)
-        entry = {
-            "cache_format": CACHE_FORMAT,
-            "tool_version": __version__,
-            "digests": order[-MAX_VALIDATED:],
-        }
+
+class ParsedDocuments(_RememberedFile):
+    """Firmware files read by the C, YAML and key-value readers, by content.
+
+    A :class:`~ruleguard.load.sources.ParseMemo` in ``parsed.json`` (at most
+    :data:`MAX_PARSED` files, the least recent dropped first): for the digest
+    of (ruleguard version, format, ``#if`` macros, text) the parsed data as
+    JSON text and the source map, so an unchanged file is not parsed again
+    (nor its reader, yaml or tree-sitter, imported). Only data made of
+    dicts with string keys, lists, strings, finite numbers, booleans and
+    ``None`` is kept (it comes back equal, type for type); anything else
+    (an unreadable C value, say) is parsed every run.
+    """
+
+    file_name = PARSED_FILE
+    limit = MAX_PARSED
+
+    def _decode(self, data: dict) -> dict[str, Any]:
+        entries = data["files"]
+        return {d: e for d, e in entries.items()
+                if isinstance(d, str) and isinstance(e, dict)
+                and isinstance(e.get("data"), str) and isinstance(e.get("map"), list)}
+
+    def _encode(self, entries: dict[str, Any]) -> dict:
+        return {"files": entries}
+
+    def get(self, digest: str):
+        """(data, source map) of the file with ``digest``, or None."""
+        entry = self._known.get(digest)
+        if entry is None:
+            return None
         try:
-            self.cache._prepare_folder()
-            fd, tmp = tempfile.mkstemp(dir=self.cache.folder, prefix=".tmp-", suffix=".json")
-            try:
-                with os.fdopen(fd, "w", encoding="utf-8") as handle:
-                    handle.write(json.dumps(entry))
-                os.replace(tmp, self.cache.folder / VALIDATED_FILE)
-            except BaseException:
-                Path(tmp).unlink(missing_ok=True)
-                raise
-        except OSError:
+            data = json.loads(entry["data"])
+            source_map = {tuple(path): (int(line), int(column))
+                          for path, line, column in entry["map"]}
+            for path, (file, line, column, key, message) in entry.get("unreadable", []):
+                _place(data, path, Unreadable(Location(file, line, column, key), message))
+        except (ValueError, TypeError, KeyError, IndexError):
+            del self._known[digest]  # parsed again and remembered anew
+            return None
+        self._used[digest] = None
+        return data, source_map
+
+    def put(self, digest: str, data: Any, source_map: Mapping) -> None:
+        """Remember the parse of the file with ``digest`` (plain data only)."""
+        unreadable: list = []
+        data = _without_unreadable(data, [], unreadable)
+        if not _plain(data) or not all(
+            type(p) is tuple and all(type(k) in (str, int) for k in p) for p in source_map
+        ):
             return
-        self._learnt = False
+        try:
+            text = json.dumps(data, allow_nan=False)
+        except ValueError:
+            return
+        self._remember(digest, {
+            "data": text,
+            "map": [[list(path), line, column] for path, (line, column) in source_map.items()],
+            "unreadable": unreadable,
+        })
+
+
+def _without_unreadable(value: Any, path: list, found: list) -> Any:
+    """``value`` with each :class:`Unreadable` (a C symbol without a value) as
+    ``None``, its path and fields listed in ``found``."""
+    if type(value) is Unreadable:
+        where = value.location
+        found.append([list(path), [where.file, where.line, where.column, where.key,
+                                   value.message]])
+        return None
+    if type(value) is dict:
+        return {k: _without_unreadable(v, [*path, k], found) for k, v in value.items()}
+    if type(value) is list:
+        return [_without_unreadable(v, [*path, i], found) for i, v in enumerate(value)]
+    return value
+
+
+def _place(data: Any, path: list, value: Any) -> None:
+    for key in path[:-1]:
+        data = data[key]
+    data[path[-1]] = value
+
+
+def _plain(value: Any) -> bool:
+    """Whether ``value`` survives a JSON round trip equal and of the same types."""
+    kind = type(value)
+    if kind in (str, int, bool) or value is None:
+        return True
+    if kind is float:
+        return value == value and value not in (float("inf"), float("-inf"))
+    if kind is list:
+        return all(_plain(v) for v in value)
+    if kind is dict:
+        return all(type(k) is str and _plain(v) for k, v in value.items())
+    return False

@@ -82,25 +82,30 @@ def check_project(
     with stage("load"):
         from ruleguard.load.project import load_project
         from ruleguard.load.rulesets import load_ruleset
+        from ruleguard.load.sources import remembering_parses
         from ruleguard.load.validation import remembering
 
-        memo = _validation_memo(manifest) if options.use_cache else None
-        with remembering(memo):
+        memo, parses = _memos(manifest) if options.use_cache else (None, None)
+        with remembering(memo), remembering_parses(parses):
             project = load_project(Path(manifest))
             ruleset = load_ruleset(project.root, project.ruleset, project.ruleset_location)
         if memo is not None:
             with stage("cache"):
-                memo.save(set(project.texts) | set(_all_inputs(project)))
+                inputs = set(project.texts) | set(_all_inputs(project))
+                memo.save(inputs)
+                parses.save(inputs)
     return check_loaded(project, ruleset, options, progress=progress, statistics=statistics)
 
 
-def _validation_memo(manifest: str | Path):
-    """The schema-validation memo of the cache folder beside ``manifest``."""
-    from ruleguard.cache import LoopCache, ValidatedDocuments
+def _memos(manifest: str | Path):
+    """The schema-validation memo and the firmware-parse memo of the cache
+    folder beside ``manifest``."""
+    from ruleguard.cache import LoopCache, ParsedDocuments, ValidatedDocuments
 
     with stage("cache"):
         root = Path(manifest).absolute().parent.resolve()
-        return ValidatedDocuments(LoopCache(root, enabled=True))
+        cache = LoopCache(root, enabled=True)
+        return ValidatedDocuments(cache), ParsedDocuments(cache)
 
 
 def _all_inputs(project) -> set[str]:

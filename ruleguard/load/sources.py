@@ -21,15 +21,17 @@ choice of library is explained there).
 
 from __future__ import annotations
 
+import contextlib
 import errno
 import json
 import os
 import re
 import stat
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
+from contextvars import ContextVar
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 from ruleguard.errors import InputError
 from ruleguard.load.positions import (
@@ -554,6 +556,21 @@ def read_firmware(
     name, text = _read_contained(found, origin, MAX_FILE_BYTES)
     if fmt in ("toml", "json"):
         return parse_text(name, text, fmt)
+    memo = _PARSED.get()
+    digest = None
+    if memo is not None:
+        digest = parse_digest(fmt, text, macros)
+        hit = memo.get(digest)
+        if hit is not None:
+            data, source_map = hit
+            return Document(name, data, text, fmt, {"map": source_map})
+    document = _parse_firmware(name, text, fmt, macros)
+    if memo is not None:
+        memo.put(digest, document.data, document.source_map)
+    return document
+
+
+def _parse_firmware(name: str, text: str, fmt: str, macros) -> Document:
     try:
         if fmt == "c":
             from ruleguard.load.c_source import parse_c
@@ -568,3 +585,38 @@ def read_firmware(
         return parse_keyvalue(name, text)
     except InputError as exc:
         raise exc.with_excerpt(text) from None
+
+
+class ParseMemo(Protocol):
+    """Parses of firmware files by content digest (:class:`ruleguard.cache.ParsedDocuments`)."""
+
+    def get(self, digest: str) -> tuple[Any, Mapping[KeyPath, tuple[int, int]]] | None: ...
+
+    def put(self, digest: str, data: Any, source_map: Mapping[KeyPath, tuple[int, int]]) -> None:
+        ...
+
+
+_PARSED: ContextVar[ParseMemo | None] = ContextVar("ruleguard_parse_memo", default=None)
+
+
+@contextlib.contextmanager
+def remembering_parses(memo: ParseMemo | None) -> Iterator[ParseMemo | None]:
+    """Inside the block, :func:`read_firmware` takes the parse of a C, YAML or
+    key-value file whose content ``memo`` knows from it, and tells it the
+    parses it makes."""
+    token = _PARSED.set(memo)
+    try:
+        yield memo
+    finally:
+        _PARSED.reset(token)
+
+
+def parse_digest(fmt: str, text: str, macros: Mapping[str, int] | None) -> str:
+    """The hex SHA-256 of (ruleguard version, format, ``#if`` macros, text)."""
+    import hashlib
+
+    from ruleguard import __version__
+
+    chosen = sorted((macros or {}).items())
+    material = f"{__version__}\0{fmt}\0{chosen!r}\0{text}"
+    return hashlib.sha256(material.encode("utf-8", "surrogatepass")).hexdigest()
