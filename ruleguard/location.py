@@ -15,11 +15,12 @@ the time they are computed differs.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any, Protocol
 
+from ruleguard.frozen import record
 
-@dataclass(frozen=True)
+
+@record
 class Location:
     """A place in an input file.
 

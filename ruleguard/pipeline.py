@@ -16,6 +16,7 @@ from pathlib import Path
 
 from ruleguard import __version__
 from ruleguard.errors import InputError, LoopNotAnalysable
+from ruleguard.frozen import record
 from ruleguard.rules.base import Evaluation, Finding, LoopContext, Severity
 from ruleguard.timings import stage
 from ruleguard.workunits import JudgedLoop
@@ -24,7 +25,7 @@ from ruleguard.workunits import JudgedLoop
 Progress = Callable[[int, int, str], None]
 
 
-@dataclass(frozen=True)
+@record
 class CheckOptions:
     """What `ruleguard check` was asked to do."""
 
@@ -50,7 +51,7 @@ class CheckOptions:
     cluster_address: str | None = None
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class AnalysedLoop:
     """A loop after models and analysis, before rules."""
 
@@ -244,7 +245,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
     )
 
 
-@dataclass(frozen=True)
+@record
 class LoopJudging:
     """What a worker needs to apply the ruleset to a loop it analysed whole."""
 

@@ -20,9 +20,10 @@ from __future__ import annotations
 import math
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from ruleguard.errors import InputError, LoopNotAnalysable, NumericalWarning
+from ruleguard.frozen import record
 from ruleguard.location import Location
 from ruleguard.timings import stage
 
@@ -37,7 +38,7 @@ MAX_CHUNK_VARIANTS = 100
 CHUNKS_PER_WORKER = 4
 
 
-@dataclass(frozen=True)
+@record
 class VariantChunk:
     """A run of consecutive variants of one loop.
 
@@ -71,7 +72,7 @@ class VariantChunk:
     judge: object | None = None
 
 
-@dataclass(frozen=True)
+@record
 class LoopStop:
     """Why a loop's variants stop at one variant (the loop is then not analysed,
     except for ``input_error``, which ends the whole check as an input error)."""
@@ -85,7 +86,7 @@ class LoopStop:
     input_error: bool = False
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class VariantOutcome:
     """One variant after build and analysis.
 
@@ -126,7 +127,7 @@ class VariantOutcome:
     prepared: dict = field(default_factory=dict)
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class JudgedLoop:
     """A whole loop built, analysed and judged where its chunk ran.
 
@@ -406,7 +407,7 @@ def _variant_analysis(project, spec, variant):
     with stage("build"):  # recorded when the chunk runs in the recording process
         model = build_loop(project, spec, variant)
     with stage("analysis"):
-        inner_reason, inner_analysis = _inner_loop_problem(model, variant, analyse_open_loop)
+        inner_reason, inner_analysis = _inner_loop_problem(model, variant, remembered_analysis)
     if inner_reason is not None:
         location = spec.field_locations.get("inner", spec.location)
         stop = LoopStop(inner_reason, "stability.closed-loop", location)
@@ -418,9 +419,70 @@ def _variant_analysis(project, spec, variant):
             "stability.closed-loop",
             spec.controller.location,
         )
+    analyse = remembered_analysis if _is_inner_loop(project, spec.name) else analyse_open_loop
     with stage("analysis"):
-        analysis = analyse_open_loop(model.open_loop)
+        analysis = analyse(model.open_loop)
     return model, None, inner_analysis, analysis
+
+
+#: Analyses of open loops met before in this process, by content (see
+#: :func:`remembered_analysis`), the most recently used last.
+_ANALYSES: dict = {}
+_ANALYSES_MAX = 64
+
+
+def remembered_analysis(open_loop):
+    """``analyse_open_loop(open_loop)``, done once per distinct open loop in a process.
+
+    A cascade analyses its inner loops again in every variant of every outer
+    loop, and a loop that is another's inner loop is analysed as itself too:
+    the demo's tilt axis asks for 36 analyses of 21 distinct open loops. The
+    key is a digest of the pickled open loop (equal bytes: the same zeros,
+    poles, gain, delay and factors, so the same result; anything else is
+    analysed). The analysis is frozen, so the variants share one object, as
+    :func:`shared_blocks` shares their equal parts. The warnings the first
+    analysis raised are raised again on every later use, so each variant's
+    numerical notes are those it would have without this memo.
+    """
+    import hashlib
+    import pickle
+
+    from ruleguard.analysis.margins import analyse_open_loop
+
+    try:
+        key = hashlib.blake2b(pickle.dumps(open_loop, protocol=pickle.HIGHEST_PROTOCOL),
+                              digest_size=20).digest()
+    except (pickle.PicklingError, TypeError, AttributeError):
+        return analyse_open_loop(open_loop)
+    done = _ANALYSES.pop(key, None)
+    if done is None:
+        failure = None
+        with warnings.catch_warnings(record=True) as raised:
+            warnings.simplefilter("always")
+            try:
+                analysis = analyse_open_loop(open_loop)
+            except Exception as exc:  # raised again after its warnings
+                failure = exc
+        said = tuple((w.message, w.category) for w in raised)
+        if failure is not None:
+            _warn_again(said)
+            raise failure
+        done = (analysis, said)
+        if len(_ANALYSES) >= _ANALYSES_MAX:
+            del _ANALYSES[next(iter(_ANALYSES))]
+    _ANALYSES[key] = done
+    _warn_again(done[1])
+    return done[0]
+
+
+def _warn_again(said: tuple) -> None:
+    for message, category in said:
+        warnings.warn(message, category, stacklevel=3)
+
+
+def _is_inner_loop(project, name: str) -> bool:
+    """Whether some loop of ``project`` has the loop ``name`` as its inner loop."""
+    return any(other.inner == name for other in project.loops)
 
 
 def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:

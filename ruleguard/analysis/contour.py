@@ -57,6 +57,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.frozen import record
 from ruleguard.models.arrays import sorted_unique
 from ruleguard.models.lti import Factored
 
@@ -230,7 +231,7 @@ def _scalar_function(pairs: tuple, lone: tuple, gain: complex, h: float | None, 
 
 
 # --------------------------------------------------------------------------- records
-@dataclass(frozen=True)
+@record
 class Indentation:
     """A small outward arc around a boundary pole at ``w0`` (rad/s).
 

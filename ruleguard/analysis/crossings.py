@@ -20,11 +20,11 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
 
 import numpy as np
 
 from ruleguard.analysis.contour import SampledContour, _minimize
+from ruleguard.frozen import record
 from ruleguard.models.arrays import sorted_unique
 
 #: Crossings of the negative real axis with ``|L|`` below this stand for k -> inf.
@@ -32,7 +32,7 @@ NEGLIGIBLE_GAIN = 1e-10
 _BRENT_LIMIT = 48
 
 
-@dataclass(frozen=True)
+@record
 class AxisCrossing:
     """A crossing of the negative real axis by the closed Nyquist curve.
 

@@ -8,14 +8,15 @@ look at the blocks as well.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.frozen import record
 from ruleguard.location import Location
 from ruleguard.models.lti import Factored, MeasuredResponse
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class BlockModel:
     """One block of the loop as designed and as run.
 
@@ -56,7 +57,7 @@ class BlockModel:
     measured: MeasuredResponse | None = None
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class LoopModel:
     """One variant of one loop, built.
 

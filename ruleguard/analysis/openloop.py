@@ -10,11 +10,11 @@ measured plant, the closed inner loop of a cascade running at another rate.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Protocol, runtime_checkable
 
 import numpy as np
 
+from ruleguard.frozen import record
 from ruleguard.models.arrays import sorted_unique
 from ruleguard.models.lti import Factored
 
@@ -52,7 +52,7 @@ class ResponseFactor(Protocol):
         ...
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class OpenLoop:
     """An open loop L ready for Nyquist analysis.
 

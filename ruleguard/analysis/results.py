@@ -6,10 +6,12 @@ internally and converts once when it builds these records.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import field
+
+from ruleguard.frozen import record
 
 
-@dataclass(frozen=True)
+@record
 class Stability:
     """Nyquist verdict: Z = N + P, with N the clockwise encirclements of -1.
 
@@ -25,7 +27,7 @@ class Stability:
     through_critical_point: bool = False
 
 
-@dataclass(frozen=True)
+@record
 class Crossover:
     """A gain crossover |L| = 1 and its phase margin (180 + angle L, in (-180, 180])."""
 
@@ -33,7 +35,7 @@ class Crossover:
     phase_margin_deg: float
 
 
-@dataclass(frozen=True)
+@record
 class DiskMargin:
     """Disk margin (Seiler, Packard & Gahinet, IEEE CSM 40(5), 2020).
 
@@ -48,7 +50,7 @@ class DiskMargin:
     skew: float = 0.0
 
 
-@dataclass(frozen=True)
+@record
 class Margins:
     """Every margin of FORMATS.md section 5 (``None`` as defined there)."""
 
@@ -70,7 +72,7 @@ class Margins:
     bandwidth_hz: float | None
 
 
-@dataclass(frozen=True)
+@record
 class LoopAnalysis:
     """Stability and margins of one open loop (one variant of one loop)."""
 

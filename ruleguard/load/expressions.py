@@ -21,10 +21,11 @@ from __future__ import annotations
 import math
 import re
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
 from ruleguard.errors import InputError
+from ruleguard.frozen import record
 from ruleguard.location import Location
 
 #: Longest expression text accepted (characters).
@@ -63,7 +64,7 @@ def is_valid_name(name: str) -> bool:
 # ("call", fname, node) | (op, left, right) with op in + - * / **.
 
 
-@dataclass(frozen=True)
+@record
 class Expression:
     """A parsed expression from an input file.
 

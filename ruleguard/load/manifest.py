@@ -14,11 +14,11 @@ from __future__ import annotations
 import re
 from collections.abc import Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from ruleguard.errors import InputError
+from ruleguard.frozen import record
 from ruleguard.load.sources import Document, KeyPath, read_document
 from ruleguard.load.spec import ControllerEntry, LoopSpec, VariantPolicy
 from ruleguard.load.validation import validate
@@ -27,7 +27,7 @@ from ruleguard.location import Location
 DEFAULT_RULESET = "baseline"
 
 
-@dataclass(frozen=True)
+@record
 class Manifest:
     """The validated manifest before its references are followed."""
 

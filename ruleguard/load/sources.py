@@ -29,11 +29,12 @@ import re
 import stat
 from collections.abc import Iterator, Mapping
 from contextvars import ContextVar
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 from typing import Any, Protocol
 
 from ruleguard.errors import InputError
+from ruleguard.frozen import record
 from ruleguard.load.positions import (
     KeyPath,
     build_source_map,
@@ -74,7 +75,7 @@ __all__ = [
 ]
 
 
-@dataclass(frozen=True)
+@record
 class Document:
     """One parsed input file.
 
@@ -164,7 +165,7 @@ class Document:
         return node
 
 
-@dataclass(frozen=True)
+@record
 class Unreadable:
     """A symbol a firmware reader found but takes no value from.
 

@@ -14,13 +14,14 @@ point at the exact line.
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
+from ruleguard.frozen import record
 from ruleguard.location import Location
 
 
-@dataclass(frozen=True)
+@record
 class VaryRange:
     """A varied parameter: ``vary = { R = { min = 1.1, max = 1.8, scale = "log" } }``."""
 
@@ -31,7 +32,7 @@ class VaryRange:
     location: Location
 
 
-@dataclass(frozen=True)
+@record
 class MeasuredData:
     """A measured frequency response read from CSV (``measured_response`` plants)."""
 
@@ -41,7 +42,7 @@ class MeasuredData:
     file: str
 
 
-@dataclass(frozen=True)
+@record
 class PlantEntry:
     """One entry of the plant registry (``[plants.NAME]``), also used for sensors.
 
@@ -66,7 +67,7 @@ class PlantEntry:
     operating_range: Mapping[str, tuple[float, float, Location]] = field(default_factory=dict)
 
 
-@dataclass(frozen=True)
+@record
 class FilterEntry:
     """One ``[[<controller>.filters]]`` item."""
 
@@ -77,7 +78,7 @@ class FilterEntry:
     index: int
 
 
-@dataclass(frozen=True)
+@record
 class SchedulePoint:
     """One breakpoint of a gain schedule (a row, or one element of each array).
 
@@ -96,7 +97,7 @@ class SchedulePoint:
     field_locations: Mapping[str, Location]
 
 
-@dataclass(frozen=True)
+@record
 class Schedule:
     """A gain schedule: controller fields tabulated over a scheduling variable.
 
@@ -126,7 +127,7 @@ class Schedule:
         return self.points[-1].value
 
 
-@dataclass(frozen=True)
+@record
 class ControllerEntry:
     """The controller table at ``path`` of a firmware file, after ``map``/``scale``.
 
@@ -145,7 +146,7 @@ class ControllerEntry:
     schedule: Schedule | None = None
 
 
-@dataclass(frozen=True)
+@record
 class LoopSpec:
     """One ``[[loops]]`` item of the manifest."""
 
@@ -164,7 +165,7 @@ class LoopSpec:
     field_locations: Mapping[str, Location]
 
 
-@dataclass(frozen=True)
+@record
 class VariantPolicy:
     """``variants = "corners"`` or ``{ samples = N, seed = S }``."""
 
@@ -173,7 +174,7 @@ class VariantPolicy:
     seed: int = 0
 
 
-@dataclass(frozen=True)
+@record
 class Project:
     """Everything a manifest names, loaded and validated.
 

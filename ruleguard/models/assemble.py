@@ -69,13 +69,13 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
 from ruleguard.analysis.loop import BlockModel, LoopModel
 from ruleguard.analysis.openloop import OpenLoop
 from ruleguard.errors import InputError, LoopNotAnalysable
+from ruleguard.frozen import record
 from ruleguard.load.spec import LoopSpec, PlantEntry, Project
 from ruleguard.location import Location
 from ruleguard.models.blocks import DesignedBlock, controller_block, filter_block
@@ -101,7 +101,7 @@ CANCEL_RTOL = 1e-12
 ALIASING_NOTE = "aliasing is ignored"
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class _Built:
     """A built loop with its forward path (reference to the plant's output)."""
 

@@ -37,12 +37,13 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
 import numpy as np
 
 from ruleguard.errors import InputError
+from ruleguard.frozen import record
 from ruleguard.load.spec import ControllerEntry, FilterEntry
 from ruleguard.location import Location
 from ruleguard.models.fieldvalues import FieldReader
@@ -59,7 +60,7 @@ TWO_PI = 2.0 * math.pi
 DEFAULT_DERIVATIVE_RATIO = 10.0
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class DesignedBlock:
     """A controller or filter block as the user designed it.
 

@@ -32,11 +32,12 @@ from __future__ import annotations
 
 import math
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
 
 from ruleguard.errors import NumericalWarning
+from ruleguard.frozen import record
 from ruleguard.models.lti import Factored, StateSpace
 
 #: Methods accepted by :func:`discretize_block`.
@@ -307,7 +308,7 @@ def prewarp_shift(center_hz: float, sample_rate_hz: float) -> float:
 # --------------------------------------------------------------------------
 # Exact zero-order-hold equivalent with transport delay
 # --------------------------------------------------------------------------
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class DiscreteStateSpace:
     """A discrete SISO realization ``x[k+1] = A x[k] + B u[k], y[k] = C x[k] + D u[k]``.
 
@@ -1045,7 +1046,7 @@ class _KnownAtEveryFrequency:
         return np.zeros(0)
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class HoldFactor(_KnownAtEveryFrequency):
     """The zero-order hold seen in the frequency domain, ``(1 - e^{-j w h})/(j w h)``.
 
@@ -1072,7 +1073,7 @@ class HoldFactor(_KnownAtEveryFrequency):
         return np.exp(-0.5j * x) * np.sinc(x / (2.0 * math.pi))
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class DelayFactor(_KnownAtEveryFrequency):
     """An exact transport delay ``e^{-j w tau}`` as a frequency-response factor.
 

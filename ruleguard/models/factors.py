@@ -13,11 +13,10 @@ Each class here satisfies :class:`~ruleguard.analysis.openloop.ResponseFactor`
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
 from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.frozen import record
 from ruleguard.models.lti import Factored
 
 
@@ -29,7 +28,7 @@ def _integrator_count(block: Factored) -> int:
     return 0
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class BlockResponse:
     """A factored block seen only through its frequency response.
 
@@ -68,7 +67,7 @@ class BlockResponse:
         return [(w0, m) for w0, m in self.block.boundary_pole_frequencies() if w0 > 1e-12]
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class ClosedLoopResponse:
     """The closed inner loop of a cascade: ``T = forward / (1 + loop)``.
 

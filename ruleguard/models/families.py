@@ -36,10 +36,11 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from ruleguard.deferred import numpy as np
 from ruleguard.errors import InputError
+from ruleguard.frozen import record
 from ruleguard.load.spec import LoopSpec, PlantEntry, Project, VaryRange
 from ruleguard.models.fieldvalues import resolve_parameters, to_float
 from ruleguard.models.schedules import OperatingPoint, nominal_point, operating_points
@@ -50,7 +51,7 @@ MAX_CORNER_PARAMETERS = 10
 NOMINAL_ID = "nominal"
 
 
-@dataclass(frozen=True)
+@record
 class Variant:
     """One member of a loop family.
 
@@ -78,7 +79,7 @@ class Variant:
                 and "." not in k[len(prefix):]}
 
 
-@dataclass(frozen=True)
+@record
 class VariedParameter:
     """A varied name of an entry, with its nominal value and range."""
 

@@ -19,10 +19,11 @@ from __future__ import annotations
 
 import cmath
 import math
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
 
+from ruleguard.frozen import record
 from ruleguard.models.arrays import sorted_unique
 
 #: Relative tolerance within which a pole counts as lying on the stability
@@ -55,7 +56,7 @@ def _as_complex_vector(values, name: str) -> np.ndarray:
 _COMPLEX = np.dtype(complex)
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class Factored:
     """A single-input single-output rational block in factored form.
 
@@ -267,7 +268,7 @@ class Factored:
         return Factored([], [], 1.0, 0.0, sample_time_s)
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class StateSpace:
     """A SISO state-space block ``x' = A x + B u, y = C x + D u`` (s-plane).
 
@@ -454,7 +455,7 @@ def _section_realization(num: np.ndarray, den: np.ndarray):
     return a, b, c, np.array([[d0]])
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class MeasuredResponse:
     """A tabulated frequency response (a measured plant).
 

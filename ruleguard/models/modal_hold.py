@@ -48,10 +48,9 @@ References
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 
+from ruleguard.frozen import record
 from ruleguard.models.lti import Factored
 
 #: Two poles closer than this (relative to the larger modulus) count as
@@ -67,7 +66,7 @@ MODAL_MISFIT_LIMIT = 1e-9
 _PAIR_RTOL = 1e-9
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class ModalHold:
     """The zero-order-hold equivalent of a block as a sum of sampled modes.
 

@@ -51,12 +51,13 @@ from __future__ import annotations
 
 import math
 import re
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
 from ruleguard.analysis.loop import BlockModel, LoopModel
 from ruleguard.analysis.openloop import OpenLoop
+from ruleguard.frozen import record
 from ruleguard.models.discretize import section_groups
 from ruleguard.models.lti import Factored
 
@@ -66,7 +67,7 @@ _Q_FORMAT = re.compile(r"^q(\d+)\.(\d+)$")
 # --------------------------------------------------------------------------
 # Number formats
 # --------------------------------------------------------------------------
-@dataclass(frozen=True)
+@record
 class NumericFormat:
     """A coefficient format: ``float64``, ``float32`` or ``q<m>.<n>``.
 
@@ -178,7 +179,7 @@ def parse_numeric_format(text: str) -> NumericFormat:
 # --------------------------------------------------------------------------
 # Second-order sections
 # --------------------------------------------------------------------------
-@dataclass(frozen=True)
+@record
 class Section:
     """One section ``(b0 + b1 z^-1 + b2 z^-2) / (1 + a1 z^-1 + a2 z^-2)``.
 
@@ -210,7 +211,7 @@ class Section:
         return _quadratic_roots(self.a1, self.a2)
 
 
-@dataclass(frozen=True)
+@record
 class SectionCascade:
     """A z-plane block as ``scale * z^advance * prod(sections)``."""
 
@@ -297,7 +298,7 @@ def second_order_sections(block: Factored, numeric_format: NumericFormat | str =
 # --------------------------------------------------------------------------
 # The report
 # --------------------------------------------------------------------------
-@dataclass(frozen=True)
+@record
 class CoefficientChange:
     """One stored coefficient before and after rounding.
 
@@ -324,7 +325,7 @@ class CoefficientChange:
     saturated: bool
 
 
-@dataclass(frozen=True)
+@record
 class BlockQuantization:
     """What rounding did to one block.
 
@@ -389,7 +390,7 @@ class BlockQuantization:
         return _largest(self.coefficients)
 
 
-@dataclass(frozen=True)
+@record
 class QuantizationReport:
     """The coefficient rounding of one loop variant.
 

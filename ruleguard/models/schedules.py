@@ -22,13 +22,14 @@ from __future__ import annotations
 
 import bisect
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 
+from ruleguard.frozen import record
 from ruleguard.load.spec import Schedule
 from ruleguard.location import Location
 
 
-@dataclass(frozen=True)
+@record
 class OperatingPoint:
     """One point of a schedule a scheduled variant is built at.
 

@@ -7,20 +7,21 @@ findings; each reporter (:mod:`ruleguard.report.json_report`, ``text``,
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import field
 
 from ruleguard.analysis.results import LoopAnalysis
+from ruleguard.frozen import record
 from ruleguard.rules.base import Finding, Severity
 
 
-@dataclass(frozen=True)
+@record
 class VariantResult:
     id: str
     parameters: dict
     analysis: LoopAnalysis
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class ResponseCurve:
     """Samples of the open-loop frequency response L of one variant, for plots.
 
@@ -47,7 +48,7 @@ class ResponseCurve:
     open_loop: tuple[complex, ...]
 
 
-@dataclass(frozen=True)
+@record
 class LoopResult:
     """FORMATS.md section 5, ``loops[]``."""
 
@@ -65,7 +66,7 @@ class LoopResult:
     curves: tuple[ResponseCurve, ...] = ()
 
 
-@dataclass(frozen=True)
+@record
 class RuleInfo:
     """What reporters show about a rule (SARIF ``tool.driver.rules``, text legends)."""
 
@@ -75,7 +76,7 @@ class RuleInfo:
     default_severity: str
 
 
-@dataclass(frozen=True)
+@record
 class Report:
     tool_version: str
     project_name: str

@@ -23,10 +23,10 @@ from __future__ import annotations
 import cmath
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
 from html import escape
 
 from ruleguard.analysis.results import LoopAnalysis
+from ruleguard.frozen import record
 from ruleguard.report.model import ResponseCurve
 from ruleguard.report.units import hertz, number, quantity
 
@@ -39,7 +39,7 @@ GRID = "#d9d9d9"
 FONT = 'font-family="sans-serif" font-size="11"'
 
 
-@dataclass(frozen=True)
+@record
 class Scale:
     """Maps data values along one axis to pixels (linear or base-10 log)."""
 
@@ -66,7 +66,7 @@ class Scale:
         return lo <= value <= hi
 
 
-@dataclass(frozen=True)
+@record
 class Panel:
     """One set of axes of a plot."""
 
@@ -75,7 +75,7 @@ class Panel:
     y: Scale
 
 
-@dataclass(frozen=True)
+@record
 class Plot:
     """An SVG figure and the axes it was drawn with."""
 

@@ -13,8 +13,8 @@ disk margins do not apply and are left out of the worst case.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
 
+from ruleguard.frozen import record
 from ruleguard.report.model import LoopResult, Report, VariantResult
 from ruleguard.rules.base import Severity
 
@@ -25,7 +25,7 @@ NO_CROSSOVER = "no crossover"
 VALUE = "value"
 
 
-@dataclass(frozen=True)
+@record
 class Figure:
     """One figure of one variant (or the worst over variants).
 
@@ -39,7 +39,7 @@ class Figure:
     variant: str | None = None
 
 
-@dataclass(frozen=True)
+@record
 class FigureRow:
     """A row of the per-loop table: nominal and worst over the variants."""
 
@@ -49,7 +49,7 @@ class FigureRow:
     worst: Figure
 
 
-@dataclass(frozen=True)
+@record
 class LoopSummary:
     name: str
     analysed: bool

@@ -10,10 +10,11 @@ id, the severity from the active ruleset and any waiver, giving a
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from enum import Enum
 from typing import Any
 
+from ruleguard.frozen import record
 from ruleguard.location import Location
 
 
@@ -30,7 +31,7 @@ class Severity(str, Enum):
         return {"error": 3, "warning": 2, "note": 1, "disabled": 0}[self.value]
 
 
-@dataclass(frozen=True)
+@record
 class Violation:
     """What a rule observed on one loop (the worst variant)."""
 
@@ -51,7 +52,7 @@ class Violation:
     hint: Any = None
 
 
-@dataclass(frozen=True)
+@record
 class Finding:
     """A rule finding as reported (FORMATS.md section 5, ``findings[]``)."""
 
@@ -73,7 +74,7 @@ class Finding:
     hint: Any = None
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class Evaluation:
     """One analysed (loop, variant)."""
 
@@ -86,7 +87,7 @@ class Evaluation:
     prepared: Mapping[str, Any] = field(default_factory=dict)
 
 
-@dataclass(frozen=True, eq=False)
+@record(eq=False)
 class LoopContext:
     """Everything a rule may look at for one loop.
 

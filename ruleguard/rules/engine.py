@@ -29,10 +29,11 @@ from __future__ import annotations
 import datetime
 import fnmatch
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 from ruleguard.deferred import numpy as np
 from ruleguard.errors import InputError
+from ruleguard.frozen import record
 from ruleguard.location import Location
 from ruleguard.rules.base import Finding, LoopContext, Severity, Violation
 from ruleguard.rules.catalog import RULES, UnknownRule, check_patterns, is_selected, matches
@@ -43,7 +44,7 @@ from ruleguard.rules.spec import Adjustment, ParameterValues, Ruleset, RuleSetti
 CLOSED_LOOP = "stability.closed-loop"
 
 
-@dataclass(frozen=True)
+@record
 class EffectiveRule:
     """How one rule runs on one loop: severity, parameters and where they were set.
 

@@ -53,10 +53,11 @@ from __future__ import annotations
 import cmath
 import math
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from typing import Any
 
 from ruleguard.deferred import numpy as np
+from ruleguard.frozen import record
 from ruleguard.rules.base import Evaluation, LoopContext, Severity, Violation
 
 #: Rules a hint is given for, and that the gain factor range satisfies at once.
@@ -78,7 +79,7 @@ _POOR = 1e300
 Intervals = list[tuple[float, float]]
 
 
-@dataclass(frozen=True)
+@record
 class FixHint:
     """What would make a failing finding pass.
 
@@ -615,7 +616,7 @@ def _min_delay_s(ctx: LoopContext, params: Mapping[str, Any]) -> float | None:
     return None
 
 
-@dataclass(frozen=True)
+@record
 class _Limits:
     """The limits of the hinted rules configured for one loop."""
 

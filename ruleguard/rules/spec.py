@@ -12,14 +12,15 @@ from __future__ import annotations
 
 import datetime
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
+from ruleguard.frozen import record
 from ruleguard.location import Location
 from ruleguard.rules.base import RuleFunction, Severity
 
 
-@dataclass(frozen=True)
+@record
 class Parameter:
     """A rule parameter. ``unit`` is also the suffix of its name (``min_deg``).
 
@@ -38,7 +39,7 @@ class Parameter:
     choices: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True)
+@record
 class RuleSpec:
     """One rule: id, family, default severity, parameters, texts, source, function.
 
@@ -116,7 +117,7 @@ def threshold_location(params: Mapping[str, Any], name: str) -> Location | None:
     return getter(name) if getter is not None else None
 
 
-@dataclass(frozen=True)
+@record
 class RuleSetting:
     """What one ruleset table says about one rule (``[rules."margin.phase"]``).
 
@@ -131,7 +132,7 @@ class RuleSetting:
     location: Location
 
 
-@dataclass(frozen=True)
+@record
 class Adjustment:
     """One ``[[adjustments]]`` item: settings for the loops it matches.
 
@@ -150,7 +151,7 @@ class Adjustment:
     index: int = 0
 
 
-@dataclass(frozen=True)
+@record
 class Waiver:
     """One ``[[waivers]]`` item: findings of ``rule`` on matching loops are waived.
 
@@ -167,7 +168,7 @@ class Waiver:
     index: int = 0
 
 
-@dataclass(frozen=True)
+@record
 class Ruleset:
     """A loaded ruleset with its ``based_on`` chain resolved.
 

@@ -1,0 +1,204 @@
+"""Frozen records: dataclasses that cost little to define.
+
+``@record`` (or ``@record(eq=False)``) makes a class what
+``@dataclasses.dataclass(frozen=True)`` (or ``frozen=True, eq=False``) makes
+it: the same fields (``dataclasses.fields``, ``replace``, ``asdict`` and
+pickling work unchanged), the same ``__init__`` (defaults, default
+factories, keyword-only fields, ``__post_init__``), the same ``__repr__``,
+``__eq__`` and ``__hash__``, and the same ``FrozenInstanceError`` on
+assignment or deletion of an attribute. Methods written in the class body
+are kept, as the standard decorator keeps them.
+
+Why: Python's decorator writes the source text of up to six methods per
+class and compiles each with ``exec`` (0.9 ms per class on the machine of
+docs/scaling.md; 76 classes on the pre-commit hook's route, 0.07 s of its
+start). Here ``__repr__``, ``__eq__``, ``__hash__``, ``__setattr__`` and
+``__delattr__`` are closures over the class's field names (attribute tuples
+through :func:`operator.attrgetter`, compiled code from the standard
+library), and only ``__init__`` is compiled, as one short function, when the
+first instance of the class is built (a class never built on a route costs
+nothing more).
+
+Differences from the standard decorator, none observable through the
+instances: ``__dataclass_params__`` records the standard decorator's
+options as called here (``init=False, repr=False, eq=False``), and until the
+first instance exists ``inspect.signature`` of the class shows
+``(*args, **kwargs)``. ``InitVar`` fields are not supported (none exist in
+ruleguard; they raise ``TypeError`` at definition).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import reprlib
+from collections.abc import Callable
+from operator import attrgetter
+from typing import Any, TypeVar
+
+__all__ = ["record"]
+
+T = TypeVar("T", bound=type)
+
+_OBJECT_SETATTR = object.__setattr__
+
+
+def record(cls: T | None = None, /, *, eq: bool = True) -> Any:
+    """Make ``cls`` a frozen dataclass (``eq=False``: identity equality and hash).
+
+    Use as ``@record`` or ``@record(eq=False)``.
+    """
+
+    def wrap(cls: T) -> T:
+        return _make_record(cls, eq)
+
+    return wrap if cls is None else wrap(cls)
+
+
+def _make_record(cls: T, eq: bool) -> T:
+    own = dict(cls.__dict__)
+    explicit_hash = "__hash__" in own and not (own["__hash__"] is None and "__eq__" in own)
+    for name in ("__setattr__", "__delattr__"):
+        if name in own:
+            raise TypeError(f"cannot overwrite attribute {name} in class {cls.__name__}")
+    # the standard decorator with every method switched off: it only collects
+    # the fields (inherited ones included) and sets the class attributes
+    cls = dataclasses.dataclass(cls, init=False, repr=False, eq=False)
+    fields = dataclasses.fields(cls)
+    names = frozenset(f.name for f in fields)
+    for name, f in cls.__dataclass_fields__.items():  # fields() leaves out InitVar and ClassVar
+        if name not in names and "InitVar" in str(f.type):
+            raise TypeError(f"{cls.__name__}.{name}: records take no InitVar fields")
+    seen_default = False
+    for f in fields:
+        if f.init and not f.kw_only:
+            has_default = (f.default is not dataclasses.MISSING
+                           or f.default_factory is not dataclasses.MISSING)
+            if seen_default and not has_default:
+                raise TypeError(f"non-default argument {f.name!r} follows default argument")
+            seen_default = seen_default or has_default
+
+    def put(name: str, value: Callable) -> None:
+        if name not in own:
+            value.__qualname__ = f"{cls.__qualname__}.{name}"
+            setattr(cls, name, value)
+
+    put("__init__", _lazy_init(cls))
+    put("__repr__", _repr(tuple(f.name for f in fields if f.repr)))
+    if eq:
+        put("__eq__", _eq(_tuple_of(tuple(f.name for f in fields if f.compare))))
+        if not explicit_hash:
+            hashed = tuple(f.name for f in fields if (f.compare if f.hash is None else f.hash))
+            cls.__hash__ = _hash(_tuple_of(hashed))  # type: ignore[method-assign]
+
+    def __setattr__(self: Any, name: str, value: Any) -> None:
+        if type(self) is cls or name in names:
+            raise dataclasses.FrozenInstanceError(f"cannot assign to field {name!r}")
+        super(cls, self).__setattr__(name, value)
+
+    def __delattr__(self: Any, name: str) -> None:
+        if type(self) is cls or name in names:
+            raise dataclasses.FrozenInstanceError(f"cannot delete field {name!r}")
+        super(cls, self).__delattr__(name)
+
+    put("__setattr__", __setattr__)
+    put("__delattr__", __delattr__)
+    return cls
+
+
+def _tuple_of(names: tuple[str, ...]) -> Callable[[Any], tuple]:
+    """``obj -> (obj.<name>, ...)`` for these names, in order."""
+    if len(names) >= 2:
+        return attrgetter(*names)
+    if len(names) == 1:
+        one = attrgetter(names[0])
+        return lambda obj: (one(obj),)
+    return lambda obj: ()
+
+
+def _repr(shown: tuple[str, ...]) -> Callable[[Any], str]:
+    @reprlib.recursive_repr()
+    def __repr__(self: Any) -> str:
+        inner = ", ".join(f"{name}={getattr(self, name)!r}" for name in shown)
+        return f"{self.__class__.__qualname__}({inner})"
+
+    return __repr__
+
+
+def _eq(key: Callable[[Any], tuple]) -> Callable[[Any, Any], Any]:
+    def __eq__(self: Any, other: Any) -> Any:
+        if other.__class__ is self.__class__:
+            return key(self) == key(other)
+        return NotImplemented
+
+    return __eq__
+
+
+def _hash(key: Callable[[Any], tuple]) -> Callable[[Any], int]:
+    def __hash__(self: Any) -> int:
+        return hash(key(self))
+
+    return __hash__
+
+
+def _lazy_init(cls: type) -> Callable[..., None]:
+    """A stand-in ``__init__`` that compiles the real one at the first instance."""
+
+    def __init__(instance: Any, /, *args: Any, **kwargs: Any) -> None:
+        real = _compile_init(cls)
+        if cls.__dict__.get("__init__") is __init__:
+            real.__qualname__ = f"{cls.__qualname__}.__init__"
+            cls.__init__ = real  # type: ignore[misc]
+        real(instance, *args, **kwargs)
+
+    return __init__
+
+
+class _Factory:
+    """The default of a parameter whose field has a default factory."""
+
+    def __repr__(self) -> str:
+        return "<factory>"
+
+
+_FACTORY = _Factory()
+
+
+def _compile_init(cls: type) -> Callable[..., None]:
+    """The ``__init__`` the standard frozen dataclass would write for ``cls``."""
+    fields = dataclasses.fields(cls)
+    self_name = "__record_self__" if any(f.name == "self" for f in fields) else "self"
+    namespace: dict[str, Any] = {"__record_set__": _OBJECT_SETATTR, "__record_factory__": _FACTORY}
+    positional, keyword, body = [], [], []
+    for f in fields:
+        value = f.name
+        if f.init:
+            if f.default is not dataclasses.MISSING:
+                namespace[f"__default_{f.name}__"] = f.default
+                param = f"{f.name}=__default_{f.name}__"
+            elif f.default_factory is not dataclasses.MISSING:
+                namespace[f"__factory_{f.name}__"] = f.default_factory
+                param = f"{f.name}=__record_factory__"
+                value = f"__factory_{f.name}__() if {f.name} is __record_factory__ else {f.name}"
+            else:
+                param = f.name
+            (keyword if f.kw_only else positional).append(param)
+        elif f.default is not dataclasses.MISSING:
+            namespace[f"__default_{f.name}__"] = f.default
+            value = f"__default_{f.name}__"
+        elif f.default_factory is not dataclasses.MISSING:
+            namespace[f"__factory_{f.name}__"] = f.default_factory
+            value = f"__factory_{f.name}__()"
+        else:
+            continue
+        body.append(f"    __record_set__({self_name}, {f.name!r}, {value})")
+    if hasattr(cls, "__post_init__"):
+        body.append(f"    {self_name}.__post_init__()")
+    params = [self_name, *positional] + (["*", *keyword] if keyword else [])
+    source = f"def __init__({', '.join(params)}):\n" + ("\n".join(body) or "    pass") + "\n"
+    try:
+        exec(source, namespace)  # source built above from the class's own field names
+    except SyntaxError as exc:  # e.g. a field without default after one with a default
+        raise TypeError(f"{cls.__name__}: {exc.msg}") from None
+    init = namespace["__init__"]
+    init.__annotations__ = {f.name: f.type for f in fields if f.init} | {"return": None}
+    return init
