@@ -25,7 +25,16 @@ lower bounds.
 Then the largest imports (`python -X importtime`) of the cache-hit route and
 of the cold one-loop check. Run from the repository root:
 
-    python benchmarks/bench_hook.py [--runs 15] [--baseline DIR]
+    python benchmarks/bench_hook.py [--runs 15] [--baseline DIR] [--installed]
+
+With ``--installed`` every command runs on the interpreter of a new virtual
+environment (in a temporary folder, without the system's site-packages)
+into which this checkout is installed with ``pip install .``, as pre-commit
+installs a hook's repository: no editable-install finder and none of the
+development machine's ``.pth`` files are imported at start-up (on the
+machine of docs/scaling.md those cost about 30 ms of every figure,
+``python -c pass`` included). The dependencies come from pip's configured
+index (a local one works without a network).
 """
 
 from __future__ import annotations
@@ -93,8 +102,26 @@ def main() -> None:
     parser = argparse.ArgumentParser()
     parser.add_argument("--runs", type=int, default=15)
     parser.add_argument("--baseline", help="a checkout of older ruleguard code to compare with")
+    parser.add_argument("--installed", action="store_true",
+                        help="run in a new venv with this checkout installed by `pip install .`")
     args = parser.parse_args()
-    py = sys.executable
+    with tempfile.TemporaryDirectory() as venv:
+        py = _installed_python(Path(venv)) if args.installed else sys.executable
+        _measure(args, py)
+
+
+def _installed_python(folder: Path) -> str:
+    """Python of a new venv in ``folder`` holding this checkout, installed as pre-commit does."""
+    subprocess.run([sys.executable, "-m", "venv", str(folder)], check=True)
+    py = str(folder / "bin" / "python")
+    root = Path(__file__).resolve().parents[1]
+    subprocess.run([py, "-m", "pip", "install", "-q", "--disable-pip-version-check", str(root)],
+                   check=True, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    print(f"interpreter: a new venv with `pip install {root}` ({py})")
+    return py
+
+
+def _measure(args: argparse.Namespace, py: str) -> None:
     rg = [py, "-m", "ruleguard"]
     table = _Table(args.runs, args.baseline)
     table.row("bare interpreter (python -c pass)", [py, "-c", "pass"])
