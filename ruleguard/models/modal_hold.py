@@ -326,9 +326,12 @@ def modal_hold(block: Factored, sample_time_s: float, whole: int, fraction: floa
         if not (np.isfinite(q0).all() and np.isfinite(q1).all()):
             return None
     else:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            q0 = np.where(p == 0, h, lam_minus_one / p)  # _psi(p, h), from the same expm1
-        q1 = np.zeros_like(q0)
+        if p.all():  # no pole at s = 0: the division alone, the same numbers as below
+            q0 = lam_minus_one / p  # _psi(p, h), from the same expm1
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                q0 = np.where(p == 0, h, lam_minus_one / p)
+        q1 = np.zeros(q0.shape, dtype=complex)
         if not np.isfinite(q0).all():
             return None
     return ModalHold(p, r, lam_minus_one, q0, q1, float(feed), fraction > 0.0, int(whole), h,
