@@ -387,7 +387,8 @@ def siso_zeros(a: np.ndarray, b: np.ndarray, c: np.ndarray, d: float,
         # the largest output weight first (a symmetric permutation): the
         # reflection below then mixes the states least, and an output that
         # reads one state alone is taken over exactly
-        k = int(np.argmax(np.abs(c)))
+        weights = [abs(x) for x in c.tolist()]
+        k = weights.index(max(weights))  # the first largest, as numpy.argmax
         if k:
             order = np.array([k, *range(k), *range(k + 1, n)])
             a, b, c = a[order[:, None], order], b[order], c[order]  # C-contiguous, as a is

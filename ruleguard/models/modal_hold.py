@@ -233,10 +233,20 @@ class ModalHold:
 
 
 def _pair_indices(poles: np.ndarray) -> tuple[list[int], list[int]]:
-    """Indices of the upper members of conjugate pairs and of the real poles."""
-    scale = np.maximum(np.abs(poles), 1e-300)
-    upper = [int(i) for i in np.nonzero(poles.imag > _PAIR_RTOL * scale)[0]]
-    real = [int(i) for i in np.nonzero(np.abs(poles.imag) <= _PAIR_RTOL * scale)[0]]
+    """Indices of the upper members of conjugate pairs and of the real poles.
+
+    A pole is real when ``|Im p| <= _PAIR_RTOL max(|p|, 1e-300)`` (on Python
+    complex numbers: ``abs`` is ``hypot`` as in numpy, the same tests).
+    """
+    upper: list[int] = []
+    real: list[int] = []
+    for i, p in enumerate(poles.tolist()):
+        bound = _PAIR_RTOL * max(abs(p), 1e-300)
+        im = p.imag
+        if im > bound:
+            upper.append(i)
+        elif abs(im) <= bound:
+            real.append(i)
     return upper, real
 
 
