@@ -628,10 +628,12 @@ def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
     """Make nearly real roots real and pair the complex ones exactly.
 
     On Python complex numbers (a dozen roots: cheaper than numpy calls), with
-    the operations numpy would do: ``abs`` is ``hypot`` in both, the pair
-    mean is the complex product ``0.5 * (u + conj(l))`` written out
-    (``(0.5 re - 0 im, 0 re + 0.5 im)``), so the result is the same bit for
-    bit; the sort by real part is stable (equal real parts keep their order).
+    the operations numpy would do: the pair mean is the complex product
+    ``0.5 * (u + conj(l))`` written out (``(0.5 re - 0 im, 0 re + 0.5 im)``),
+    so the result is the same bit for bit; ``abs`` (``hypot``) is within an
+    ulp of numpy's modulus, which only matters for an imaginary part within
+    an ulp of the tolerance; the sort by real part is stable (equal real
+    parts keep their order).
     """
     values = np.asarray(roots, dtype=complex).reshape(-1).tolist()
     tol = 1e-9
