@@ -422,9 +422,11 @@ def _discrete_path(controller_path: Factored, inner_t, plant, sensor, delay_s: f
         else:
             responses.append(piece)
     if not responses:
-        path = Factored.unity()
-        for piece in continuous:
-            path = path * piece
+        # the product of the pieces (one piece: itself, the numbers 1 * x would give)
+        path = continuous[0] if len(continuous) == 1 else Factored.unity()
+        if len(continuous) != 1:
+            for piece in continuous:
+                path = path * piece
         zoh = zoh_equivalent(path, h, delay_s)
         return OpenLoop(rational * zoh, tuple(same_rate)), zoh, "zoh"
     whole, fraction = split_delay(delay_s, h)

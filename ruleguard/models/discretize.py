@@ -625,20 +625,46 @@ def _delta_pencil_zeros(pencil: np.ndarray, h: float, pole_radius: float) -> np.
 
 
 def _conjugate_symmetric(roots: np.ndarray) -> np.ndarray:
-    """Make nearly real roots real and pair the complex ones exactly."""
-    roots = np.asarray(roots, dtype=complex)
+    """Make nearly real roots real and pair the complex ones exactly.
+
+    On Python complex numbers (a dozen roots: cheaper than numpy calls), with
+    the operations numpy would do: the pair mean is the complex product
+    ``0.5 * (u + conj(l))`` written out (``(0.5 re - 0 im, 0 re + 0.5 im)``),
+    so the result is the same bit for bit; ``abs`` (``hypot``) is within an
+    ulp of numpy's modulus, which only matters for an imaginary part within
+    an ulp of the tolerance; the sort by real part is stable (equal real
+    parts keep their order).
+    """
+    values = np.asarray(roots, dtype=complex).reshape(-1).tolist()
     tol = 1e-9
-    scale = np.maximum(np.abs(roots), 1.0)
-    real = roots[np.abs(roots.imag) <= tol * scale].real.astype(complex)
-    upper = roots[roots.imag > tol * scale]
-    lower = roots[roots.imag < -tol * scale]
-    if upper.size != lower.size:
+    real: list[complex] = []
+    upper: list[complex] = []
+    lower: list[complex] = []
+    for r in values:
+        bound = tol * max(abs(r), 1.0)
+        im = r.imag
+        if abs(im) <= bound:
+            real.append(complex(r.real, 0.0))
+        elif im > bound:
+            upper.append(r)
+        elif im < -bound:
+            lower.append(r)
+        # (a NaN fails every comparison and is dropped, as by the masks of numpy)
+    if len(upper) != len(lower):
         # unpaired rounding: keep them as they are (the gain fit reports it)
-        return roots
-    lower_sorted = lower[np.argsort(lower.real)]
-    upper_sorted = upper[np.argsort(upper.real)]
-    paired = 0.5 * (upper_sorted + np.conj(lower_sorted))
-    return np.concatenate([real, paired, np.conj(paired)])
+        return np.asarray(roots, dtype=complex)
+    upper.sort(key=_real_part)
+    lower.sort(key=_real_part)
+    paired = []
+    for u, lo in zip(upper, lower, strict=True):
+        sr = u.real + lo.real
+        si = u.imag - lo.imag
+        paired.append(complex(0.5 * sr - 0.0 * si, 0.0 * sr + 0.5 * si))
+    return np.array(real + paired + [p.conjugate() for p in paired], dtype=complex)
+
+
+def _real_part(r: complex) -> float:
+    return r.real
 
 
 _FIT_POINTS: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None

@@ -48,6 +48,8 @@ References
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ruleguard.frozen import record
@@ -180,48 +182,47 @@ class ModalHold:
         shifted = [0.0] * (m * m)
         b = [0.0] * m
         c = [0.0] * m
+        # on Python numbers (a few modes: cheaper than numpy calls), with the
+        # operations numpy would do: sqrt is correctly rounded in both, products
+        # and quotients are taken in the same order; the moduli of the complex
+        # residues come from numpy (its abs of a complex array is not always
+        # hypot's last bit), over the same gathered array as before
+        residue = self.residue.tolist()
+        modulus = np.abs(self.residue[upper]).tolist() if upper else []
+        lam = self.lam_minus_one.tolist()
+        q0 = self.q0.tolist()
+        q1 = self.q1.tolist() if f else None
         # pairs: states 2k, 2k + 1 (k < nu); a function of the rotation block
         # of q is the rotation block of the function, rot(q) @ [0, t] = t [Im q, Re q]
-        if nu:
-            r = self.residue[upper]
-            t = np.sqrt(2.0 * np.abs(r))
-            t = np.where(t > 0.0, t, 1.0)
-            lam = self.lam_minus_one[upper]
-            q0 = self.q0[upper]
-            lam_re, lam_im = lam.real.tolist(), lam.imag.tolist()
-            b_first, b_second = (q0.imag * t).tolist(), (q0.real * t).tolist()
-            c_first, c_second = (-2.0 * r.imag / t).tolist(), (2.0 * r.real / t).tolist()
+        for k, idx in enumerate(upper):
+            r = residue[idx]
+            t = math.sqrt(2.0 * modulus[k])
+            if not t > 0.0:
+                t = 1.0
+            lk, qk = lam[idx], q0[idx]
+            i, j = 2 * k, 2 * k + 1
+            shifted[i * m + i] = lk.real
+            shifted[i * m + j] = lk.imag
+            shifted[j * m + i] = -lk.imag
+            shifted[j * m + j] = lk.real
+            b[i], b[j] = qk.imag * t, qk.real * t
+            c[i], c[j] = -2.0 * r.imag / t, 2.0 * r.real / t
             if f:
-                q1 = self.q1[upper]
-                g_first, g_second = (q1.imag * t).tolist(), (q1.real * t).tolist()
-            for k in range(nu):
-                i, j = 2 * k, 2 * k + 1
-                shifted[i * m + i] = lam_re[k]
-                shifted[i * m + j] = lam_im[k]
-                shifted[j * m + i] = -lam_im[k]
-                shifted[j * m + j] = lam_re[k]
-                b[i], b[j] = b_first[k], b_second[k]
-                c[i], c[j] = c_first[k], c_second[k]
-                if f:
-                    shifted[i * m + n] = g_first[k]
-                    shifted[j * m + n] = g_second[k]
+                g = q1[idx]
+                shifted[i * m + n] = g.imag * t
+                shifted[j * m + n] = g.real * t
         # real poles: states 2 nu ..
-        if nr:
-            rr = self.residue[real].real
-            tr = np.sqrt(np.abs(rr))
-            tr = np.where(tr > 0.0, tr, 1.0)
-            lam_r = self.lam_minus_one[real].real.tolist()
-            b_real = (self.q0[real].real * tr).tolist()
-            c_real = (rr / tr).tolist()
+        for k, idx in enumerate(real):
+            rr = residue[idx].real
+            tr = math.sqrt(abs(rr))
+            if not tr > 0.0:
+                tr = 1.0
+            i = 2 * nu + k
+            shifted[i * m + i] = lam[idx].real
+            b[i] = q0[idx].real * tr
+            c[i] = rr / tr
             if f:
-                g_real = (self.q1[real].real * tr).tolist()
-            for k in range(nr):
-                i = 2 * nu + k
-                shifted[i * m + i] = lam_r[k]
-                b[i] = b_real[k]
-                c[i] = c_real[k]
-                if f:
-                    shifted[i * m + n] = g_real[k]
+                shifted[i * m + n] = q1[idx].real * tr
         if f:
             shifted[n * m + n] = -1.0
             b[n] = 1.0
@@ -233,10 +234,21 @@ class ModalHold:
 
 
 def _pair_indices(poles: np.ndarray) -> tuple[list[int], list[int]]:
-    """Indices of the upper members of conjugate pairs and of the real poles."""
-    scale = np.maximum(np.abs(poles), 1e-300)
-    upper = [int(i) for i in np.nonzero(poles.imag > _PAIR_RTOL * scale)[0]]
-    real = [int(i) for i in np.nonzero(np.abs(poles.imag) <= _PAIR_RTOL * scale)[0]]
+    """Indices of the upper members of conjugate pairs and of the real poles.
+
+    A pole is real when ``|Im p| <= _PAIR_RTOL max(|p|, 1e-300)`` (on Python
+    complex numbers: ``abs`` is ``hypot``, within an ulp of numpy's modulus,
+    which only matters for an imaginary part within an ulp of the bound).
+    """
+    upper: list[int] = []
+    real: list[int] = []
+    for i, p in enumerate(poles.tolist()):
+        bound = _PAIR_RTOL * max(abs(p), 1e-300)
+        im = p.imag
+        if im > bound:
+            upper.append(i)
+        elif abs(im) <= bound:
+            real.append(i)
     return upper, real
 
 
@@ -326,9 +338,12 @@ def modal_hold(block: Factored, sample_time_s: float, whole: int, fraction: floa
         if not (np.isfinite(q0).all() and np.isfinite(q1).all()):
             return None
     else:
-        with np.errstate(divide="ignore", invalid="ignore"):
-            q0 = np.where(p == 0, h, lam_minus_one / p)  # _psi(p, h), from the same expm1
-        q1 = np.zeros_like(q0)
+        if p.all():  # no pole at s = 0: the division alone, the same numbers as below
+            q0 = lam_minus_one / p  # _psi(p, h), from the same expm1
+        else:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                q0 = np.where(p == 0, h, lam_minus_one / p)
+        q1 = np.zeros(q0.shape, dtype=complex)
         if not np.isfinite(q0).all():
             return None
     return ModalHold(p, r, lam_minus_one, q0, q1, float(feed), fraction > 0.0, int(whole), h,
