@@ -343,6 +343,60 @@ def _matters(lo: float, hi: float, within: Intervals | None) -> bool:
         intersect([(lo - _REFINE_REACH_DB, hi + _REFINE_REACH_DB)], within))
 
 
+#: dB per neper: ``-20 log10 |L|`` moves by this times the change of ``log |L|``.
+_DB_PER_NEPER = 20.0 / math.log(10.0)
+#: Added to every bound below (dB): covers the rounding of the computed values
+#: the bounds are compared with (relative errors near 1e-14).
+_BOUND_SLACK_DB = 1e-6
+
+
+def _step_reach_db(contour) -> Callable[[Any], Any] | None:
+    """``branch -> reach`` (dB per step): how far ``-20 log10 |L|`` can move inside a step.
+
+    The contour keeps, per step ``[w_k, w_k+1]`` of a branch, a Taylor bound
+    ``beta_k`` on the change of ``log L`` (``Branch.bound``: ``(b - a)(|D(m)| +
+    (b - a)/2 max |D'|)`` with ``D`` the logarithmic derivative, see
+    ``RationalResponse.step_bound``). The same bound holds from either end to
+    any point inside the step (the change from ``a`` to ``x`` is at most
+    ``(x - a) max |D|``), so there ``-20 log10 |L|`` lies within
+    ``_DB_PER_NEPER * beta_k`` dB of its value at either end. ``None`` when the
+    bound does not cover ``|L|``: frequency-response factors (their variation
+    is not in it) or zeros on the contour (left out of the bound).
+    """
+    memo = _memo(contour)
+    if "reach" in memo:
+        return memo["reach"]
+    rational = contour.rational
+    covered = (not contour.open_loop.factors and not getattr(rational, "extras", ())
+               and not bool(np.any(rational.block.on_boundary(rational.zeros))))
+    reach = None
+    if covered:
+        def reach(br):
+            return _DB_PER_NEPER * br.bound + _BOUND_SLACK_DB
+    memo["reach"] = reach
+    return reach
+
+
+def _cannot_lower(floor: float, lo: float) -> bool:
+    """A search whose values are all at least ``floor`` leaves ``min(lo, ...)`` at ``lo``."""
+    return floor > lo
+
+
+def _widen_within(value: Callable[[float], float], a: float, b: float, lo: float, hi: float,
+                  base: float, reach: float) -> tuple[float, float]:
+    """:func:`_widen` where ``value`` is known to lie in ``[base - reach, base + reach]``
+    on ``(a, b)``: a search that cannot move ``lo`` (``hi``) is not run (same result)."""
+    from ruleguard.analysis.contour import _minimize
+
+    lo, hi = min(lo, value(a), value(b)), max(hi, value(a), value(b))
+    if b > a:
+        if not _cannot_lower(base - reach, lo):
+            lo = min(lo, _minimize(value, a, b)[1])
+        if not _cannot_lower(-(base + reach), -hi):
+            hi = max(hi, -_minimize(lambda x: -value(x), a, b)[1])
+    return lo, hi
+
+
 def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], np.ndarray],
                              within: Intervals | None = None
                              ) -> tuple[Intervals, list[tuple[float, float]]]:
@@ -358,6 +412,7 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
     test_key = getattr(test, "key", None)
     # a run's refinement does not depend on ``within``: remembered per test
     refined_runs = _memo(contour).setdefault("runs", {}) if test_key is not None else None
+    reach = _step_reach_db(contour)
     for bi, br in enumerate(contour.branches):
         w, L = br.w, br.L
         g = test(w, L)
@@ -375,6 +430,7 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             return _db_of_inverse_scalar(response(x))
 
         vals = _db_of_inverse(L)
+        steps = reach(br) if reach is not None else None
         for i0, i1 in runs:
             seg = vals[i0:i1 + 1]
             lo, hi = float(np.min(seg)), float(np.max(seg))
@@ -394,12 +450,20 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
                 r = _edge_root(g_scalar, float(w[i0 - 1]), float(w[i0]))
                 if r is not None:
                     w_lo = r
-                    lo, hi = _widen(value, r, float(w[i0]), lo, hi)
+                    if steps is None or not math.isfinite(float(vals[i0])):
+                        lo, hi = _widen(value, r, float(w[i0]), lo, hi)
+                    else:
+                        lo, hi = _widen_within(value, r, float(w[i0]), lo, hi,
+                                               float(vals[i0]), float(steps[i0 - 1]))
             if i1 < w.size - 1:
                 r = _edge_root(g_scalar, float(w[i1]), float(w[i1 + 1]))
                 if r is not None:
                     w_hi = r
-                    lo, hi = _widen(value, float(w[i1]), r, lo, hi)
+                    if steps is None or not math.isfinite(float(vals[i1])):
+                        lo, hi = _widen(value, float(w[i1]), r, lo, hi)
+                    else:
+                        lo, hi = _widen_within(value, float(w[i1]), r, lo, hi,
+                                               float(vals[i1]), float(steps[i1]))
             jmin, jmax = i0 + int(np.argmin(seg)), i0 + int(np.argmax(seg))
             lo = min(lo, _refined_extreme(value, w, jmin, 1.0, (i0, i1)))
             hi = max(hi, _refined_extreme(value, w, jmax, -1.0, (i0, i1)))
@@ -493,6 +557,32 @@ def _quadratic_roots_scalar(L: complex, shift: float, radius: float
     return min(r1, r2), max(r1, r2), disc
 
 
+#: Above this bound on the ratio of the two roots, the roots' bounds are not used
+#: (the lower root, formed by a difference, could lose more than the bounds' slack).
+_ROOT_RATIO_LIMIT = 1e6
+
+
+def _root_span_db(shift: float, radius: float) -> tuple[float, float] | None:
+    """Where the roots of the peak quadratic lie around ``-20 log10 |L|`` (dB), or ``None``.
+
+    With ``A = p |L|^2``, ``B = 2 Re L q'``, ``C`` (``p = R^2 - c^2 > 0``,
+    ``q' = R^2 - c^2 - c``, ``C = R^2 - (1 + c)^2 > 0``) both roots have the
+    sign of ``-B`` and product ``C/A``, sum ``-B/A``; where the upper root is
+    positive both are, so ``k2 <= |B|/A <= 2 |q'| / (p |L|)`` and
+    ``k1 = (C/A)/k2 >= C/|B| >= C / (2 |q'| |L|)``. Returns the two constants
+    ``(20 log10 (C / 2|q'|), 20 log10 (2|q'| / p))``: the lower root in dB is at
+    least ``-20 log10 |L|`` plus the first, the upper root at most it plus the
+    second. ``None`` where ``C <= 0`` (roots of opposite signs) or the roots
+    may lie more than ``_ROOT_RATIO_LIMIT`` apart (``B^2/(AC) <= 4 q'^2/(p C)``).
+    """
+    p = radius * radius - shift * shift
+    q = abs(p - shift)
+    c = radius * radius - (1.0 + shift) ** 2
+    if not (p > 0.0 and c > 0.0 and q > 0.0) or 4.0 * q * q / (p * c) > _ROOT_RATIO_LIMIT:
+        return None
+    return 20.0 * math.log10(c / (2.0 * q)), 20.0 * math.log10(2.0 * q / p)
+
+
 def _to_db(k: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         return 20.0 * np.log10(k)
@@ -521,6 +611,8 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
     forbidden = []
     response = _scalar_response(contour)
     roots: dict[float, tuple[float, float, float]] = {}
+    reach = _step_reach_db(contour)
+    root_span = _root_span_db(shift, radius) if reach is not None else None
 
     def roots_at(x: float) -> tuple[float, float, float]:
         found = roots.get(x) if x != 0.0 else None
@@ -538,6 +630,9 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
         lo_db = _to_db(np.maximum(r1, 0.0))
         hi_db = _to_db(r2)
         start_kind, stop_kind = _end_kinds(contour, bi)
+        steps = vinv = None
+        if root_span is not None:
+            steps, vinv = reach(br), _db_of_inverse(br.L)
 
         def lo_at(x: float) -> float:
             a, b, _ = roots_at(x)
@@ -571,7 +666,16 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
                 if edge is None:
                     continue
                 a, b = sorted((float(w[inner]), edge))
+                # the roots' bounds on the step (see _root_span_db): a search
+                # that cannot move lo (hi) is not run
+                skip_lo = skip_hi = False
+                if steps is not None and math.isfinite(float(vinv[inner])):
+                    base, step = float(vinv[inner]), float(steps[min(inner, outer)])
+                    skip_lo = _cannot_lower(base - step + root_span[0], lo)
+                    skip_hi = _cannot_lower(-(base + step + root_span[1]), -hi)
                 for fun, sign in ((lo_at, 1.0), (hi_at, -1.0)):
+                    if skip_lo if sign > 0 else skip_hi:
+                        continue
                     def g(x: float, fun=fun, sign=sign) -> float:
                         v = fun(x)
                         return sign * v if math.isfinite(v) else _POOR
