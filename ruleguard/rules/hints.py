@@ -254,13 +254,23 @@ def _scalar_response(contour) -> Callable[[float], complex]:
         def ref():
             return contour
 
+    # without factors, the rational part's plain-arithmetic function itself
+    # (``scalar_evaluator``: the same numbers as ``evaluate_scalar``, one call
+    # less; it holds the roots, not the contour)
+    evaluator = None
+    if not getattr(getattr(contour, "open_loop", None), "factors", True):
+        evaluator = getattr(contour, "scalar_evaluator", lambda: None)()
+    if evaluator is None:
+        def evaluator(x: float) -> complex:
+            return ref().evaluate_scalar(x)
+
     def response(x: float) -> complex:
         x = float(x)
         if x == 0.0:  # 0.0 and -0.0 are one key
-            return ref().evaluate_scalar(x)
+            return evaluator(x)
         value = seen.get(x)
         if value is None:
-            value = seen[x] = ref().evaluate_scalar(x)
+            value = seen[x] = evaluator(x)
         return value
 
     memo["response"] = response
@@ -605,6 +615,40 @@ def _root_span_db(shift: float, radius: float) -> tuple[float, float] | None:
     return 20.0 * math.log10(c / (2.0 * q)), 20.0 * math.log10(2.0 * q / p)
 
 
+def _quadratic_roots_function(shift: float, radius: float
+                              ) -> Callable[[complex], tuple[float, float, float]]:
+    """``L -> _quadratic_roots_scalar(L, shift, radius)`` with the constants formed once.
+
+    The same operations on the same floats: ``r2c2 - shift`` and the constant
+    term do not depend on ``L``, every product keeps its order.
+    """
+    r2c2 = radius * radius - shift * shift
+    b_scale = r2c2 - shift
+    c = radius * radius - (1.0 + shift) ** 2
+    isfinite, sqrt, isnan, nan = math.isfinite, math.sqrt, math.isnan, math.nan
+    magnitude = _scalar_abs
+
+    def roots(L: complex) -> tuple[float, float, float]:
+        m = magnitude(L)
+        a = r2c2 * (m * m)
+        b = 2.0 * L.real * b_scale
+        disc = b * b - 4.0 * a * c
+        if not (isfinite(a) and isfinite(b) and isfinite(disc) and a != 0.0):
+            return _quadratic_roots_scalar(L, shift, radius)
+        if not disc > 0:
+            return nan, nan, disc
+        sq = sqrt(disc)
+        if a > 0:
+            r1, r2 = (-b - sq) / (2.0 * a), (-b + sq) / (2.0 * a)
+        else:
+            r1, r2 = (-b - -sq) / (2.0 * a), (-b + -sq) / (2.0 * a)
+        if isnan(r1) or isnan(r2):
+            return nan, nan, disc
+        return min(r1, r2), max(r1, r2), disc
+
+    return roots
+
+
 def _to_db(k: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         return 20.0 * np.log10(k)
@@ -636,10 +680,12 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
     reach = _step_reach_db(contour)
     root_span = _root_span_db(shift, radius) if reach is not None else None
 
+    quadratic = _quadratic_roots_function(shift, radius)
+
     def roots_at(x: float) -> tuple[float, float, float]:
         found = roots.get(x) if x != 0.0 else None
         if found is None:
-            found = roots[x] = _quadratic_roots_scalar(response(x), shift, radius)
+            found = roots[x] = quadratic(response(x))
         return found
 
     for bi, br in enumerate(contour.branches):
