@@ -4,11 +4,12 @@
 bound shows that its values cannot move the run's forbidden interval: the
 contour's step bound on ``log L`` (``_step_reach_db``) and, for the peak
 limits, where the two roots of the quadratic lie around ``-20 log10 |L|``
-(``_root_span_db``). Checked here:
+(``_root_bounds_db``). Checked here:
 
 * the step bound against ``|L|`` evaluated independently with numpy from the
   zeros, poles and gain, densely inside every step of sampled loops;
-* the root bounds against the roots numpy.roots finds of ``A k^2 + B k + C``;
+* the root bounds on a step against the roots numpy.roots finds of
+  ``A k^2 + B k + C`` at points of the step;
 * the forbidden intervals with the skips and with every search run (the
   skips disabled) are the same floats, on loops of the benchmark's kind,
   for the shifts and radii of the disk and sensitivity rules and for the
@@ -99,32 +100,34 @@ def test_step_reach_is_not_used_with_a_zero_on_the_contour():
     (0.0, 1.0 / 0.7),                 # balanced disk (sigma = 0: c = 0), alpha 0.7
     (-0.25, 1.0 / 0.6),               # a skewed disk
 ])
-def test_root_span_holds_the_roots(shift, radius):
-    span = hints._root_span_db(shift, radius)
-    assert span is not None
+def test_root_bounds_hold_the_roots_on_the_step(shift, radius):
     rng = np.random.default_rng(3)
     p = radius * radius - shift * shift
+    c = radius * radius - (1.0 + shift) ** 2
     checked = 0
-    for _ in range(3000):
-        L = 10 ** rng.uniform(-3, 3) * cmath.exp(1j * rng.uniform(-math.pi, math.pi))
-        a = p * abs(L) ** 2
-        b = 2.0 * L.real * (p - shift)
-        c = radius * radius - (1.0 + shift) ** 2
-        roots = np.roots([a, b, c])  # numpy's companion-matrix eigenvalues
-        if np.any(np.abs(roots.imag) > 0) or roots.real.max() <= 0:
-            continue
-        k1, k2 = sorted(roots.real)
-        level = -20.0 * math.log10(abs(L))
-        assert 20.0 * math.log10(k1) >= level + span[0] - 1e-9
-        assert 20.0 * math.log10(k2) <= level + span[1] + 1e-9
-        checked += 1
-    assert checked > 100
+    for _ in range(400):
+        L0 = 10 ** rng.uniform(-2, 2) * cmath.exp(1j * rng.uniform(-math.pi, math.pi))
+        beta = 10 ** rng.uniform(-4, math.log10(0.5))
+        low, high = hints._root_bounds_db(L0, beta, shift, radius)
+        # points of the step: log L within beta of log L0 (a disk in the log plane)
+        radii = np.concatenate([np.sqrt(rng.uniform(0, 1, 30)), np.ones(20)])  # and its rim
+        delta = beta * radii * np.exp(1j * rng.uniform(0, 2 * np.pi, radii.size))
+        for L in L0 * np.exp(delta):
+            roots = np.roots([p * abs(L) ** 2, 2.0 * L.real * (p - shift), c])  # numpy
+            if np.any(np.abs(roots.imag) > 0) or roots.real.max() <= 0:
+                continue
+            k1, k2 = sorted(roots.real)
+            assert 20.0 * math.log10(k1) >= low
+            assert 20.0 * math.log10(k2) <= high
+            checked += 1
+    assert checked > 500
 
 
-def test_root_span_declines_roots_of_opposite_signs():
+def test_root_bounds_decline_roots_of_opposite_signs():
     # C = R^2 - (1 + c)^2 <= 0: the lower root is negative (or zero)
-    assert hints._root_span_db(0.0, 1.0) is None
-    assert hints._root_span_db(0.0, 0.9) is None
+    assert hints._root_bounds_db(-0.5 + 0.1j, 0.01, 0.0, 1.0) is None
+    assert hints._root_bounds_db(-0.5 + 0.1j, 0.01, 0.0, 0.9) is None
+    assert hints._root_bounds_db(0j, 0.01, 0.0, 2.0) is None
 
 
 def _forbidden(contour, shift_radius=None, test=None):

@@ -382,30 +382,40 @@ _DB_PER_NEPER = 20.0 / math.log(10.0)
 _BOUND_SLACK_DB = 1e-6
 
 
-def _step_reach_db(contour) -> Callable[[Any], Any] | None:
-    """``branch -> reach`` (dB per step): how far ``-20 log10 |L|`` can move inside a step.
+def _step_bounds(contour) -> bool:
+    """Whether the contour's step bounds cover ``|L|`` (and its phase) on every step.
 
     The contour keeps, per step ``[w_k, w_k+1]`` of a branch, a Taylor bound
     ``beta_k`` on the change of ``log L`` (``Branch.bound``: ``(b - a)(|D(m)| +
     (b - a)/2 max |D'|)`` with ``D`` the logarithmic derivative, see
     ``RationalResponse.step_bound``). The same bound holds from either end to
     any point inside the step (the change from ``a`` to ``x`` is at most
-    ``(x - a) max |D|``), so there ``-20 log10 |L|`` lies within
-    ``_DB_PER_NEPER * beta_k`` dB of its value at either end. ``None`` when the
-    bound does not cover ``|L|``: frequency-response factors (their variation
-    is not in it) or zeros on the contour (left out of the bound).
+    ``(x - a) max |D|``); it bounds ``log |L|`` and the phase alike. Not so for
+    frequency-response factors (their variation is not in it) or zeros on the
+    contour (left out of the bound).
     """
     memo = _memo(contour)
-    if "reach" in memo:
-        return memo["reach"]
-    rational = contour.rational
-    covered = (not contour.open_loop.factors and not getattr(rational, "extras", ())
-               and not bool(np.any(rational.block.on_boundary(rational.zeros))))
-    reach = None
-    if covered:
-        def reach(br):
-            return _DB_PER_NEPER * br.bound + _BOUND_SLACK_DB
-    memo["reach"] = reach
+    if "bounds" not in memo:
+        rational = contour.rational
+        memo["bounds"] = bool(
+            not contour.open_loop.factors and not getattr(rational, "extras", ())
+            and not np.any(rational.block.on_boundary(rational.zeros)))
+    return memo["bounds"]
+
+
+def _step_reach_db(contour) -> Callable[[Any], Any] | None:
+    """``branch -> reach`` (dB per step): how far ``-20 log10 |L|`` can move inside a step.
+
+    ``_DB_PER_NEPER * beta_k`` from either end of the step (see
+    :func:`_step_bounds`), plus ``_BOUND_SLACK_DB``; ``None`` when the bounds
+    do not cover ``|L|``.
+    """
+    if not _step_bounds(contour):
+        return None
+
+    def reach(br):
+        return _DB_PER_NEPER * br.bound + _BOUND_SLACK_DB
+
     return reach
 
 
@@ -594,25 +604,51 @@ def _quadratic_roots_scalar(L: complex, shift: float, radius: float
 _ROOT_RATIO_LIMIT = 1e6
 
 
-def _root_span_db(shift: float, radius: float) -> tuple[float, float] | None:
-    """Where the roots of the peak quadratic lie around ``-20 log10 |L|`` (dB), or ``None``.
+#: Slack of the root bounds (dB): the roots near a double root are formed
+#: through the square root of a rounded discriminant (relative errors up to
+#: about 2e-8, 2e-7 dB), and so are the bounds.
+_ROOT_SLACK_DB = 1e-5
 
-    With ``A = p |L|^2``, ``B = 2 Re L q'``, ``C`` (``p = R^2 - c^2 > 0``,
-    ``q' = R^2 - c^2 - c``, ``C = R^2 - (1 + c)^2 > 0``) both roots have the
-    sign of ``-B`` and product ``C/A``, sum ``-B/A``; where the upper root is
-    positive both are, so ``k2 <= |B|/A <= 2 |q'| / (p |L|)`` and
-    ``k1 = (C/A)/k2 >= C/|B| >= C / (2 |q'| |L|)``. Returns the two constants
-    ``(20 log10 (C / 2|q'|), 20 log10 (2|q'| / p))``: the lower root in dB is at
-    least ``-20 log10 |L|`` plus the first, the upper root at most it plus the
-    second. ``None`` where ``C <= 0`` (roots of opposite signs) or the roots
-    may lie more than ``_ROOT_RATIO_LIMIT`` apart (``B^2/(AC) <= 4 q'^2/(p C)``).
+
+def _root_bounds_db(L0: complex, beta: float, shift: float, radius: float
+                    ) -> tuple[float, float] | None:
+    """Bounds (dB) on the positive roots of the peak quadratic over a step, or ``None``.
+
+    On a step whose end has ``L0`` and whose step bound is ``beta``
+    (``|log L - log L0| <= beta`` everywhere on it, see :func:`_step_reach_db`),
+    ``|L|`` lies within ``e^(+-beta)`` of ``|L0|`` and the phase within
+    ``+-beta`` of ``arg L0``. The quadratic ``A k^2 + B k + C`` (``A = p |L|^2``,
+    ``B = 2 Re L q``, ``p = R^2 - c^2 > 0``, ``q = p - c``, ``C = R^2 - (1 + c)^2
+    > 0``) has, where its upper root is positive, two positive roots with
+    ``k m = (q |cos| +- sqrt(q^2 cos^2 - p C)) / p`` (``m = |L|``, ``cos`` of
+    ``arg L``; Vieta: product ``C/(p m^2)``, sum ``2 |q| |cos| / (p m)``): the
+    upper one grows with ``|cos|``, the lower one ``C / (m (q |cos| + sqrt(...)))``
+    falls with it. So with the largest ``|cos|`` on the step, the smallest
+    ``|L|`` for the upper root and the largest for the lower one: returns
+    ``(lowest lower root, highest upper root)`` in dB, each widened by
+    ``_ROOT_SLACK_DB``. ``None`` where ``C <= 0`` (roots of opposite signs),
+    ``L0`` is zero or not finite, or the roots may lie more than
+    ``_ROOT_RATIO_LIMIT`` apart (``B^2/(AC) <= 4 q^2 / (p C)``).
     """
     p = radius * radius - shift * shift
     q = abs(p - shift)
     c = radius * radius - (1.0 + shift) ** 2
     if not (p > 0.0 and c > 0.0 and q > 0.0) or 4.0 * q * q / (p * c) > _ROOT_RATIO_LIMIT:
         return None
-    return 20.0 * math.log10(c / (2.0 * q)), 20.0 * math.log10(2.0 * q / p)
+    m0 = abs(L0)
+    if not (0.0 < m0 < _INF and math.isfinite(beta) and beta >= 0.0):
+        return None
+    phase = math.atan2(L0.imag, L0.real)
+    if beta >= 0.5 * math.pi or abs(phase - math.pi * round(phase / math.pi)) <= beta:
+        cos_max = 1.0  # the phase may reach 0 or pi on the step
+    else:
+        cos_max = max(abs(math.cos(phase - beta)), abs(math.cos(phase + beta)))
+    grow = math.exp(beta)
+    top = q * cos_max + math.sqrt(max((q * cos_max) ** 2 - p * c, 0.0))
+    if not (top > 0.0 and math.isfinite(top)):
+        return None
+    return (20.0 * math.log10(c / (top * m0 * grow)) - _ROOT_SLACK_DB,
+            20.0 * math.log10(top * grow / (p * m0)) + _ROOT_SLACK_DB)
 
 
 def _quadratic_roots_function(shift: float, radius: float
@@ -677,8 +713,7 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
     forbidden = []
     response = _scalar_response(contour)
     roots: dict[float, tuple[float, float, float]] = {}
-    reach = _step_reach_db(contour)
-    root_span = _root_span_db(shift, radius) if reach is not None else None
+    bounded = _step_bounds(contour)
 
     quadratic = _quadratic_roots_function(shift, radius)
 
@@ -698,9 +733,6 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
         lo_db = _to_db(np.maximum(r1, 0.0))
         hi_db = _to_db(r2)
         start_kind, stop_kind = _end_kinds(contour, bi)
-        steps = vinv = None
-        if root_span is not None:
-            steps, vinv = reach(br), _db_of_inverse(br.L)
 
         def lo_at(x: float) -> float:
             a, b, _ = roots_at(x)
@@ -734,13 +766,16 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
                 if edge is None:
                     continue
                 a, b = sorted((float(w[inner]), edge))
-                # the roots' bounds on the step (see _root_span_db): a search
+                # the roots' bounds on the step (see _root_bounds_db): a search
                 # that cannot move lo (hi) is not run
                 skip_lo = skip_hi = False
-                if steps is not None and math.isfinite(float(vinv[inner])):
-                    base, step = float(vinv[inner]), float(steps[min(inner, outer)])
-                    skip_lo = _cannot_lower(base - step + root_span[0], lo)
-                    skip_hi = _cannot_lower(-(base + step + root_span[1]), -hi)
+                if bounded:
+                    k = min(inner, outer)
+                    found = _root_bounds_db(complex(br.L[inner]), float(br.bound[k]),
+                                            shift, radius)
+                    if found is not None:
+                        skip_lo = _cannot_lower(found[0], lo)
+                        skip_hi = _cannot_lower(-found[1], -hi)
                 for fun, sign in ((lo_at, 1.0), (hi_at, -1.0)):
                     if skip_lo if sign > 0 else skip_hi:
                         continue
