@@ -73,3 +73,18 @@ def test_phase_and_delay_test_twins_are_bitwise_equal():
                 want = float(test(np.array([w]), np.array([L]))[0])
                 got = test.scalar(w, L)
             assert _same(want, got), (w, L)
+
+
+def test_quadratic_roots_function_is_the_scalar_twin_bit_for_bit():
+    # the closure with its constants formed once against the scalar twin above
+    from ruleguard.rules.hints import _quadratic_roots_function
+
+    rng = np.random.default_rng(11)
+    values = _values(rng)
+    for shift, radius in ((0.0, 2.0), (-1.0, 1.5), (-0.25, 1.0 / 0.6), (0.0, 1.0), (0.3, 0.2)):
+        roots = _quadratic_roots_function(shift, radius)
+        for L in values:
+            with np.errstate(all="ignore"):  # the special values overflow in both
+                got = roots(L)
+                want = _quadratic_roots_scalar(L, shift, radius)
+            assert all(_same(g, w) for g, w in zip(got, want, strict=True)), (L, shift, radius)

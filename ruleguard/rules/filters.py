@@ -254,34 +254,43 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
     rational = open_loop.rational
     if rational.gain == 0.0:
         return False
+    starts, widths = [], []
     for lo, hi in windows:
         a, b = min(lo, hi), max(lo, hi)
         if not (math.isfinite(a) and math.isfinite(b) and b > a > 0):
             return False
+        starts.append(a)
+        widths.append(b - a)
+    fractions, pieces = _screen_constants()
+    nz = rational.zeros.size
     roots = np.concatenate([rational.zeros, rational.poles])
     # log|L| = log|k| + signs . log|x - r|  (+1 for a zero, -1 for a pole)
     signs = np.ones(roots.size)
-    signs[rational.zeros.size:] = -1.0
+    signs[nz:] = -1.0
     h = rational.sample_time_s
     speed = 1.0 if h is None else h
     log_gain = math.log(abs(rational.gain))
     ceiling = (floor_db - 1e-6) * (math.log(10.0) / 20.0)  # natural log of |L|
-    ends = np.array([(min(lo, hi), max(lo, hi)) for lo, hi in windows])
     steps = _SCREEN_POINTS - 1
-    width = ends[:, 1] - ends[:, 0]
-    mid = (ends[:, :1] + width[:, None] * ((np.arange(steps) + 0.5) / steps)).ravel()
-    half = np.repeat(0.5 * width / steps, steps)
-    pieces = (np.arange(_SCREEN_SPLIT) + 0.5) * (2.0 / _SCREEN_SPLIT) - 1.0
+    width = np.array(widths)
+    mid = (np.array(starts)[:, None] + width[:, None] * fractions).ravel()
+    half = np.repeat(width * (0.5 / steps), steps)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         for round_ in range(_SCREEN_ROUNDS + 1):
-            x = 1j * mid if h is None else np.exp(1j * mid * h)
+            x = 1j * mid if h is None else np.exp((1j * h) * mid)
             far = np.abs(x[:, None] - roots)
-            log_mag = log_gain + np.log(far) @ signs
+            log_mag = np.log(far) @ signs
+            log_mag += log_gain
             if not log_mag.max() < ceiling:  # a sample (or a pole) at the floor or above
                 return False
             # no bound where a root is closer than the step's ends: a huge slope keeps it open
-            dist = np.maximum(far - (speed * half)[:, None], 1e-300)
-            top = log_mag + half * (speed * (1.0 / dist).sum(axis=1))
+            reach = speed * half
+            far -= reach[:, None]
+            np.maximum(far, 1e-300, out=far)
+            np.reciprocal(far, out=far)
+            top = far.sum(axis=1)
+            top *= reach
+            top += log_mag
             open_steps = ~(top < ceiling)  # reaches the floor, or no bound
             count = np.count_nonzero(open_steps)
             if not count:
@@ -290,8 +299,21 @@ def _below_floor(open_loop, windows: list[tuple[float, float]], floor_db: float)
                 return False
             mid, half = mid[open_steps], half[open_steps]
             mid = (mid[:, None] + half[:, None] * pieces).ravel()
-            half = np.repeat(half / _SCREEN_SPLIT, _SCREEN_SPLIT)
+            half = np.repeat(half * (1.0 / _SCREEN_SPLIT), _SCREEN_SPLIT)
     return False
+
+
+_CONSTANTS: list = []
+
+
+def _screen_constants():
+    """The step midpoints as fractions of a window, and a step's pieces around its midpoint."""
+    if not _CONSTANTS:
+        steps = _SCREEN_POINTS - 1
+        fractions = (np.arange(steps) + 0.5) / steps
+        pieces = (np.arange(_SCREEN_SPLIT) + 0.5) * (2.0 / _SCREEN_SPLIT) - 1.0
+        _CONSTANTS[:] = [(fractions, pieces)]
+    return _CONSTANTS[0]
 
 
 def _peaks_db(open_loop, resonances: list[tuple[float, float]],

@@ -185,8 +185,30 @@ def _db_of_inverse(L: np.ndarray) -> np.ndarray:
 # result depends on the implementation (``absolute`` of a complex number,
 # ``log10``), IEEE arithmetic in the same order elsewhere, and the array
 # expression itself for any value off the plain path (zero, inf, nan).
+_BUFFERS: Any = None
+
+
 def _scalar_abs(L: complex) -> float:
-    return float(np.abs(L))
+    """``float(np.abs(L))``: numpy's complex ``absolute`` loop on one element.
+
+    Called through one-element arrays kept per thread (the ufunc on them runs
+    the very loop ``np.abs`` runs on a scalar, without wrapping the scalar and
+    its result: about half the cost per call).
+    """
+    global _BUFFERS
+    if _BUFFERS is None:
+        import threading
+
+        _BUFFERS = threading.local()
+    try:
+        z, m, absolute = _BUFFERS.abs
+    except AttributeError:
+        z, m = np.empty(1, dtype=complex), np.empty(1, dtype=float)
+        absolute = np.absolute
+        _BUFFERS.abs = (z, m, absolute)
+    z[0] = L
+    absolute(z, m)
+    return float(m[0])
 
 
 def _db_of_inverse_scalar(L: complex) -> float:
@@ -233,13 +255,23 @@ def _scalar_response(contour) -> Callable[[float], complex]:
         def ref():
             return contour
 
+    # without factors, the rational part's plain-arithmetic function itself
+    # (``scalar_evaluator``: the same numbers as ``evaluate_scalar``, one call
+    # less; it holds the roots, not the contour)
+    evaluator = None
+    if not getattr(getattr(contour, "open_loop", None), "factors", True):
+        evaluator = getattr(contour, "scalar_evaluator", lambda: None)()
+    if evaluator is None:
+        def evaluator(x: float) -> complex:
+            return ref().evaluate_scalar(x)
+
     def response(x: float) -> complex:
         x = float(x)
         if x == 0.0:  # 0.0 and -0.0 are one key
-            return ref().evaluate_scalar(x)
+            return evaluator(x)
         value = seen.get(x)
         if value is None:
-            value = seen[x] = ref().evaluate_scalar(x)
+            value = seen[x] = evaluator(x)
         return value
 
     memo["response"] = response
@@ -344,6 +376,70 @@ def _matters(lo: float, hi: float, within: Intervals | None) -> bool:
         intersect([(lo - _REFINE_REACH_DB, hi + _REFINE_REACH_DB)], within))
 
 
+#: dB per neper: ``-20 log10 |L|`` moves by this times the change of ``log |L|``.
+_DB_PER_NEPER = 20.0 / math.log(10.0)
+#: Added to every bound below (dB): covers the rounding of the computed values
+#: the bounds are compared with (relative errors near 1e-14).
+_BOUND_SLACK_DB = 1e-6
+
+
+def _step_bounds(contour) -> bool:
+    """Whether the contour's step bounds cover ``|L|`` (and its phase) on every step.
+
+    The contour keeps, per step ``[w_k, w_k+1]`` of a branch, a Taylor bound
+    ``beta_k`` on the change of ``log L`` (``Branch.bound``: ``(b - a)(|D(m)| +
+    (b - a)/2 max |D'|)`` with ``D`` the logarithmic derivative, see
+    ``RationalResponse.step_bound``). The same bound holds from either end to
+    any point inside the step (the change from ``a`` to ``x`` is at most
+    ``(x - a) max |D|``); it bounds ``log |L|`` and the phase alike. Not so for
+    frequency-response factors (their variation is not in it) or zeros on the
+    contour (left out of the bound).
+    """
+    memo = _memo(contour)
+    if "bounds" not in memo:
+        rational = contour.rational
+        memo["bounds"] = bool(
+            not contour.open_loop.factors and not getattr(rational, "extras", ())
+            and not np.any(rational.block.on_boundary(rational.zeros)))
+    return memo["bounds"]
+
+
+def _step_reach_db(contour) -> Callable[[Any], Any] | None:
+    """``branch -> reach`` (dB per step): how far ``-20 log10 |L|`` can move inside a step.
+
+    ``_DB_PER_NEPER * beta_k`` from either end of the step (see
+    :func:`_step_bounds`), plus ``_BOUND_SLACK_DB``; ``None`` when the bounds
+    do not cover ``|L|``.
+    """
+    if not _step_bounds(contour):
+        return None
+
+    def reach(br):
+        return _DB_PER_NEPER * br.bound + _BOUND_SLACK_DB
+
+    return reach
+
+
+def _cannot_lower(floor: float, lo: float) -> bool:
+    """A search whose values are all at least ``floor`` leaves ``min(lo, ...)`` at ``lo``."""
+    return floor > lo
+
+
+def _widen_within(value: Callable[[float], float], a: float, b: float, lo: float, hi: float,
+                  base: float, reach: float) -> tuple[float, float]:
+    """:func:`_widen` where ``value`` is known to lie in ``[base - reach, base + reach]``
+    on ``(a, b)``: a search that cannot move ``lo`` (``hi``) is not run (same result)."""
+    from ruleguard.analysis.contour import _minimize
+
+    lo, hi = min(lo, value(a), value(b)), max(hi, value(a), value(b))
+    if b > a:
+        if not _cannot_lower(base - reach, lo):
+            lo = min(lo, _minimize(value, a, b)[1])
+        if not _cannot_lower(-(base + reach), -hi):
+            hi = max(hi, -_minimize(lambda x: -value(x), a, b)[1])
+    return lo, hi
+
+
 def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], np.ndarray],
                              within: Intervals | None = None
                              ) -> tuple[Intervals, list[tuple[float, float]]]:
@@ -359,6 +455,7 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
     test_key = getattr(test, "key", None)
     # a run's refinement does not depend on ``within``: remembered per test
     refined_runs = _memo(contour).setdefault("runs", {}) if test_key is not None else None
+    reach = _step_reach_db(contour)
     for bi, br in enumerate(contour.branches):
         w, L = br.w, br.L
         g = test(w, L)
@@ -376,6 +473,7 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
             return _db_of_inverse_scalar(response(x))
 
         vals = _db_of_inverse(L)
+        steps = reach(br) if reach is not None else None
         for i0, i1 in runs:
             seg = vals[i0:i1 + 1]
             lo, hi = float(np.min(seg)), float(np.max(seg))
@@ -395,12 +493,20 @@ def frequency_test_forbidden(contour, test: Callable[[np.ndarray, np.ndarray], n
                 r = _edge_root(g_scalar, float(w[i0 - 1]), float(w[i0]))
                 if r is not None:
                     w_lo = r
-                    lo, hi = _widen(value, r, float(w[i0]), lo, hi)
+                    if steps is None or not math.isfinite(float(vals[i0])):
+                        lo, hi = _widen(value, r, float(w[i0]), lo, hi)
+                    else:
+                        lo, hi = _widen_within(value, r, float(w[i0]), lo, hi,
+                                               float(vals[i0]), float(steps[i0 - 1]))
             if i1 < w.size - 1:
                 r = _edge_root(g_scalar, float(w[i1]), float(w[i1 + 1]))
                 if r is not None:
                     w_hi = r
-                    lo, hi = _widen(value, float(w[i1]), r, lo, hi)
+                    if steps is None or not math.isfinite(float(vals[i1])):
+                        lo, hi = _widen(value, float(w[i1]), r, lo, hi)
+                    else:
+                        lo, hi = _widen_within(value, float(w[i1]), r, lo, hi,
+                                               float(vals[i1]), float(steps[i1]))
             jmin, jmax = i0 + int(np.argmin(seg)), i0 + int(np.argmax(seg))
             lo = min(lo, _refined_extreme(value, w, jmin, 1.0, (i0, i1)))
             hi = max(hi, _refined_extreme(value, w, jmax, -1.0, (i0, i1)))
@@ -494,6 +600,92 @@ def _quadratic_roots_scalar(L: complex, shift: float, radius: float
     return min(r1, r2), max(r1, r2), disc
 
 
+#: Above this bound on the ratio of the two roots, the roots' bounds are not used
+#: (the lower root, formed by a difference, could lose more than the bounds' slack).
+_ROOT_RATIO_LIMIT = 1e6
+
+
+#: Slack of the root bounds (dB): the roots near a double root are formed
+#: through the square root of a rounded discriminant (relative errors up to
+#: about 2e-8, 2e-7 dB), and so are the bounds.
+_ROOT_SLACK_DB = 1e-5
+
+
+def _root_bounds_db(L0: complex, beta: float, shift: float, radius: float
+                    ) -> tuple[float, float] | None:
+    """Bounds (dB) on the positive roots of the peak quadratic over a step, or ``None``.
+
+    On a step whose end has ``L0`` and whose step bound is ``beta``
+    (``|log L - log L0| <= beta`` everywhere on it, see :func:`_step_reach_db`),
+    ``|L|`` lies within ``e^(+-beta)`` of ``|L0|`` and the phase within
+    ``+-beta`` of ``arg L0``. The quadratic ``A k^2 + B k + C`` (``A = p |L|^2``,
+    ``B = 2 Re L q``, ``p = R^2 - c^2 > 0``, ``q = p - c``, ``C = R^2 - (1 + c)^2
+    > 0``) has, where its upper root is positive, two positive roots with
+    ``k m = (q |cos| +- sqrt(q^2 cos^2 - p C)) / p`` (``m = |L|``, ``cos`` of
+    ``arg L``; Vieta: product ``C/(p m^2)``, sum ``2 |q| |cos| / (p m)``): the
+    upper one grows with ``|cos|``, the lower one ``C / (m (q |cos| + sqrt(...)))``
+    falls with it. So with the largest ``|cos|`` on the step, the smallest
+    ``|L|`` for the upper root and the largest for the lower one: returns
+    ``(lowest lower root, highest upper root)`` in dB, each widened by
+    ``_ROOT_SLACK_DB``. ``None`` where ``C <= 0`` (roots of opposite signs),
+    ``L0`` is zero or not finite, or the roots may lie more than
+    ``_ROOT_RATIO_LIMIT`` apart (``B^2/(AC) <= 4 q^2 / (p C)``).
+    """
+    p = radius * radius - shift * shift
+    q = abs(p - shift)
+    c = radius * radius - (1.0 + shift) ** 2
+    if not (p > 0.0 and c > 0.0 and q > 0.0) or 4.0 * q * q / (p * c) > _ROOT_RATIO_LIMIT:
+        return None
+    m0 = abs(L0)
+    if not (0.0 < m0 < _INF and math.isfinite(beta) and beta >= 0.0):
+        return None
+    phase = math.atan2(L0.imag, L0.real)
+    if beta >= 0.5 * math.pi or abs(phase - math.pi * round(phase / math.pi)) <= beta:
+        cos_max = 1.0  # the phase may reach 0 or pi on the step
+    else:
+        cos_max = max(abs(math.cos(phase - beta)), abs(math.cos(phase + beta)))
+    grow = math.exp(beta)
+    top = q * cos_max + math.sqrt(max((q * cos_max) ** 2 - p * c, 0.0))
+    if not (top > 0.0 and math.isfinite(top)):
+        return None
+    return (20.0 * math.log10(c / (top * m0 * grow)) - _ROOT_SLACK_DB,
+            20.0 * math.log10(top * grow / (p * m0)) + _ROOT_SLACK_DB)
+
+
+def _quadratic_roots_function(shift: float, radius: float
+                              ) -> Callable[[complex], tuple[float, float, float]]:
+    """``L -> _quadratic_roots_scalar(L, shift, radius)`` with the constants formed once.
+
+    The same operations on the same floats: ``r2c2 - shift`` and the constant
+    term do not depend on ``L``, every product keeps its order.
+    """
+    r2c2 = radius * radius - shift * shift
+    b_scale = r2c2 - shift
+    c = radius * radius - (1.0 + shift) ** 2
+    isfinite, sqrt, isnan, nan = math.isfinite, math.sqrt, math.isnan, math.nan
+    magnitude = _scalar_abs
+
+    def roots(L: complex) -> tuple[float, float, float]:
+        m = magnitude(L)
+        a = r2c2 * (m * m)
+        b = 2.0 * L.real * b_scale
+        disc = b * b - 4.0 * a * c
+        if not (isfinite(a) and isfinite(b) and isfinite(disc) and a != 0.0):
+            return _quadratic_roots_scalar(L, shift, radius)
+        if not disc > 0:
+            return nan, nan, disc
+        sq = sqrt(disc)
+        if a > 0:
+            r1, r2 = (-b - sq) / (2.0 * a), (-b + sq) / (2.0 * a)
+        else:
+            r1, r2 = (-b - -sq) / (2.0 * a), (-b + -sq) / (2.0 * a)
+        if isnan(r1) or isnan(r2):
+            return nan, nan, disc
+        return min(r1, r2), max(r1, r2), disc
+
+    return roots
+
+
 def _to_db(k: np.ndarray) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore"):
         return 20.0 * np.log10(k)
@@ -522,11 +714,14 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
     forbidden = []
     response = _scalar_response(contour)
     roots: dict[float, tuple[float, float, float]] = {}
+    bounded = _step_bounds(contour)
+
+    quadratic = _quadratic_roots_function(shift, radius)
 
     def roots_at(x: float) -> tuple[float, float, float]:
         found = roots.get(x) if x != 0.0 else None
         if found is None:
-            found = roots[x] = _quadratic_roots_scalar(response(x), shift, radius)
+            found = roots[x] = quadratic(response(x))
         return found
 
     for bi, br in enumerate(contour.branches):
@@ -572,7 +767,19 @@ def peak_limit_forbidden(contour, shift: float, radius: float,
                 if edge is None:
                     continue
                 a, b = sorted((float(w[inner]), edge))
+                # the roots' bounds on the step (see _root_bounds_db): a search
+                # that cannot move lo (hi) is not run
+                skip_lo = skip_hi = False
+                if bounded:
+                    k = min(inner, outer)
+                    found = _root_bounds_db(complex(br.L[inner]), float(br.bound[k]),
+                                            shift, radius)
+                    if found is not None:
+                        skip_lo = _cannot_lower(found[0], lo)
+                        skip_hi = _cannot_lower(-found[1], -hi)
                 for fun, sign in ((lo_at, 1.0), (hi_at, -1.0)):
+                    if skip_lo if sign > 0 else skip_hi:
+                        continue
                     def g(x: float, fun=fun, sign=sign) -> float:
                         v = fun(x)
                         return sign * v if math.isfinite(v) else _POOR
