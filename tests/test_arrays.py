@@ -1,7 +1,7 @@
 """ruleguard.models.arrays against the numpy routines it stands in for."""
 
 import numpy as np
-from hypothesis import given, settings
+from hypothesis import example, given, settings
 from hypothesis import strategies as st
 
 from ruleguard.models.arrays import sorted_unique
@@ -16,6 +16,8 @@ def _same(a: np.ndarray, b: np.ndarray) -> bool:
 
 @settings(max_examples=500, deadline=None)
 @given(st.lists(_FLOATS, max_size=40))
+@example([float("nan")] * 3)  # all NaN (found by hypothesis in CI)
+@example([1.0, float("nan"), float("nan")])
 def test_sorted_unique_is_numpy_unique(values):
     # reference: numpy.unique (sorted, repeats dropped, NaNs kept once)
     w = np.array(values, dtype=float)

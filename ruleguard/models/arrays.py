@@ -27,7 +27,8 @@ def sorted_unique(values) -> np.ndarray:
     keep[0] = True
     if np.isnan(out[-1]):
         first_nan = int(np.searchsorted(out, out[-1], side="left"))
-        np.not_equal(out[1:first_nan], out[: first_nan - 1], out=keep[1:first_nan])
+        if first_nan > 1:  # all NaN: only the first is kept
+            np.not_equal(out[1:first_nan], out[: first_nan - 1], out=keep[1:first_nan])
         keep[first_nan] = True
         keep[first_nan + 1:] = False
     else:
