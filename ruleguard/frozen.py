@@ -170,26 +170,22 @@ def _compile_init(cls: type) -> Callable[..., None]:
     namespace: dict[str, Any] = {"__record_set__": _OBJECT_SETATTR, "__record_factory__": _FACTORY}
     positional, keyword, body = [], [], []
     for f in fields:
-        value = f.name
-        if f.init:
-            if f.default is not dataclasses.MISSING:
-                namespace[f"__default_{f.name}__"] = f.default
-                param = f"{f.name}=__default_{f.name}__"
-            elif f.default_factory is not dataclasses.MISSING:
-                namespace[f"__factory_{f.name}__"] = f.default_factory
-                param = f"{f.name}=__record_factory__"
-                value = f"__factory_{f.name}__() if {f.name} is __record_factory__ else {f.name}"
-            else:
-                param = f.name
-            (keyword if f.kw_only else positional).append(param)
-        elif f.default is not dataclasses.MISSING:
-            namespace[f"__default_{f.name}__"] = f.default
-            value = f"__default_{f.name}__"
+        default, factory = f"__default_{f.name}__", f"__factory_{f.name}__"
+        if f.default is not dataclasses.MISSING:
+            namespace[default] = f.default
         elif f.default_factory is not dataclasses.MISSING:
-            namespace[f"__factory_{f.name}__"] = f.default_factory
-            value = f"__factory_{f.name}__()"
-        else:
-            continue
+            namespace[factory] = f.default_factory
+        value = default if default in namespace else f"{factory}()"
+        if f.init:
+            param = value = f.name
+            if default in namespace:
+                param = f"{f.name}={default}"
+            elif factory in namespace:
+                param = f"{f.name}=__record_factory__"
+                value = f"{factory}() if {f.name} is __record_factory__ else {f.name}"
+            (keyword if f.kw_only else positional).append(param)
+        elif default not in namespace and factory not in namespace:
+            continue  # a field outside __init__ without a default: left unset
         body.append(f"    __record_set__({self_name}, {f.name!r}, {value})")
     if hasattr(cls, "__post_init__"):
         body.append(f"    {self_name}.__post_init__()")

@@ -205,3 +205,19 @@ def test_the_package_makes_its_frozen_records_with_record():
         if path.name != "frozen.py" and "dataclass(frozen=True" in path.read_text(encoding="utf-8")
     ]
     assert offenders == []
+
+
+def test_fields_outside_init():
+    body = '''
+class C:
+    a: int
+    b: int = field(default=5, init=False)
+    c: list = field(default_factory=list, init=False)
+    d: int = field(init=False, default=0, repr=False)
+'''
+    std, rec = _pair(body)
+    x, y = std(1), rec(1)
+    assert (y.a, y.b, y.c, y.d) == (x.a, x.b, x.c, x.d) == (1, 5, [], 0)
+    assert str(inspect.signature(rec)) == str(inspect.signature(std))
+    with pytest.raises(TypeError):
+        rec(1, 2)
