@@ -448,36 +448,14 @@ def remembered_analysis(open_loop):
     import pickle
 
     from ruleguard.analysis.margins import analyse_open_loop
+    from ruleguard.memo import remembered
 
     try:
         key = hashlib.blake2b(pickle.dumps(open_loop, protocol=pickle.HIGHEST_PROTOCOL),
                               digest_size=20).digest()
     except (pickle.PicklingError, TypeError, AttributeError):
         return analyse_open_loop(open_loop)
-    done = _ANALYSES.pop(key, None)
-    if done is None:
-        failure = None
-        with warnings.catch_warnings(record=True) as raised:
-            warnings.simplefilter("always")
-            try:
-                analysis = analyse_open_loop(open_loop)
-            except Exception as exc:  # raised again after its warnings
-                failure = exc
-        said = tuple((w.message, w.category) for w in raised)
-        if failure is not None:
-            _warn_again(said)
-            raise failure
-        done = (analysis, said)
-        if len(_ANALYSES) >= _ANALYSES_MAX:
-            del _ANALYSES[next(iter(_ANALYSES))]
-    _ANALYSES[key] = done
-    _warn_again(done[1])
-    return done[0]
-
-
-def _warn_again(said: tuple) -> None:
-    for message, category in said:
-        warnings.warn(message, category, stacklevel=3)
+    return remembered(_ANALYSES, _ANALYSES_MAX, key, analyse_open_loop, open_loop)
 
 
 def _is_inner_loop(project, name: str) -> bool:

@@ -221,3 +221,24 @@ class C:
     assert str(inspect.signature(rec)) == str(inspect.signature(std))
     with pytest.raises(TypeError):
         rec(1, 2)
+
+
+@pytest.mark.parametrize("annotations", [True, False])
+def test_the_docstring_of_an_undocumented_class_is_the_standard_one(annotations):
+    """A class without a docstring gets its signature as one, as the standard
+    decorator writes it; a documented class keeps its own."""
+    body = '''
+class C:
+    a: int
+    b: tuple[int, ...] = ()
+    c: dict = field(default_factory=dict)
+    d: Path = field(default=None, repr=False)
+    e: int = field(default=5, init=False)
+    f: str = field(default="x", kw_only=True)
+'''
+    if annotations:
+        body = "from __future__ import annotations\n" + body
+    std, rec = _pair(body, extra={"Path": Path})
+    assert rec.__doc__ == std.__doc__
+    std, rec = _pair(PLAIN)
+    assert rec.__doc__ == std.__doc__ == "A record."

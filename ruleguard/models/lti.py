@@ -97,6 +97,14 @@ class Factored:
             raise ValueError("gain and delay_s must be finite, delay_s >= 0")
 
     # ------------------------------------------------------------------ basics
+    def content_key(self) -> tuple:
+        """Exact content of the block as hashable data: the bytes of its roots,
+        its gain, delay and sample time (equal keys: the same block, bit for
+        bit). The key of the per-process memos of blocks (rounding, holds)."""
+        return (self.zeros.tobytes(), self.poles.tobytes(), self.zeros.size,
+                self.gain.hex(), self.delay_s.hex(),
+                None if self.sample_time_s is None else self.sample_time_s.hex())
+
     @property
     def is_discrete(self) -> bool:
         return self.sample_time_s is not None

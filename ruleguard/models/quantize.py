@@ -446,14 +446,9 @@ _ROUNDED_BLOCKS_MAX = 256
 
 
 def _block_key(block: Factored, fmt: NumericFormat, label: str, role: str, kind: str):
-    """Exact content key of a rounding: the block's roots (bytes), gain, delay, sample
-    time, the format and the labels (equal keys give equal results, bit for bit)."""
-    zeros = np.ascontiguousarray(block.zeros, dtype=complex)
-    poles = np.ascontiguousarray(block.poles, dtype=complex)
-    return (zeros.tobytes(), poles.tobytes(), zeros.size, float(block.gain).hex(),
-            float(block.delay_s).hex(),
-            None if block.sample_time_s is None else float(block.sample_time_s).hex(),
-            repr(fmt), label, role, kind)
+    """Exact content key of a rounding: the block's content (:meth:`Factored.content_key`),
+    the format and the labels (equal keys give equal results, bit for bit)."""
+    return (*block.content_key(), repr(fmt), label, role, kind)
 
 
 def quantize_block(block: Factored, numeric_format: NumericFormat | str, label: str = "",
