@@ -137,7 +137,7 @@ def check_loaded(project, ruleset, options: CheckOptions, *, progress=None, stat
         "skip": list(options.skip),
         "today": today.isoformat(),
     }
-    ruleset_print = ruleset.fingerprint()
+    ruleset_print = ruleset.fingerprint() if cache is not None else ""
 
     deadline = None
     if options.time_budget_s is not None:

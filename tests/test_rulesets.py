@@ -252,6 +252,43 @@ class TestUserFiles:
         assert load(tmp_path, "r.toml").fingerprint() != first
         assert load(tmp_path, "r.toml").severity_of("margin.phase") is Severity.ERROR
 
+    def test_fingerprint_follows_where_settings_stand_without_placing_them(self, tmp_path):
+        """The fingerprint covers the places of the settings (a finding names the
+        ruleset line of its threshold) through the digest of the chain's texts,
+        yet does not work them out; loaded twice, pickled or placed, the same
+        file gives the same fingerprint, and a ruleset made in code hashes its
+        repr (the reference: two equal reprs, equal fingerprints)."""
+        import pickle
+
+        from ruleguard.rules.spec import Ruleset
+
+        body = ('[ruleset]\nbased_on = "motion"\n[rules."margin.phase"]\nmin_deg = 45.0\n'
+                '[[waivers]]\nrule = "margin.gain"\nloops = ["a.*"]\nreason = "r"\n'
+                'expires = 2027-01-31\n')
+        write(tmp_path, "r.toml", body)
+        fresh = load(tmp_path, "r.toml")
+        first = fresh.fingerprint()
+        deferred = [loc for loc in (fresh.location, *fresh.rules["margin.phase"].locations.values(),
+                                    *(w.location for w in fresh.waivers))
+                    if "_at" in loc.__dict__]
+        assert deferred and all("_at" in loc.__dict__ for loc in deferred)  # none placed
+        placed = load(tmp_path, "r.toml")
+        text = repr(placed)  # places every location
+        assert placed.fingerprint() == first
+        assert pickle.loads(pickle.dumps(fresh)).fingerprint() == first
+        write(tmp_path, "r.toml", "# a comment moves every setting one line down\n" + body)
+        moved = load(tmp_path, "r.toml")
+        assert moved.fingerprint() != first and repr(moved) != text
+        write(tmp_path, "base.toml", '[rules."margin.gain"]\nmin_db = 6.0\n')
+        write(tmp_path, "top.toml", '[ruleset]\nbased_on = "base.toml"\n')
+        chained = load(tmp_path, "top.toml").fingerprint()
+        write(tmp_path, "base.toml", '# moved\n[rules."margin.gain"]\nmin_db = 6.0\n')  # parent moves
+        assert load(tmp_path, "top.toml").fingerprint() != chained
+        made = Ruleset(name="x", file="x.toml", files=("x.toml",))
+        assert made.sources_digest == ""
+        assert made.fingerprint() == Ruleset(name="x", file="x.toml", files=("x.toml",)).fingerprint()
+        assert made.fingerprint() != Ruleset(name="y", file="x.toml").fingerprint()
+
 
 def test_one_short_file_expresses_a_team_policy(tmp_path):
     """Issue "full rule catalog": "45 deg everywhere, 35 deg on process loops, one

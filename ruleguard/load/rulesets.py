@@ -25,6 +25,7 @@ from __future__ import annotations
 
 import datetime
 import functools
+import hashlib
 import math
 import posixpath
 from importlib import resources
@@ -171,6 +172,9 @@ class _Loader:
         else:
             rules = own_rules
             files = (doc.file,)
+        sources = hashlib.sha256(
+            f"{parent.sources_digest if parent else ''}\0{doc.file}\0{doc.text}".encode("utf-8")
+        ).hexdigest()
         adjustments = tuple(_renumber(o, i) for i, o in enumerate(adjustments))
         waivers = tuple(_renumber(w, i) for i, w in enumerate(waivers))
         name = meta.get("name") or posixpath.splitext(posixpath.basename(doc.file))[0]
@@ -182,6 +186,7 @@ class _Loader:
             waivers=waivers,
             files=files,
             location=doc.locate(()),
+            sources_digest=sources,
         )
 
 

@@ -12,7 +12,7 @@ from __future__ import annotations
 
 import datetime
 from collections.abc import Iterator, Mapping
-from dataclasses import field
+from dataclasses import field, fields
 from typing import Any
 
 from ruleguard.frozen import record
@@ -186,6 +186,9 @@ class Ruleset:
     waivers: tuple[Waiver, ...] = ()
     files: tuple[str, ...] = ()
     location: Location = Location("")
+    #: Digest of the texts of ``files`` (set by the loader; empty for a
+    #: ruleset made in code): they decide where every setting stands.
+    sources_digest: str = field(default="", repr=False, compare=False)
 
     def severity_of(self, rule_id: str) -> Severity:
         """The severity the ruleset gives ``rule_id`` before any adjustment."""
@@ -198,7 +201,39 @@ class Ruleset:
         return rule.default_severity if rule is not None else Severity.ERROR
 
     def fingerprint(self) -> str:
-        """A hash of everything the ruleset says (cache keys): same content, same hash."""
+        """A hash of everything the ruleset says (cache keys): same content, same hash.
+
+        It hashes the ruleset's ``repr``, the locations included, with one
+        shortcut for a loaded ruleset: every location lies in a file of its
+        chain, where the loader placed it by the file's text, so the digest of
+        those texts (``sources_digest``) stands for their lines, columns and
+        keys, which are then not worked out (that would cost the cache-hit
+        route the positions of every setting's key).
+        """
         import hashlib
 
-        return hashlib.sha256(repr(self).encode("utf-8")).hexdigest()
+        if not self.sources_digest:
+            return hashlib.sha256(repr(self).encode("utf-8")).hexdigest()
+        text = f"{self.sources_digest}\n{_content_text(self)}"
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _content_text(value: Any) -> str:
+    """``repr(value)``, each location written as its file only (see ``fingerprint``)."""
+    if type(value) is Location:
+        return f"Location({value.file!r})"
+    if hasattr(type(value), "__dataclass_fields__"):
+        shown = (f"{f.name}={_content_text(getattr(value, f.name))}"
+                 for f in fields(value) if f.repr)
+        return f"{type(value).__qualname__}({', '.join(shown)})"
+    if isinstance(value, ParameterValues):
+        return f"ParameterValues({_content_text(value._values)})"
+    if isinstance(value, Mapping):
+        items = (f"{_content_text(k)}: {_content_text(v)}" for k, v in value.items())
+        return "{" + ", ".join(items) + "}"
+    if isinstance(value, (tuple, list)):
+        inner = ", ".join(_content_text(v) for v in value)
+        if isinstance(value, list):
+            return f"[{inner}]"
+        return f"({inner},)" if len(value) == 1 else f"({inner})"
+    return repr(value)
