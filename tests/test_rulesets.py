@@ -282,11 +282,13 @@ class TestUserFiles:
         write(tmp_path, "base.toml", '[rules."margin.gain"]\nmin_db = 6.0\n')
         write(tmp_path, "top.toml", '[ruleset]\nbased_on = "base.toml"\n')
         chained = load(tmp_path, "top.toml").fingerprint()
-        write(tmp_path, "base.toml", '# moved\n[rules."margin.gain"]\nmin_db = 6.0\n')  # parent moves
+        parent = '[rules."margin.gain"]\nmin_db = 6.0\n'
+        write(tmp_path, "base.toml", "# the parent moves\n" + parent)
         assert load(tmp_path, "top.toml").fingerprint() != chained
         made = Ruleset(name="x", file="x.toml", files=("x.toml",))
         assert made.sources_digest == ""
-        assert made.fingerprint() == Ruleset(name="x", file="x.toml", files=("x.toml",)).fingerprint()
+        again = Ruleset(name="x", file="x.toml", files=("x.toml",))
+        assert made.fingerprint() == again.fingerprint()
         assert made.fingerprint() != Ruleset(name="y", file="x.toml").fingerprint()
 
 

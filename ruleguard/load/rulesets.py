@@ -173,7 +173,7 @@ class _Loader:
             rules = own_rules
             files = (doc.file,)
         sources = hashlib.sha256(
-            f"{parent.sources_digest if parent else ''}\0{doc.file}\0{doc.text}".encode("utf-8")
+            f"{parent.sources_digest if parent else ''}\0{doc.file}\0{doc.text}".encode()
         ).hexdigest()
         adjustments = tuple(_renumber(o, i) for i, o in enumerate(adjustments))
         waivers = tuple(_renumber(w, i) for i, w in enumerate(waivers))
