@@ -242,3 +242,23 @@ class C:
     assert rec.__doc__ == std.__doc__
     std, rec = _pair(PLAIN)
     assert rec.__doc__ == std.__doc__ == "A record."
+
+
+def test_classes_of_one_shape_share_compiled_code_under_their_own_names():
+    """Two records with the same kinds of fields get one compiled ``__init__``
+    (the same bytecode) with their own parameter names; the reference for the
+    names, defaults and errors is the standard decorator."""
+    one = "class C:\n    a: int\n    b: str = 'x'\n    c: list = field(default_factory=list)\n"
+    two = "class C:\n    p: int\n    q: str = 'y'\n    r: list = field(default_factory=list)\n"
+    (std1, rec1), (std2, rec2) = _pair(one), _pair(two)
+    x, y = rec1(1), rec2(q="z", p=2)
+    assert (x.a, x.b, x.c, y.p, y.q, y.r) == (1, "x", [], 2, "z", [])
+    assert rec1.__init__.__code__.co_code == rec2.__init__.__code__.co_code
+    assert rec1.__init__.__code__.co_varnames[:4] == ("self", "a", "b", "c")
+    assert str(inspect.signature(rec2)) == str(inspect.signature(std2))
+    for rec, std in ((rec1, std1), (rec2, std2)):
+        with pytest.raises(TypeError) as mine:
+            rec()
+        with pytest.raises(TypeError) as theirs:
+            std()
+        assert str(mine.value).split("missing")[1] == str(theirs.value).split("missing")[1]
