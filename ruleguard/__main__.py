@@ -1,7 +1,5 @@
 """``python -m ruleguard``."""
 
-import sys
+from ruleguard.cli import console
 
-from ruleguard.cli import main
-
-sys.exit(main())
+console()

@@ -54,6 +54,46 @@ def test_python_dash_m_entry_point():
     assert result.stdout.strip() == f"ruleguard {__version__}"
 
 
+def _leave_in_a_child(body: str) -> subprocess.CompletedProcess:
+    script = "import atexit, sys, threading, time\nfrom ruleguard.cli import leave\n" + body
+    return subprocess.run([sys.executable, "-c", script], capture_output=True, text=True)
+
+
+def test_leave_runs_exit_functions_flushes_and_keeps_the_status():
+    # No newline and no explicit flush: the text sits in the stream's buffer
+    # until leave() flushes it; the atexit function must still run once.
+    result = _leave_in_a_child(
+        "atexit.register(lambda: print('exit function ran', file=sys.stderr))\n"
+        "sys.stdout.write('report without newline')\n"
+        "leave(3)\n"
+        "print('not reached')\n"
+    )
+    assert result.returncode == 3
+    assert result.stdout == "report without newline"
+    assert result.stderr.count("exit function ran") == 1
+
+
+def test_leave_waits_for_a_live_thread_by_the_ordinary_exit():
+    result = _leave_in_a_child(
+        "worker = threading.Thread(target=lambda: (time.sleep(0.2), print('thread done')))\n"
+        "worker.start()\n"
+        "leave(1)\n"
+    )
+    assert result.returncode == 1
+    assert result.stdout == "thread done\n"
+
+
+def test_console_entry_point_exit_status_is_the_commands(tmp_path):
+    # `python -m ruleguard` goes through console(): a missing manifest is
+    # status 2 (FORMATS.md section 6), with the message on stderr.
+    result = subprocess.run(
+        [sys.executable, "-m", "ruleguard", "check", "--manifest", str(tmp_path / "nope.toml")],
+        capture_output=True, text=True,
+    )
+    assert result.returncode == 2
+    assert "nope.toml" in result.stderr
+
+
 DEMO = __import__("pathlib").Path(__file__).resolve().parents[1] / "fixtures" / "gimbal_demo"
 
 
