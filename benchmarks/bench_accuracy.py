@@ -35,7 +35,8 @@ from pathlib import Path
 import numpy as np
 
 ROOT = Path(__file__).resolve().parents[1]
-sys.path[:0] = [str(ROOT), str(ROOT / "tests"), str(ROOT / "tests" / "reference")]
+sys.path[:0] = [str(ROOT), str(ROOT / "benchmarks"), str(ROOT / "tests"),
+                str(ROOT / "tests" / "reference")]
 
 
 def _closed_forms() -> None:
@@ -99,24 +100,8 @@ def _demo_against_scipy() -> None:
               f"{abs(got['gain_margin_hz'] / f180 - 1):>11.1e}")
 
 
-def _flexible(order: int, seed: int):
-    # the flexible mechanism of tests/test_discretize.py::TestZohHighOrder
-    from ruleguard.models.lti import Factored
-
-    rng = np.random.default_rng(seed)
-    m = (order - 2) // 2
-    wp = 2 * np.pi * np.sort(10 ** rng.uniform(1, 3.3, size=m))
-    zp = 10 ** rng.uniform(-3, -1, size=m)
-    wz = wp * 10 ** rng.uniform(-0.1, 0.1, size=m)
-    zz = 10 ** rng.uniform(-3, -1, size=m)
-    p = -zp * wp + 1j * wp * np.sqrt(1 - zp**2)
-    z = -zz * wz + 1j * wz * np.sqrt(1 - zz**2)
-    blk = Factored(np.concatenate([z, z.conj()]),
-                   np.concatenate([p, p.conj(), [-0.5, -5.0]]), 1.0)
-    return blk.scaled(1.0 / abs(blk.evaluate(1j)[()]))
-
-
 def _zoh_against_mpmath() -> None:
+    from bench_discretize import flexible_plant  # the plants of TestZohHighOrder
     from test_discretize import modal_zoh_response_mp
     from test_modal_hold import resonant_plant
 
@@ -129,7 +114,7 @@ def _zoh_against_mpmath() -> None:
     groups = {"resonant, order 10": [(resonant_plant(np.random.default_rng(s)), d)
                                      for s in range(6) for d in (0.0, 0.37, 1.0, 2.6)]}
     for order, seed in ((10, 1), (30, 2), (50, 3)):
-        groups[f"flexible, order {order}"] = [(_flexible(order, seed), d) for d in (0.0, 0.37)]
+        groups[f"flexible, order {order}"] = [(flexible_plant(order, seed), d) for d in (0.0, 0.37)]
     for name, cases in groups.items():
         worst = []
         for blk, samples in cases:
