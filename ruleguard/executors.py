@@ -47,6 +47,17 @@ PARALLEL_MIN_VARIANTS = 48
 WINDOW_PER_WORKER = 3
 
 
+#: Batches: at least this many tasks per worker are kept (so the last ones
+#: end close together), and no task holds more than ``MAX_BATCH`` variants.
+TASKS_PER_WORKER, MAX_BATCH = 16, 8
+
+
+def batch_size(chunk_count: int, workers: int) -> int:
+    """Variants per task (at most) for a run of ``chunk_count`` chunks on ``workers``
+    workers (see :class:`ChunkStream`)."""
+    return max(1, min(MAX_BATCH, chunk_count // (max(workers, 1) * TASKS_PER_WORKER)))
+
+
 def default_jobs() -> int:
     """The number of cores this process may run on."""
     try:
@@ -147,6 +158,24 @@ def _run_installed(chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
     return analyse_chunk(_WORKER_PROJECT, chunk)
 
 
+def _run_installed_batch(chunks: tuple[VariantChunk, ...]) -> tuple:
+    """Each chunk's outcomes, or the exception it raised (``_Raised``), in order."""
+    out: list = []
+    for chunk in chunks:
+        try:
+            out.append(_run_installed(chunk))
+        except Exception as exc:  # handed back, raised at this chunk's turn
+            out.append(_Raised(exc))
+    return tuple(out)
+
+
+class _Raised:
+    """An exception a chunk of a batch raised in the worker."""
+
+    def __init__(self, exc: BaseException) -> None:
+        self.exc = exc
+
+
 def _pool_context():
     """Fork where it exists (workers inherit the loaded modules and project);
     the platform's default elsewhere."""
@@ -177,10 +206,17 @@ class ProcessExecutor:
             initargs=(project, judging),
         )
 
-    def submit(self, chunk: VariantChunk) -> Pending:
+    def _installed(self, chunk: VariantChunk) -> VariantChunk:
         if chunk.judge is not None and chunk.judge is self._judging:
-            chunk = dataclasses.replace(chunk, judge=INSTALLED_JUDGING)
-        return self._pool.submit(_run_installed, chunk)
+            return dataclasses.replace(chunk, judge=INSTALLED_JUDGING)
+        return chunk
+
+    def submit(self, chunk: VariantChunk) -> Pending:
+        return self._pool.submit(_run_installed, self._installed(chunk))
+
+    def submit_batch(self, chunks: tuple[VariantChunk, ...]) -> Pending:
+        """Several chunks as one task: a tuple of their outcomes (or ``_Raised``)."""
+        return self._pool.submit(_run_installed_batch, tuple(map(self._installed, chunks)))
 
     def close(self) -> None:
         self._pool.shutdown(wait=True, cancel_futures=True)
@@ -264,35 +300,77 @@ class ChunkStream:
 
     ``stop_loop(name)`` drops the chunks of a loop not yet handed out (and
     cancels those in flight) once the caller knows the loop has stopped.
+
+    With ``batch`` > 1 and an executor that has ``submit_batch``,
+    consecutive chunks of at most ``batch`` variants in all go to a worker
+    as one task (a larger chunk goes alone): a task's round
+    trip (pickling, the pipes, the pool's threads) costs about 0.4 ms of a
+    worker's time here, a tenth of a one-variant loop of order 10. The
+    outcomes come back in the same order, so the result is unchanged. A
+    batch is cancelled only when every loop in it has stopped; the chunks
+    of a stopped loop in a batch still running are dropped when they arrive.
     """
 
-    def __init__(self, executor: Executor, chunks: Iterable[VariantChunk]) -> None:
+    def __init__(self, executor: Executor, chunks: Iterable[VariantChunk],
+                 batch: int = 1) -> None:
         self._executor = executor
         self._chunks = iter(chunks)
         self._pending: deque = deque()
         self._stopped: set[str] = set()
         self.window = max(1, executor.workers * WINDOW_PER_WORKER)
+        self.batch = max(1, batch) if hasattr(executor, "submit_batch") else 1
+        self._held: VariantChunk | None = None  # read ahead, not yet submitted
+
+    def _next_chunk(self) -> VariantChunk | None:
+        if self._held is not None:
+            chunk, self._held = self._held, None
+            if chunk.loop not in self._stopped:
+                return chunk
+        for chunk in self._chunks:
+            if chunk.loop not in self._stopped:
+                return chunk
+        return None
 
     def _fill(self) -> None:
         while len(self._pending) < self.window:
-            chunk = next(self._chunks, None)
+            chunk = self._next_chunk()
             if chunk is None:
                 return
-            if chunk.loop in self._stopped:
+            if self.batch == 1:
+                self._pending.append(((chunk,), self._executor.submit(chunk)))
                 continue
-            self._pending.append((chunk, self._executor.submit(chunk)))
+            group, size = [chunk], len(chunk.variants)
+            while size < self.batch:
+                chunk = self._next_chunk()
+                if chunk is None:
+                    break
+                if size + len(chunk.variants) > self.batch:
+                    self._held = chunk  # starts the next task
+                    break
+                group.append(chunk)
+                size += len(chunk.variants)
+            group = tuple(group)
+            self._pending.append((group, self._executor.submit_batch(group)))
 
     def __iter__(self) -> Iterator[tuple[VariantChunk, tuple[VariantOutcome, ...]]]:
         self._fill()
         while self._pending:
-            chunk, pending = self._pending.popleft()
-            if chunk.loop in self._stopped:
+            group, pending = self._pending.popleft()
+            if all(chunk.loop in self._stopped for chunk in group):
                 pending.cancel()
                 self._fill()
                 continue
-            outcomes = pending.result()
+            found = pending.result()
             self._fill()
-            yield chunk, outcomes
+            if self.batch == 1:
+                yield group[0], found
+                continue
+            for chunk, outcomes in zip(group, found, strict=True):
+                if chunk.loop in self._stopped:
+                    continue
+                if isinstance(outcomes, _Raised):
+                    raise outcomes.exc
+                yield chunk, outcomes
 
     def stop_loop(self, name: str) -> None:
         self._stopped.add(name)

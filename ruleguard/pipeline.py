@@ -389,7 +389,7 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
     With ``judge``, a loop whose variants fit one chunk is also judged
     where it runs and comes back as a :class:`JudgedLoop` (no models).
     """
-    from ruleguard.executors import ChunkStream, make_executor
+    from ruleguard.executors import ChunkStream, batch_size, make_executor
     from ruleguard.models.families import loop_variants
     from ruleguard.workunits import chunk_size, split_variants
 
@@ -420,17 +420,22 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
         # its worker can judge it (judge) and send back no models
         many = len(families) >= 2 * executor.workers
 
+        def per_chunk(variants) -> int:
+            if many and len(variants) <= WHOLE_LOOP_VARIANTS:
+                return max(size, len(variants))
+            return size
+
         def chunks():
             for spec, variants, _ in families:
                 if variants:
-                    whole = many and len(variants) <= WHOLE_LOOP_VARIANTS
                     yield from split_variants(
-                        spec.name, variants, max(size, len(variants)) if whole else size,
+                        spec.name, variants, per_chunk(variants),
                         deadline, options.time_budget_s,
                         prepare_rounding=rounding, judge=judge,
                     )
 
-        stream = ChunkStream(executor, chunks())
+        chunk_count = sum(-(-len(v) // per_chunk(v)) for _, v, _ in families if v)
+        stream = ChunkStream(executor, chunks(), batch_size(chunk_count, executor.workers))
         outcomes = iter(stream)
         done = total - len(specs)
         for spec, variants, error in families:

@@ -173,3 +173,117 @@ def test_judging_request_crosses_once_per_worker(sampled_demo):
         assert pickle.dumps(pool.submit(chunk).result()) == pickle.dumps(here)
     finally:
         pool.close()
+
+
+def test_batch_size_keeps_sixteen_tasks_per_worker():
+    # 300 one-variant chunks on 2 workers: 300 // 32 = 9, capped at MAX_BATCH
+    assert executors.batch_size(300, 2) == executors.MAX_BATCH == 8
+    assert executors.batch_size(63, 2) == 1  # fewer than 2 x 16 x 2 chunks: one per task
+    assert executors.batch_size(64, 2) == 2
+    assert executors.batch_size(0, 1) == 1
+
+
+class _BatchRecorder:
+    """An executor with ``submit_batch`` that runs nothing: chunk ``start`` is its outcome;
+    the loops in ``failing`` raise (as a worker's chunk would)."""
+
+    workers = 2
+
+    def __init__(self, failing=()):
+        self.groups = []
+        self.cancelled = []
+        self.failing = set(failing)
+
+    def submit(self, chunk):  # pragma: no cover - a batched stream never calls it
+        raise AssertionError("batched stream submitted one chunk")
+
+    def submit_batch(self, chunks):
+        self.groups.append(tuple((c.loop, c.start) for c in chunks))
+        values = tuple(
+            executors._Raised(ValueError(c.loop)) if c.loop in self.failing else (c.start,)
+            for c in chunks
+        )
+        recorder = self
+
+        class _Task:
+            def result(self):
+                return values
+
+            def cancel(self):
+                recorder.cancelled.append(values)
+                return True
+
+        return _Task()
+
+
+def _chunks(plan):
+    return [c for loop, n in plan for c in split_variants(loop, tuple(range(n)), 1)]
+
+
+def test_batched_stream_keeps_order_and_drops_stopped_loops():
+    fake = _BatchRecorder()
+    stream = executors.ChunkStream(fake, _chunks([("a", 30), ("b", 2), ("c", 30)]), batch=4)
+    seen = []
+    for chunk, outcomes in stream:
+        assert outcomes == (chunk.start,)
+        seen.append((chunk.loop, chunk.start))
+        if chunk.loop == "a" and chunk.start == 1:
+            stream.stop_loop("a")  # a/2, a/3 came in the same batch: dropped
+    assert seen == [("a", 0), ("a", 1), ("b", 0), ("b", 1)] + [("c", k) for k in range(30)]
+    assert all(len(g) <= 4 for g in fake.groups)
+    assert fake.groups[0] == (("a", 0), ("a", 1), ("a", 2), ("a", 3))
+    # window of 2 workers x 3 batches: a/0-23 at the start, a/24-27 once the first
+    # batch was read (before the stop); a/28 and a/29 are never submitted
+    submitted = {item for g in fake.groups for item in g}
+    assert ("a", 27) in submitted and ("a", 28) not in submitted
+    assert len(fake.cancelled) == 6  # the batches a/4-7 ... a/24-27
+
+
+def test_batched_stream_cancels_a_batch_of_stopped_loops_only():
+    fake = _BatchRecorder()
+    stream = executors.ChunkStream(fake, _chunks([("a", 12), ("b", 1)]), batch=4)
+    seen = []
+    for chunk, _ in stream:
+        seen.append((chunk.loop, chunk.start))
+        stream.stop_loop("a")
+    assert seen == [("a", 0), ("b", 0)]
+    # window 6 batches: a/0-3, a/4-7, a/8-11 and b/0 in flight; the two all-"a" ones cancelled
+    assert len(fake.cancelled) == 2
+
+
+def test_batched_stream_raises_at_the_failing_chunks_turn():
+    fake = _BatchRecorder(failing={"b"})
+    stream = executors.ChunkStream(fake, _chunks([("a", 2), ("b", 1), ("c", 1)]), batch=4)
+    seen = []
+    with pytest.raises(ValueError, match="b"):
+        for chunk, _ in stream:
+            seen.append((chunk.loop, chunk.start))
+    assert seen == [("a", 0), ("a", 1)]  # the chunks before it arrive first
+
+
+def test_batched_process_pool_report_is_identical(sampled_demo, monkeypatch):
+    files = ("firmware/tilt.toml",)
+    one = _report(sampled_demo, files, jobs=1)
+    # 3 loops of 61 variants in chunks of 8 (the last of each loop: 5); tasks of at
+    # most 24 variants: 8 + 8 + 8 twice, then 8 + 5 + the next loop's first 8 (21)
+    monkeypatch.setattr(executors, "batch_size", lambda count, workers: 24)
+    tasks = []
+    real = executors.ProcessExecutor.submit_batch
+
+    def spy(self, chunks):
+        tasks.append([(c.loop, len(c.variants)) for c in chunks])
+        return real(self, chunks)
+
+    monkeypatch.setattr(executors.ProcessExecutor, "submit_batch", spy)
+    assert _report(sampled_demo, files, jobs=2) == one
+    assert all(sum(n for _, n in task) <= 24 for task in tasks)
+    assert sum(n for task in tasks for _, n in task) == 3 * 61
+    assert len(tasks) == 8 and any(len({loop for loop, _ in t}) == 2 for t in tasks)
+
+
+def test_batched_time_budget_stops_every_loop(sampled_demo, monkeypatch):
+    monkeypatch.setattr(executors, "batch_size", lambda count, workers: 20)
+    report = check_project(sampled_demo, CheckOptions(today=AS_OF, time_budget_s=0.0, jobs=2))
+    assert not any(lp.analysed for lp in report.loops)
+    reasons = [f for f in report.findings if f.rule == "stability.closed-loop"]
+    assert {f.loop for f in reasons} == {lp.name for lp in report.loops}
