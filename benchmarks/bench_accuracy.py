@@ -72,7 +72,7 @@ def _closed_forms() -> None:
 
 
 def _demo_against_scipy() -> None:
-    from test_demo_independent import DEMO, HEATER, _margins, _nominal, _pi_loop
+    from test_demo_independent import DEMO, HEATER, TILT_CURRENT, _margins, _nominal, _pi_loop
 
     from ruleguard.cli import run
 
@@ -82,17 +82,11 @@ def _demo_against_scipy() -> None:
     if code not in (0, 1):
         raise SystemExit(err.getvalue())
     report = json.loads(out.getvalue())
-    h = 1 / 20000.0
-    wa = 2 * np.pi * 8000.0
-    loops = {
-        "tilt.current": (_pi_loop([1.0], np.polymul([4.2e-4, 1.3], [1 / wa, 1.0]),
-                                  2.1, 6200.0, h, 1), h),
-        "housing.heater": (_pi_loop(**HEATER), HEATER["h"]),
-    }
+    loops = {"tilt.current": TILT_CURRENT, "housing.heater": HEATER}
     print("2. demo loops against scipy.signal.cont2discrete + brentq:")
     print(f"   {'loop':<16}{'PM diff deg':>13}{'f_c rel':>10}{'GM diff dB':>12}{'f_180 rel':>11}")
-    for name, ((num, den), hh) in loops.items():
-        pm, fc, gm, f180 = _margins(num, den, hh)
+    for name, loop in loops.items():
+        pm, fc, gm, f180 = _margins(*_pi_loop(**loop), loop["h"])
         got = _nominal(report, name)["margins"]
         print(f"   {name:<16}{abs(got['phase_margin_deg'] - pm):>13.1e}"
               f"{abs(got['crossover_hz'] / fc - 1):>10.1e}"

@@ -96,14 +96,17 @@ def _assert_margins(report, name, num, den, h):
     assert got["gain_margin_hz"] == pytest.approx(f180, rel=1e-6)
 
 
+# Tilt current: plant 1/(L s + R), sensor 1/(s/(2 pi 8000) + 1), ZOH at 20 kHz,
+# one sample of computation delay, PI by Tustin (values from fixtures/gimbal_demo).
+TILT_CURRENT = dict(
+    plant_num=[1.0], plant_den=np.polymul([4.2e-4, 1.3], [1 / (2 * np.pi * 8000.0), 1.0]),
+    kp=2.1, ki=6200.0, h=1 / 20000.0, delay_samples=1,
+)
+
+
 def test_tilt_current_loop(demo_report):
-    # Plant 1/(L s + R), sensor 1/(s/(2 pi 8000) + 1), ZOH at 20 kHz, one sample of
-    # computation delay, PI by Tustin (values from fixtures/gimbal_demo).
-    h = 1 / 20000.0
-    wa = 2 * np.pi * 8000.0
-    plant_den = np.polymul([4.2e-4, 1.3], [1 / wa, 1.0])
-    num, den = _pi_loop([1.0], plant_den, 2.1, 6200.0, h, 1)
-    _assert_margins(demo_report, "tilt.current", num, den, h)
+    num, den = _pi_loop(**TILT_CURRENT)
+    _assert_margins(demo_report, "tilt.current", num, den, TILT_CURRENT["h"])
 
 
 # Heater: plant 0.24 exp(-12 s)/(95 s + 1) sampled at 2 Hz with one sample of
