@@ -158,6 +158,13 @@ def _run_installed(chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
     return analyse_chunk(_WORKER_PROJECT, chunk)
 
 
+class _Raised:
+    """An exception a chunk of a batch raised in the worker."""
+
+    def __init__(self, exc: BaseException) -> None:
+        self.exc = exc
+
+
 def _run_installed_batch(chunks: tuple[VariantChunk, ...]) -> tuple:
     """Each chunk's outcomes, or the exception it raised (``_Raised``), in order."""
     out: list = []
@@ -167,13 +174,6 @@ def _run_installed_batch(chunks: tuple[VariantChunk, ...]) -> tuple:
         except Exception as exc:  # handed back, raised at this chunk's turn
             out.append(_Raised(exc))
     return tuple(out)
-
-
-class _Raised:
-    """An exception a chunk of a batch raised in the worker."""
-
-    def __init__(self, exc: BaseException) -> None:
-        self.exc = exc
 
 
 def _pool_context():
@@ -331,6 +331,20 @@ class ChunkStream:
                 return chunk
         return None
 
+    def _group(self, first: VariantChunk) -> tuple[VariantChunk, ...]:
+        """``first`` and the chunks after it, up to ``batch`` variants in all."""
+        group, size = [first], len(first.variants)
+        while size < self.batch:
+            chunk = self._next_chunk()
+            if chunk is None:
+                break
+            if size + len(chunk.variants) > self.batch:
+                self._held = chunk  # starts the next task
+                break
+            group.append(chunk)
+            size += len(chunk.variants)
+        return tuple(group)
+
     def _fill(self) -> None:
         while len(self._pending) < self.window:
             chunk = self._next_chunk()
@@ -338,19 +352,9 @@ class ChunkStream:
                 return
             if self.batch == 1:
                 self._pending.append(((chunk,), self._executor.submit(chunk)))
-                continue
-            group, size = [chunk], len(chunk.variants)
-            while size < self.batch:
-                chunk = self._next_chunk()
-                if chunk is None:
-                    break
-                if size + len(chunk.variants) > self.batch:
-                    self._held = chunk  # starts the next task
-                    break
-                group.append(chunk)
-                size += len(chunk.variants)
-            group = tuple(group)
-            self._pending.append((group, self._executor.submit_batch(group)))
+            else:
+                group = self._group(chunk)
+                self._pending.append((group, self._executor.submit_batch(group)))
 
     def __iter__(self) -> Iterator[tuple[VariantChunk, tuple[VariantOutcome, ...]]]:
         self._fill()
@@ -362,10 +366,8 @@ class ChunkStream:
                 continue
             found = pending.result()
             self._fill()
-            if self.batch == 1:
-                yield group[0], found
-                continue
-            for chunk, outcomes in zip(group, found, strict=True):
+            for chunk, outcomes in zip(group, found if self.batch > 1 else (found,),
+                                       strict=True):
                 if chunk.loop in self._stopped:
                     continue
                 if isinstance(outcomes, _Raised):
