@@ -158,6 +158,13 @@ def _run_installed(chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
     return analyse_chunk(_WORKER_PROJECT, chunk)
 
 
+def _run_installed_timed(chunk: VariantChunk):
+    """:func:`_run_installed` with its timings (``check --timings``)."""
+    from ruleguard.timings import run_timed
+
+    return run_timed(_run_installed, chunk)
+
+
 class _Raised:
     """An exception a chunk of a batch raised in the worker."""
 
@@ -176,6 +183,53 @@ def _run_installed_batch(chunks: tuple[VariantChunk, ...]) -> tuple:
     return tuple(out)
 
 
+def _run_installed_batch_timed(chunks: tuple[VariantChunk, ...]):
+    """:func:`_run_installed_batch` with its timings (``check --timings``)."""
+    from ruleguard.timings import run_timed
+
+    return run_timed(_run_installed_batch, chunks)
+
+
+class _TimedPending:
+    """A future of a timed task: waiting for it is the stage ``waiting``, and
+    the task's timings go to the recording clock when it is read."""
+
+    def __init__(self, future) -> None:
+        self._future = future
+
+    def result(self):
+        from ruleguard.timings import received, stage
+
+        with stage("waiting"):
+            timed = self._future.result()
+        return received(timed)
+
+    def cancel(self) -> bool:
+        return self._future.cancel()
+
+
+def _pool_timing():
+    """``perf_counter()`` when the run is recording its timings, else None."""
+    import time
+
+    from ruleguard.timings import active_clock
+
+    return time.perf_counter() if active_clock() is not None else None
+
+
+def _pool_closed(workers: int, started: float | None) -> None:
+    """Count ``workers`` processes from ``started`` until now as the pools' time."""
+    if started is None:
+        return
+    import time
+
+    from ruleguard.timings import active_clock
+
+    clock = active_clock()
+    if clock is not None:
+        clock.add_worker_pool(workers, time.perf_counter() - started)
+
+
 def _pool_context():
     """Fork where it exists (workers inherit the loaded modules and project);
     the platform's default elsewhere."""
@@ -191,7 +245,9 @@ class ProcessExecutor:
 
     ``judging`` (the run's :class:`ruleguard.pipeline.LoopJudging`, if any) is
     installed in every worker with the project; a chunk that carries that
-    very request is sent with :data:`INSTALLED_JUDGING` in its place.
+    very request is sent with :data:`INSTALLED_JUDGING` in its place. When
+    the run records its timings (``check --timings``), every task is timed
+    in its worker (:func:`ruleguard.timings.run_timed`).
     """
 
     def __init__(self, project, jobs: int, judging=None) -> None:
@@ -199,6 +255,7 @@ class ProcessExecutor:
 
         self.workers = jobs
         self._judging = judging
+        self._started = _pool_timing()
         self._pool = ProcessPoolExecutor(
             max_workers=jobs,
             mp_context=_pool_context(),
@@ -212,14 +269,20 @@ class ProcessExecutor:
         return chunk
 
     def submit(self, chunk: VariantChunk) -> Pending:
+        if self._started is not None:
+            return _TimedPending(self._pool.submit(_run_installed_timed, self._installed(chunk)))
         return self._pool.submit(_run_installed, self._installed(chunk))
 
     def submit_batch(self, chunks: tuple[VariantChunk, ...]) -> Pending:
         """Several chunks as one task: a tuple of their outcomes (or ``_Raised``)."""
-        return self._pool.submit(_run_installed_batch, tuple(map(self._installed, chunks)))
+        chunks = tuple(map(self._installed, chunks))
+        if self._started is not None:
+            return _TimedPending(self._pool.submit(_run_installed_batch_timed, chunks))
+        return self._pool.submit(_run_installed_batch, chunks)
 
     def close(self) -> None:
         self._pool.shutdown(wait=True, cancel_futures=True)
+        _pool_closed(self.workers, self._started)
 
 
 # ------------------------------------------------------------ Dask distributed
@@ -252,6 +315,7 @@ class DaskExecutor:
                 f"({exc}); install the cluster extra: {CLUSTER_EXTRA_HINT}",
             ) from exc
         self._cluster = None
+        self._started = _pool_timing()
         address = address or dask.config.get("scheduler-address", None)
         if address:
             self._client = Client(address)
@@ -268,12 +332,18 @@ class DaskExecutor:
         self._project = self._client.scatter(project, broadcast=True)
 
     def submit(self, chunk: VariantChunk) -> Pending:
+        if self._started is not None:
+            from ruleguard.timings import run_timed
+
+            return _TimedPending(self._client.submit(
+                run_timed, analyse_chunk, self._project, chunk, pure=False))
         return self._client.submit(analyse_chunk, self._project, chunk, pure=False)
 
     def close(self) -> None:
         self._client.close()
         if self._cluster is not None:
             self._cluster.close()
+        _pool_closed(self.workers, self._started)
 
 
 def make_executor(

@@ -287,3 +287,60 @@ def test_batched_time_budget_stops_every_loop(sampled_demo, monkeypatch):
     assert not any(lp.analysed for lp in report.loops)
     reasons = [f for f in report.findings if f.rule == "stability.closed-loop"]
     assert {f.loop for f in reasons} == {lp.name for lp in report.loops}
+
+
+# ------------------------------------------------------------- --timings with workers
+def _timed_check(manifest, *extra):
+    import io
+
+    from ruleguard.cli import run
+
+    base = ["check", "--manifest", str(manifest), "--format", "json", "--no-cache",
+            "--as-of", AS_OF.isoformat(), *extra, str(manifest.parent / "firmware" / "tilt.toml")]
+    plain_out, plain_err = io.StringIO(), io.StringIO()
+    plain = run(base, plain_out, plain_err)
+    out, err = io.StringIO(), io.StringIO()
+    code = run([*base, "--timings"], out, err)
+    assert (code, out.getvalue()) == (plain, plain_out.getvalue())  # stdout unchanged
+    return err.getvalue()
+
+
+def _assert_worker_tables(err: str, workers: int) -> None:
+    from test_timings import tables
+
+    main, in_workers = tables(err)
+    assert "waiting" in main  # the parent's wait for the workers' results
+    assert "build" not in main and "analysis" not in main  # those ran in the workers
+    # (loops of 61 variants are judged here, so "rules" is not among the workers')
+    for name in ("build", "analysis", "other", "idle", "total"):
+        assert name in in_workers, err
+    for table in (main, in_workers):
+        parts = sum(s for name, (s, _) in table.items() if name != "total")
+        assert parts == pytest.approx(table["total"][0], abs=0.01)
+    assert f"of the {workers} worker processes" in err
+    tasks = int(err.split(" tasks)")[0].rsplit(" ", 1)[1])
+    assert tasks >= 2 * 61 // 8  # chunks of at most 8 variants, two loops at least
+    # the workers had their pool's whole span, and the parent waited for it
+    assert in_workers["total"][0] >= in_workers["analysis"][0] + in_workers["build"][0]
+
+
+def test_timings_show_the_worker_processes_time(sampled_demo):
+    _assert_worker_tables(_timed_check(sampled_demo, "--jobs", "2"), 2)
+
+
+def test_timings_of_one_job_have_no_worker_table(sampled_demo):
+    from test_timings import tables
+
+    err = _timed_check(sampled_demo, "--jobs", "1")
+    (main,) = tables(err)
+    assert {"build", "analysis", "rules"} <= main.keys() and "waiting" not in main
+
+
+def test_timings_show_the_dask_workers_time(sampled_demo):
+    distributed = pytest.importorskip("distributed")
+    with distributed.LocalCluster(
+        n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+    ) as cluster:
+        err = _timed_check(sampled_demo, "--executor", "dask",
+                           "--cluster-address", cluster.scheduler_address)
+    _assert_worker_tables(err, 2)
