@@ -1,7 +1,7 @@
 """ruleguard against the grid script an engineer would write instead (prints figures).
 
 Run: ``python benchmarks/bench_vs_grid.py [--loops 300] [--no-subprocess]
-[--batching ROUNDS]``
+[--batching ROUNDS] [--timings]``
 
 Builds, in a temporary folder, a project of ``--loops`` discrete loops at
 10 kHz (each: a 10th-order plant with four lightly damped resonance pairs
@@ -14,6 +14,11 @@ controller discretized by Tustin), then runs in one process run:
   grid up to the Nyquist frequency, and the margins read off that grid;
 * ruleguard: the real ``ruleguard check --format json --no-cache`` on the
   same project, through :func:`ruleguard.cli.run` in this process.
+
+With ``--timings``, the check is run once more with ``--timings`` and its
+tables printed: this process's stages, and how the worker processes spent
+their time (build, analysis, rules, other, idle). Its workers are forked
+from this process, whose imports are paid, as for the first ratio.
 
 The stage times are followed by the cost per validated value of the
 schema check alone: the compiled predicate (what a valid value costs) and
@@ -235,6 +240,17 @@ def validation_times(manifest: Path) -> tuple[int, float, float] | None:
     return len(seen), fast / len(seen), full / len(seen)
 
 
+def print_timings(manifest: Path) -> None:
+    """The ``--timings`` tables of one more check of the project (every core)."""
+    from ruleguard.cli import run
+
+    out, err = io.StringIO(), io.StringIO()
+    run(["check", "--format", "json", "--no-cache", "--timings", "--manifest", str(manifest)],
+        out, err)
+    print("ruleguard check --timings (seconds):")
+    print("".join(f"  {line}\n" for line in err.getvalue().splitlines()), end="")
+
+
 def compare_batching(manifest: Path, rounds: int, n: int) -> None:
     """Median wall time of the check with ``MAX_BATCH = 1`` (one chunk a task)
     and with the default, alternating in this process; the reports must agree."""
@@ -274,6 +290,8 @@ def main() -> None:
     parser.add_argument("--batching", type=int, metavar="ROUNDS", default=0,
                         help="also time the check with one chunk a pool task against "
                              "tasks of several chunks (the default), ROUNDS alternating rounds")
+    parser.add_argument("--timings", action="store_true",
+                        help="also print the check's --timings tables (parent and workers)")
     parser.add_argument("--profile", metavar="FILE",
                         help="write a cProfile of the ruleguard run to FILE")
     args = parser.parse_args()
@@ -312,6 +330,8 @@ def main() -> None:
         print(f"  ruleguard check        {t_rg:7.2f} s  {n / t_rg:8.1f} loops/s  "
               f"{1e3 * t_rg / n:7.2f} ms/loop")
         print(f"  ratio (ruleguard loops/s over naive loops/s): {t_naive / t_rg:6.2f}")
+        if args.timings:  # before the stages: they fill this process's memos (holds)
+            print_timings(manifest)
         stages = stage_times(manifest)
         print("ruleguard stages, run one by one on one core (ms/loop; the check above "
               "uses every core and writes the report):")
