@@ -181,16 +181,26 @@ def split_variants(
     )
 
 
-_NAMED: list = [None, {}]
+#: The project last asked about (held, so its identity stays its own), its
+#: loops by name, and the names of the loops that are another's inner loop.
+_NAMED: list = [None, {}, frozenset()]
+
+
+def _project_tables(project) -> list:
+    """``[project, loops by name, inner-loop names]``, made once per project
+    (a worker runs many chunks of one project)."""
+    if _NAMED[0] is not project:
+        _NAMED[:] = [
+            project,
+            {spec.name: spec for spec in project.loops},
+            frozenset(spec.inner for spec in project.loops if spec.inner is not None),
+        ]
+    return _NAMED
 
 
 def _loop_named(project, name: str):
-    """The loop spec called ``name`` (a table per project, kept for the
-    project last asked about: a worker runs many chunks of one project)."""
-    if _NAMED[0] is not project:
-        _NAMED[0] = project
-        _NAMED[1] = {spec.name: spec for spec in project.loops}
-    return _NAMED[1][name]
+    """The loop spec called ``name``."""
+    return _project_tables(project)[1][name]
 
 
 def analyse_chunk(project, chunk: VariantChunk) -> tuple[VariantOutcome, ...] | tuple[JudgedLoop]:
@@ -459,8 +469,9 @@ def remembered_analysis(open_loop):
 
 
 def _is_inner_loop(project, name: str) -> bool:
-    """Whether some loop of ``project`` has the loop ``name`` as its inner loop."""
-    return any(other.inner == name for other in project.loops)
+    """Whether some loop of ``project`` has the loop ``name`` as its inner loop
+    (a set made once per project: asked for every variant of every loop)."""
+    return name in _project_tables(project)[2]
 
 
 def _numerical_failure(spec, variant, exc: Exception) -> LoopNotAnalysable:

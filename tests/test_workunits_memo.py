@@ -127,3 +127,25 @@ def test_a_check_of_the_demo_is_the_same_without_the_memo(demo, monkeypatch, job
     assert out.getvalue() == plain.getvalue()
     if jobs == "1":  # the cascades ask again for analyses of their inner loops
         assert with_memo < len(calls) - with_memo
+
+
+def test_inner_loops_are_known_by_name_per_project(demo, tmp_path):
+    # the reference is the definition: a loop is an inner loop when another names it
+    project = load_project(demo / "ruleguard.toml")
+    expected = {spec.name for spec in project.loops
+                if any(other.inner == spec.name for other in project.loops)}
+    assert expected  # the demo's tilt axis is a cascade
+    assert {spec.name for spec in project.loops
+            if workunits._is_inner_loop(project, spec.name)} == expected
+    assert all(workunits._loop_named(project, spec.name) is spec for spec in project.loops)
+    # another project (the demo with its cascade cut) gets its own tables
+    manifest = tmp_path / "cut" / "ruleguard.toml"
+    shutil.copytree(demo, manifest.parent)
+    text = manifest.read_text(encoding="utf-8")
+    assert text.count("inner = ") >= 1
+    cut = "\n".join(line for line in text.splitlines() if not line.startswith("inner = "))
+    manifest.write_text(cut + "\n", encoding="utf-8")
+    other = load_project(manifest)
+    assert not any(workunits._is_inner_loop(other, spec.name) for spec in other.loops)
+    assert {spec.name for spec in project.loops
+            if workunits._is_inner_loop(project, spec.name)} == expected
