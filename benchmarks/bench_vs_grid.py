@@ -175,14 +175,21 @@ def naive_namespace() -> dict:
 
 
 # ------------------------------------------------------------------ running
-def run_ruleguard(manifest: Path) -> tuple[int, dict]:
+def _check(manifest: Path, *extra: str) -> tuple[int, str, str]:
+    """``ruleguard check --format json --no-cache`` in this process: (code, stdout, stderr)."""
     from ruleguard.cli import run
 
     out, err = io.StringIO(), io.StringIO()
-    code = run(["check", "--format", "json", "--no-cache", "--manifest", str(manifest)], out, err)
+    code = run(["check", "--format", "json", "--no-cache", *extra, "--manifest", str(manifest)],
+               out, err)
     if code not in (0, 1):
         raise SystemExit(f"ruleguard check failed ({code}): {err.getvalue()}")
-    return code, json.loads(out.getvalue())
+    return code, out.getvalue(), err.getvalue()
+
+
+def run_ruleguard(manifest: Path) -> tuple[int, dict]:
+    code, out, _ = _check(manifest)
+    return code, json.loads(out)
 
 
 def stage_times(manifest: Path) -> dict[str, float]:
@@ -242,13 +249,9 @@ def validation_times(manifest: Path) -> tuple[int, float, float] | None:
 
 def print_timings(manifest: Path) -> None:
     """The ``--timings`` tables of one more check of the project (every core)."""
-    from ruleguard.cli import run
-
-    out, err = io.StringIO(), io.StringIO()
-    run(["check", "--format", "json", "--no-cache", "--timings", "--manifest", str(manifest)],
-        out, err)
+    _, _, err = _check(manifest, "--timings")
     print("ruleguard check --timings (seconds):")
-    print("".join(f"  {line}\n" for line in err.getvalue().splitlines()), end="")
+    print("".join(f"  {line}\n" for line in err.splitlines()), end="")
 
 
 def compare_batching(manifest: Path, rounds: int, n: int) -> None:

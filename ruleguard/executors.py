@@ -25,12 +25,14 @@ from __future__ import annotations
 
 import dataclasses
 import os
+import time
 from collections import deque
 from collections.abc import Iterable, Iterator
 from typing import Protocol
 
 from ruleguard.errors import InputError
 from ruleguard.location import Location
+from ruleguard.timings import StageClock, active_clock, received, run_timed, stage
 from ruleguard.workunits import VariantChunk, VariantOutcome, analyse_chunk
 
 #: Executor names accepted by ``--executor``.
@@ -158,13 +160,6 @@ def _run_installed(chunk: VariantChunk) -> tuple[VariantOutcome, ...]:
     return analyse_chunk(_WORKER_PROJECT, chunk)
 
 
-def _run_installed_timed(chunk: VariantChunk):
-    """:func:`_run_installed` with its timings (``check --timings``)."""
-    from ruleguard.timings import run_timed
-
-    return run_timed(_run_installed, chunk)
-
-
 class _Raised:
     """An exception a chunk of a batch raised in the worker."""
 
@@ -183,13 +178,6 @@ def _run_installed_batch(chunks: tuple[VariantChunk, ...]) -> tuple:
     return tuple(out)
 
 
-def _run_installed_batch_timed(chunks: tuple[VariantChunk, ...]):
-    """:func:`_run_installed_batch` with its timings (``check --timings``)."""
-    from ruleguard.timings import run_timed
-
-    return run_timed(_run_installed_batch, chunks)
-
-
 class _TimedPending:
     """A future of a timed task: waiting for it is the stage ``waiting``, and
     the task's timings go to the recording clock when it is read."""
@@ -198,8 +186,6 @@ class _TimedPending:
         self._future = future
 
     def result(self):
-        from ruleguard.timings import received, stage
-
         with stage("waiting"):
             timed = self._future.result()
         return received(timed)
@@ -208,25 +194,17 @@ class _TimedPending:
         return self._future.cancel()
 
 
-def _pool_timing():
-    """``perf_counter()`` when the run is recording its timings, else None."""
-    import time
-
-    from ruleguard.timings import active_clock
-
-    return time.perf_counter() if active_clock() is not None else None
-
-
-def _pool_closed(workers: int, started: float | None) -> None:
-    """Count ``workers`` processes from ``started`` until now as the pools' time."""
-    if started is None:
-        return
-    import time
-
-    from ruleguard.timings import active_clock
-
+def _pool_timing() -> tuple[StageClock, float] | None:
+    """``(recording clock, perf_counter())`` when the run records its timings
+    (a pool then times its tasks, see :func:`ruleguard.timings.run_timed`), else None."""
     clock = active_clock()
-    if clock is not None:
+    return None if clock is None else (clock, time.perf_counter())
+
+
+def _pool_closed(workers: int, timing: tuple[StageClock, float] | None) -> None:
+    """Count ``workers`` processes from the pool's start until now as the pools' time."""
+    if timing is not None:
+        clock, started = timing
         clock.add_worker_pool(workers, time.perf_counter() - started)
 
 
@@ -255,7 +233,7 @@ class ProcessExecutor:
 
         self.workers = jobs
         self._judging = judging
-        self._started = _pool_timing()
+        self._timing = _pool_timing()
         self._pool = ProcessPoolExecutor(
             max_workers=jobs,
             mp_context=_pool_context(),
@@ -268,21 +246,21 @@ class ProcessExecutor:
             return dataclasses.replace(chunk, judge=INSTALLED_JUDGING)
         return chunk
 
+    def _submit(self, fn, work) -> Pending:
+        if self._timing is None:
+            return self._pool.submit(fn, work)
+        return _TimedPending(self._pool.submit(run_timed, fn, work))
+
     def submit(self, chunk: VariantChunk) -> Pending:
-        if self._started is not None:
-            return _TimedPending(self._pool.submit(_run_installed_timed, self._installed(chunk)))
-        return self._pool.submit(_run_installed, self._installed(chunk))
+        return self._submit(_run_installed, self._installed(chunk))
 
     def submit_batch(self, chunks: tuple[VariantChunk, ...]) -> Pending:
         """Several chunks as one task: a tuple of their outcomes (or ``_Raised``)."""
-        chunks = tuple(map(self._installed, chunks))
-        if self._started is not None:
-            return _TimedPending(self._pool.submit(_run_installed_batch_timed, chunks))
-        return self._pool.submit(_run_installed_batch, chunks)
+        return self._submit(_run_installed_batch, tuple(map(self._installed, chunks)))
 
     def close(self) -> None:
         self._pool.shutdown(wait=True, cancel_futures=True)
-        _pool_closed(self.workers, self._started)
+        _pool_closed(self.workers, self._timing)
 
 
 # ------------------------------------------------------------ Dask distributed
@@ -315,7 +293,7 @@ class DaskExecutor:
                 f"({exc}); install the cluster extra: {CLUSTER_EXTRA_HINT}",
             ) from exc
         self._cluster = None
-        self._started = _pool_timing()
+        self._timing = _pool_timing()
         address = address or dask.config.get("scheduler-address", None)
         if address:
             self._client = Client(address)
@@ -332,18 +310,16 @@ class DaskExecutor:
         self._project = self._client.scatter(project, broadcast=True)
 
     def submit(self, chunk: VariantChunk) -> Pending:
-        if self._started is not None:
-            from ruleguard.timings import run_timed
-
-            return _TimedPending(self._client.submit(
-                run_timed, analyse_chunk, self._project, chunk, pure=False))
-        return self._client.submit(analyse_chunk, self._project, chunk, pure=False)
+        if self._timing is None:
+            return self._client.submit(analyse_chunk, self._project, chunk, pure=False)
+        return _TimedPending(self._client.submit(
+            run_timed, analyse_chunk, self._project, chunk, pure=False))
 
     def close(self) -> None:
         self._client.close()
         if self._cluster is not None:
             self._cluster.close()
-        _pool_closed(self.workers, self._started)
+        _pool_closed(self.workers, self._timing)
 
 
 def make_executor(
