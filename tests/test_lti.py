@@ -139,38 +139,3 @@ def test_large_evaluations_multiply_the_factors_in_order_bit_for_bit():
                 ref = ref / (x - poles[i])
         got = block.evaluate(x)
         assert got.shape == x.shape and got.tobytes() == ref.tobytes()
-
-
-@pytest.mark.parametrize("k", [1, 10, 21, 63])
-def test_blocked_evaluation_gives_the_bits_of_one_stacked_array(k):
-    # Large evaluations are made a block of points at a time (lti._BLOCK_ELEMENTS).
-    # Reference 1 (numpy, one call): all ratios stacked in one array and
-    # reduced over the first axis, as before the blocks; the bits must agree,
-    # for point counts that end a block exactly, one past (the last block
-    # then takes two points: a lone column is multiplied by other kernels)
-    # and two past. Reference 2 (independent): the product in Python's
-    # complex arithmetic, to rounding.
-    from ruleguard.models import lti
-
-    rng = np.random.default_rng(100 + k)
-    zeros = rng.standard_normal(k) + 1j * rng.standard_normal(k)
-    poles = rng.standard_normal(k) + 1j * rng.standard_normal(k)
-    gain = 0.37
-    block = Factored(zeros, poles, gain, 0.0, 1e-3)
-    step = max(2, lti._BLOCK_ELEMENTS // (k + 1))
-    for n in (4 * step, 4 * step + 1, 4 * step + 2, 3 * step + 7):
-        assert n * (2 * k + 1) > lti._BROADCAST_LIMIT  # the blocked path
-        x = np.exp(1j * rng.uniform(0, np.pi, n))
-        rows = np.empty((k + 1, n), dtype=complex)
-        rows[0] = gain
-        np.divide(x[None, :] - zeros[:, None], x[None, :] - poles[:, None], out=rows[1:])
-        stacked = np.multiply.reduce(rows, axis=0)
-        got = block.evaluate(x)
-        assert got.tobytes() == stacked.tobytes(), n
-        plain = []
-        for xi in x.tolist():
-            v = complex(gain)
-            for z, p in zip(zeros.tolist(), poles.tolist(), strict=True):
-                v *= (xi - z) / (xi - p)
-            plain.append(v)
-        np.testing.assert_allclose(got, plain, rtol=1e-12 * k, atol=0)

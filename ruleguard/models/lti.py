@@ -35,46 +35,9 @@ BOUNDARY_ATOL = 1e-12
 #: Evaluations of at most this many (points x factors) use one broadcast
 #: product instead of a loop over the factors (fewer numpy calls per point).
 _BROADCAST_LIMIT = 4096
-#: Larger evaluations of up to this many (points x factors) stack the
-#: zero/pole ratios in one array, beyond it they loop over the factors.
+#: Larger evaluations stack the zero/pole ratios of up to this many
+#: (points x factors) in one array (16 MB), beyond it they loop over the factors.
 _STACK_LIMIT = 1 << 20
-#: The stacked arrays are made a block of points at a time, of at most this
-#: many (points x factors) elements (128 KB). One array for all points
-#: (0.5-2 MB) is mapped afresh by the C allocator and handed back on every
-#: call, so each of its pages is a page fault: on 3,204 points and 10
-#: zero/pole pairs 0.78 ms, against 0.19 ms in blocks, with the same bits
-#: (benchmarks/bench_analysis.py).
-_BLOCK_ELEMENTS = 8192
-
-
-def _stacked_products(x: np.ndarray, gain: float, zeros: np.ndarray,
-                      poles: np.ndarray) -> np.ndarray:
-    """``gain * prod_i (x - zeros[i]) / (x - poles[i])`` for a vector ``x``,
-    a block of at most :data:`_BLOCK_ELEMENTS` (points x factors) at a time.
-
-    Gives the same bits as one stacked array for all points. The last block
-    is never a single point: numpy multiplies and divides a lone column
-    with other kernels, whose roundings differ (on x86-64 with AVX-512 its
-    vector kernels use fused multiply-adds), so a point of its own there
-    would differ in its last bits.
-    """
-    k = zeros.size
-    out = np.empty(x.size, dtype=complex)
-    step = max(2, _BLOCK_ELEMENTS // (k + 1))
-    rows = np.empty((k + 1, min(step + 1, x.size)), dtype=complex)
-    zk, pk = zeros[:, None], poles[:, None]
-    first = 0
-    while first < x.size:
-        last = first + step
-        if x.size - last == 1:
-            last += 1
-        part = x[None, first:last]
-        block = rows[:, :part.shape[1]]
-        block[0] = gain
-        np.divide(part - zk, part - pk, out=block[1:])
-        np.multiply.reduce(block, axis=0, out=out[first:first + part.shape[1]])
-        first += part.shape[1]
-    return out
 
 
 def _as_complex_vector(values, name: str) -> np.ndarray:
@@ -189,13 +152,15 @@ class Factored:
             return out
         k = min(nz, npl)
         if k and x.size * (k + 1) <= _STACK_LIMIT:
-            # block by block, the zero/pole ratios of the block's points as rows
-            # of one array, multiplied row after row by one reduction over the
-            # first axis: per point the same products in the same order as the
-            # loop below (gain, then each ratio), with fewer calls
+            # the zero/pole ratios of all points as rows of one array, multiplied
+            # row after row by one reduction over the first axis: the same
+            # products in the same order as the loop below, with fewer calls
             flat = x.reshape(-1)
-            out = _stacked_products(flat, self.gain, self.zeros[:k], self.poles[:k])
-            out = out.reshape(x.shape)
+            rows = np.empty((k + 1, flat.size), dtype=complex)
+            rows[0] = self.gain
+            np.divide(flat[None, :] - self.zeros[:k, None], flat[None, :] - self.poles[:k, None],
+                      out=rows[1:])
+            out = np.multiply.reduce(rows, axis=0).reshape(x.shape)
             start = k
         else:
             out = np.full(x.shape, self.gain, dtype=complex)
