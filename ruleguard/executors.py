@@ -147,6 +147,9 @@ def _install_project(project, judging=None) -> None:
     _WORKER_PROJECT = project
     _WORKER_JUDGING = judging
     _single_threaded_linear_algebra()
+    from ruleguard.allocator import keep_freed_memory
+
+    keep_freed_memory()  # a worker's allocator reuses its pages (ruleguard.allocator)
 
 
 def _single_threaded_linear_algebra() -> None:
