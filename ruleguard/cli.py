@@ -126,7 +126,14 @@ def _build_parser() -> _Parser:
 
 
 def console() -> NoReturn:
-    """The ``ruleguard`` command and ``python -m ruleguard``: :func:`main`, then :func:`leave`."""
+    """The ``ruleguard`` command and ``python -m ruleguard``: :func:`main`, then :func:`leave`.
+
+    The process is the command's own: a run that analyses many loops in it
+    may tune its allocator (:mod:`ruleguard.allocator`).
+    """
+    from ruleguard.allocator import claim_process
+
+    claim_process()
     leave(main())
 
 

@@ -339,8 +339,12 @@ def make_executor(
             Location("<command line>", None, None, "--executor"),
             f"unknown executor {name!r}; choose one of {', '.join(EXECUTORS)}",
         )
-    if jobs > 1 and variant_count >= PARALLEL_MIN_VARIANTS:
-        return ProcessExecutor(project, jobs, judging)
+    if variant_count >= PARALLEL_MIN_VARIANTS:
+        if jobs > 1:
+            return ProcessExecutor(project, jobs, judging)
+        from ruleguard.allocator import tune_if_owned
+
+        tune_if_owned()  # many variants analysed here (ruleguard.allocator)
     return InlineExecutor(project)
 
 

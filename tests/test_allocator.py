@@ -71,17 +71,42 @@ def _tuned_state():
     return allocator._TUNED[0]
 
 
-def test_pool_workers_are_tuned_and_the_checking_process_is_not():
+def test_pool_workers_are_tuned_and_a_library_caller_is_not():
     executor = ProcessExecutor(None, 2)
     try:
         states = {executor._pool.submit(_tuned_state).result() for _ in range(4)}
     finally:
         executor.close()
     assert states == {GLIBC}
-    # a whole check in one process (below the pool's threshold): left alone
+    # a check through ruleguard.cli.run, as a program calling it makes: left alone
     demo = os.path.join(os.path.dirname(__file__), "..", "fixtures", "gimbal_demo",
                         "ruleguard.toml")
     code = ("import io, sys; from ruleguard import allocator; from ruleguard.cli import run; "
             "code = run(['check', sys.argv[1], '--format', 'json', '--no-cache', '--jobs', '2'], "
             "io.StringIO(), io.StringIO()); print(code, allocator._TUNED[0])")
     assert _python(code, os.path.abspath(demo)) == "1 None"
+
+
+def test_the_command_tunes_itself_only_when_it_analyses_many_variants(monkeypatch):
+    from ruleguard import cli
+    from ruleguard.executors import PARALLEL_MIN_VARIANTS
+
+    code = ("import sys; from ruleguard import allocator, executors; "
+            "claim, n = sys.argv[1] == 'claimed', int(sys.argv[2]); "
+            "claim and allocator.claim_process(); "
+            "executors.make_executor(None, 'local', 1, n); print(allocator._TUNED[0])")
+    many, few = str(PARALLEL_MIN_VARIANTS), str(PARALLEL_MIN_VARIANTS - 1)
+    assert _python(code, "claimed", many) == str(GLIBC)
+    assert _python(code, "claimed", few) == "None"       # a hook run on a few loops
+    assert _python(code, "library", many) == "None"      # a program calling cli.run
+    # the command's entry point is what claims the process
+    monkeypatch.setattr(allocator, "_OWNED", [False])
+    monkeypatch.setattr(cli, "main", lambda argv=None: 0)
+
+    def leave(code):
+        raise SystemExit(code)
+
+    monkeypatch.setattr(cli, "leave", leave)
+    with pytest.raises(SystemExit):
+        cli.console()
+    assert allocator._OWNED == [True]
