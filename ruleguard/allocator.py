@@ -36,7 +36,7 @@ analyse many loops: the local pool's workers (processes ruleguard starts
 and ends), and the ``ruleguard`` command's own process (it calls
 :func:`claim_process`) when it analyses at least as many variants itself
 as would start a pool (``executors.PARALLEL_MIN_VARIANTS``; a hook run on
-a few loops does not pay the 2 ms of ``import ctypes``). A program that
+a few loops does not pay the 1.7 ms of ``import ctypes`` and the call). A program that
 calls :func:`ruleguard.cli.run` keeps its allocator as it is, and so do
 Dask's workers. Elsewhere than glibc (macOS, musl) nothing changes.
 ``RULEGUARD_ALLOCATOR=system`` in the environment leaves the allocator

@@ -1,4 +1,4 @@
-"""The pool workers' allocator settings (ruleguard.allocator).
+"""The allocator settings of the processes that analyse many loops (ruleguard.allocator).
 
 Outside references: glibc's ``mallopt(3)`` (Linux man-pages) for what
 ``M_MMAP_THRESHOLD`` and ``M_TRIM_THRESHOLD`` do, and the kernel's own
