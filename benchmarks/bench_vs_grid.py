@@ -1,7 +1,7 @@
 """ruleguard against the grid script an engineer would write instead (prints figures).
 
 Run: ``python benchmarks/bench_vs_grid.py [--loops 300] [--no-subprocess]
-[--batching ROUNDS] [--timings]``
+[--batching ROUNDS] [--timings] [--baseline DIR [--rounds 11]]``
 
 Builds, in a temporary folder, a project of ``--loops`` discrete loops at
 10 kHz (each: a 10th-order plant with four lightly damped resonance pairs
@@ -19,6 +19,13 @@ With ``--timings``, the check is run once more with ``--timings`` and its
 tables printed: this process's stages, and how the worker processes spent
 their time (build, analysis, rules, other, idle). Its workers are forked
 from this process, whose imports are paid, as for the first ratio.
+
+With ``--baseline DIR``, the check also runs as a fresh process
+(``python -m ruleguard``) with this checkout and with ``DIR`` (another
+checkout, e.g. ``git worktree add /tmp/before <commit>``) first on
+``PYTHONPATH``, alternating, ``--rounds`` times at the default ``--jobs``
+and at ``--jobs 1``: the medians side by side, their ratio and whether the
+two checkouts printed the same report.
 
 The stage times are followed by the cost per validated value of the
 schema check alone: the compiled predicate (what a valid value costs) and
@@ -279,6 +286,42 @@ def compare_batching(manifest: Path, rounds: int, n: int) -> None:
           f"ratio {one / many:.2f}, reports identical: {len(reports) == 1}")
 
 
+def compare_checkouts(manifest: Path, baseline: Path, rounds: int, n: int) -> None:
+    """The check as a fresh process, this checkout against ``baseline``, alternating.
+
+    ``python -m ruleguard check --format json --no-cache`` with each checkout
+    first on ``PYTHONPATH``, at the default ``--jobs`` and at ``--jobs 1``,
+    ``rounds`` times each; prints the medians, their ratio and whether the
+    reports of the two checkouts are byte-identical.
+    """
+    import statistics
+
+    sides = {"baseline": baseline, "now": ROOT}
+    print(f"end to end against {baseline}, fresh processes, {rounds} alternating rounds, "
+          "median s (ms/loop):")
+    for jobs in ((), ("--jobs", "1")):
+        seconds: dict[str, list[float]] = {side: [] for side in sides}
+        reports: dict[str, set[bytes]] = {side: set() for side in sides}
+        for _ in range(rounds):
+            for side, checkout in sides.items():
+                env = dict(os.environ, PYTHONPATH=str(checkout))
+                start = time.perf_counter()
+                done = subprocess.run([sys.executable, "-m", "ruleguard", "check", "--format",
+                                       "json", "--no-cache", *jobs, "--manifest", str(manifest)],
+                                      capture_output=True, env=env, cwd=str(checkout))
+                seconds[side].append(time.perf_counter() - start)
+                if done.returncode not in (0, 1):
+                    raise SystemExit(f"{side}: ruleguard check failed ({done.returncode}): "
+                                     f"{done.stderr.decode(errors='replace')}")
+                reports[side].add(done.stdout)
+        med = {side: statistics.median(values) for side, values in seconds.items()}
+        label = " ".join(jobs) or "default --jobs"
+        same = len(reports["baseline"] | reports["now"]) == 1
+        print(f"  {label:<15} baseline {med['baseline']:6.3f} ({1e3 * med['baseline'] / n:5.2f})"
+              f"  now {med['now']:6.3f} ({1e3 * med['now'] / n:5.2f})"
+              f"  ratio {med['baseline'] / med['now']:5.2f}x  reports identical: {same}")
+
+
 def timed(fn, *args, **kwargs):
     start = time.perf_counter()
     value = fn(*args, **kwargs)
@@ -295,6 +338,11 @@ def main() -> None:
                              "tasks of several chunks (the default), ROUNDS alternating rounds")
     parser.add_argument("--timings", action="store_true",
                         help="also print the check's --timings tables (parent and workers)")
+    parser.add_argument("--baseline", metavar="DIR",
+                        help="also run the check as a fresh process with this checkout and "
+                             "with DIR (another checkout of ruleguard), alternating")
+    parser.add_argument("--rounds", type=int, default=11,
+                        help="alternating rounds of --baseline (default 11)")
     parser.add_argument("--profile", metavar="FILE",
                         help="write a cProfile of the ruleguard run to FILE")
     args = parser.parse_args()
@@ -350,6 +398,9 @@ def main() -> None:
 
         if args.batching:
             compare_batching(manifest, args.batching, n)
+
+        if args.baseline:
+            compare_checkouts(manifest, Path(args.baseline).resolve(), args.rounds, n)
 
         if not args.no_subprocess:
             py = sys.executable
