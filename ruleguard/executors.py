@@ -197,6 +197,15 @@ class _TimedPending:
         return self._future.cancel()
 
 
+def _submit_maybe_timed(submit, timing, fn, *args, **kwargs) -> Pending:
+    """``submit(fn, *args, **kwargs)`` of a pool or a cluster client; when the run
+    records its timings (``timing``, see :func:`_pool_timing`), the task is
+    :func:`ruleguard.timings.run_timed` of ``fn`` and its future a :class:`_TimedPending`."""
+    if timing is None:
+        return submit(fn, *args, **kwargs)
+    return _TimedPending(submit(run_timed, fn, *args, **kwargs))
+
+
 def _pool_timing() -> tuple[StageClock, float] | None:
     """``(recording clock, perf_counter())`` when the run records its timings
     (a pool then times its tasks, see :func:`ruleguard.timings.run_timed`), else None."""
@@ -249,17 +258,14 @@ class ProcessExecutor:
             return dataclasses.replace(chunk, judge=INSTALLED_JUDGING)
         return chunk
 
-    def _submit(self, fn, work) -> Pending:
-        if self._timing is None:
-            return self._pool.submit(fn, work)
-        return _TimedPending(self._pool.submit(run_timed, fn, work))
-
     def submit(self, chunk: VariantChunk) -> Pending:
-        return self._submit(_run_installed, self._installed(chunk))
+        return _submit_maybe_timed(self._pool.submit, self._timing, _run_installed,
+                                   self._installed(chunk))
 
     def submit_batch(self, chunks: tuple[VariantChunk, ...]) -> Pending:
         """Several chunks as one task: a tuple of their outcomes (or ``_Raised``)."""
-        return self._submit(_run_installed_batch, tuple(map(self._installed, chunks)))
+        return _submit_maybe_timed(self._pool.submit, self._timing, _run_installed_batch,
+                                   tuple(map(self._installed, chunks)))
 
     def close(self) -> None:
         self._pool.shutdown(wait=True, cancel_futures=True)
@@ -313,10 +319,8 @@ class DaskExecutor:
         self._project = self._client.scatter(project, broadcast=True)
 
     def submit(self, chunk: VariantChunk) -> Pending:
-        if self._timing is None:
-            return self._client.submit(analyse_chunk, self._project, chunk, pure=False)
-        return _TimedPending(self._client.submit(
-            run_timed, analyse_chunk, self._project, chunk, pure=False))
+        return _submit_maybe_timed(self._client.submit, self._timing, analyse_chunk,
+                                   self._project, chunk, pure=False)
 
     def close(self) -> None:
         self._client.close()

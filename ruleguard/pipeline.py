@@ -420,22 +420,18 @@ def _analyse_loops(project, specs, options: CheckOptions, deadline, progress, to
         # its worker can judge it (judge) and send back no models
         many = len(families) >= 2 * executor.workers
 
-        def per_chunk(variants) -> int:
-            if many and len(variants) <= WHOLE_LOOP_VARIANTS:
-                return max(size, len(variants))
-            return size
-
-        def chunks():
-            for spec, variants, _ in families:
-                if variants:
-                    yield from split_variants(
-                        spec.name, variants, per_chunk(variants),
-                        deadline, options.time_budget_s,
-                        prepare_rounding=rounding, judge=judge,
-                    )
-
-        chunk_count = sum(-(-len(v) // per_chunk(v)) for _, v, _ in families if v)
-        stream = ChunkStream(executor, chunks(), batch_size(chunk_count, executor.workers))
+        chunks = [
+            chunk
+            for spec, variants, _ in families if variants
+            for chunk in split_variants(
+                spec.name, variants,
+                max(size, len(variants))
+                if many and len(variants) <= WHOLE_LOOP_VARIANTS else size,
+                deadline, options.time_budget_s,
+                prepare_rounding=rounding, judge=judge,
+            )
+        ]
+        stream = ChunkStream(executor, chunks, batch_size(len(chunks), executor.workers))
         outcomes = iter(stream)
         done = total - len(specs)
         for spec, variants, error in families:
